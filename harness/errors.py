@@ -1,0 +1,45 @@
+"""Exceptions raised by the harness.
+
+Every error carries structured fields (which case, which field) and subclasses
+``ValueError`` so that both people and tools can read it. The CLI prints
+``str(error)`` as a single line and exits with status 2; it never shows a traceback
+for these.
+"""
+
+from __future__ import annotations
+
+
+class HarnessError(ValueError):
+    """Base class: a one-line, user-facing problem with the harness's input.
+
+    ``case`` names the case (or file) concerned, ``field`` the offending field or key.
+    """
+
+    def __init__(self, message: str, *, case: str | None = None, field: str | None = None):
+        self.case = case
+        self.field = field
+        self.detail = message
+        prefix = ""
+        if case is not None and field is not None:
+            prefix = f"{case}: {field}: "
+        elif case is not None:
+            prefix = f"{case}: "
+        elif field is not None:
+            prefix = f"{field}: "
+        super().__init__(prefix + message)
+
+
+class CaseError(HarnessError):
+    """A case, suite file or geometry file is invalid."""
+
+
+class PluginLoadError(HarnessError):
+    """A ``MODULE:FUNCTION`` plug-in specification cannot be imported or called."""
+
+
+class ReferenceDataError(HarnessError):
+    """A stored reference is unreadable or does not belong to the case."""
+
+
+class ToleranceError(HarnessError):
+    """A tolerance override names an unknown check or is not a positive number."""

@@ -1,0 +1,95 @@
+"""The plug-in contract, output side: what an SCF code returns, and its normalisation.
+
+A plug-in returns a mapping (or an object with the same attributes). Arrays may be
+numpy arrays or nested lists; unrestricted quantities carry a leading axis of 2
+(alpha first). Energies in hartree (Eh). See README, "The plug-in contract".
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from typing import Any, Mapping
+
+import numpy as np
+
+REQUIRED_KEYS = ("energy", "coefficients", "occupations")
+OPTIONAL_ARRAY_KEYS = ("orbital_energies", "density", "fock", "overlap", "core_hamiltonian")
+OPTIONAL_SCALAR_KEYS = ("converged", "iterations")
+KNOWN_KEYS = REQUIRED_KEYS + OPTIONAL_ARRAY_KEYS + OPTIONAL_SCALAR_KEYS
+
+#: Largest array accepted from a plug-in (elements); guards memory against garbage.
+MAX_ARRAY_ELEMENTS = 50_000_000
+
+
+@dataclasses.dataclass(frozen=True)
+class Malformed:
+    """Marks a returned value that could not be read; ``reason`` says why."""
+
+    reason: str
+
+
+def _read_array(key: str, value: Any):
+    if isinstance(value, (str, bytes)):
+        return Malformed(f"is a {type(value).__name__}, not a numeric array")
+    try:
+        arr = np.asarray(value)
+    except Exception as exc:  # ragged lists, odd objects
+        return Malformed(f"cannot be read as an array ({type(exc).__name__})")
+    if arr.dtype == object:
+        return Malformed("is a ragged or non-numeric array")
+    if arr.dtype.kind == "c":
+        if np.any(np.abs(arr.imag) > 0):
+            return Malformed("is complex; the harness handles real orbitals only")
+        arr = arr.real
+    if arr.dtype.kind not in "biuf":
+        return Malformed(f"has non-numeric dtype {arr.dtype}")
+    if arr.size > MAX_ARRAY_ELEMENTS:
+        return Malformed(f"has {arr.size} elements, more than the limit {MAX_ARRAY_ELEMENTS}")
+    return np.array(arr, dtype=np.float64)
+
+
+def _read_scalar(key: str, value: Any):
+    if key == "converged":
+        if isinstance(value, (bool, np.bool_)):
+            return bool(value)
+        return Malformed(f"must be a bool, got {type(value).__name__}")
+    if key == "iterations":
+        if isinstance(value, (int, np.integer)) and not isinstance(value, bool):
+            return int(value)
+        return Malformed(f"must be an int, got {type(value).__name__}")
+    # energy
+    if isinstance(value, (bool, np.bool_)):
+        return Malformed("must be a number, got bool")
+    try:
+        arr = np.asarray(value, dtype=np.float64)
+    except (TypeError, ValueError):
+        return Malformed(f"must be a number, got {type(value).__name__}")
+    if arr.size != 1:
+        return Malformed(f"must be a single number, got shape {arr.shape}")
+    return float(arr.reshape(()))
+
+
+def extract(raw: Any) -> dict[str, Any]:
+    """Read the known keys from a plug-in's return value into plain Python data.
+
+    Returns ``{key: value}`` for the keys present: float64 arrays, floats, bools, ints,
+    or :class:`Malformed` markers. Unknown keys are ignored. The result pickles, so it
+    can cross from the plug-in's process to the harness. Raises ``TypeError`` if ``raw``
+    is neither a mapping nor an object with any of the known attributes.
+    """
+    if isinstance(raw, Mapping):
+        getter = {k: raw[k] for k in KNOWN_KEYS if k in raw}
+    else:
+        getter = {k: getattr(raw, k) for k in KNOWN_KEYS if hasattr(raw, k)}
+        if not getter:
+            raise TypeError(f"the plug-in returned {type(raw).__name__}, not a mapping with "
+                            f"the keys {', '.join(REQUIRED_KEYS)}")
+    out: dict[str, Any] = {}
+    for key, value in getter.items():
+        if value is None:
+            continue
+        if key in ("converged", "iterations", "energy"):
+            out[key] = _read_scalar(key, value)
+        else:
+            out[key] = _read_array(key, value)
+    return out
