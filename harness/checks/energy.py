@@ -1,0 +1,68 @@
+"""Energy checks: the Hartree–Fock energy functional, consistency, reference.
+
+Energies in hartree (Eh). J and K are the Coulomb and exchange matrices of the
+densities given (computed from pyscf integrals by ``harness.integrals``).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+
+from harness.results import Measurement
+
+
+@dataclasses.dataclass(frozen=True)
+class EnergyTerms:
+    """The Hartree–Fock energy split into its terms (Eh)."""
+
+    nuclear: float
+    one_electron: float
+    coulomb: float
+    exchange: float
+
+    @property
+    def total(self) -> float:
+        return self.nuclear + self.one_electron + self.coulomb + self.exchange
+
+
+def energy_terms(d: np.ndarray, h: np.ndarray, vj: np.ndarray, vk: np.ndarray,
+                 e_nuc: float) -> EnergyTerms:
+    """E[P] = E_nuc + Tr(P H) + ½ Tr(P J) + E_K.
+
+    RHF (d of shape (1, nao, nao) holding the total P; vk = K(P)): E_K = −¼ Tr(P K).
+    UHF/ROHF (d = (Pα, Pβ); vk = (K(Pα), K(Pβ))): E_K = −½ Σσ Tr(Pσ K(Pσ)).
+    vj is J of the total density, (nao, nao).
+    """
+    p = d.sum(axis=0)
+    e1 = float(np.einsum("pq,qp->", p, h))
+    ej = 0.5 * float(np.einsum("pq,qp->", p, vj))
+    if len(d) == 1:
+        ek = -0.25 * float(np.einsum("pq,qp->", d[0], vk[0]))
+    else:
+        ek = -0.5 * float(np.einsum("spq,sqp->", d, vk))
+    return EnergyTerms(nuclear=float(e_nuc), one_electron=e1, coulomb=ej, exchange=ek)
+
+
+def fock_from_terms(h: np.ndarray, vj: np.ndarray, vk: np.ndarray, nspin: int) -> np.ndarray:
+    """F = H + J − ½K (RHF, one component) or Fσ = H + J − K(Pσ) (two components)."""
+    if nspin == 1:
+        return (h + vj - 0.5 * vk[0])[None]
+    return np.stack([h + vj - vk[0], h + vj - vk[1]])
+
+
+def energy_consistency(e_reported: float, terms: EnergyTerms) -> Measurement:
+    """|E_reported − E[P_reported]|: the reported energy is the functional of the density."""
+    diff = e_reported - terms.total
+    return Measurement(abs(diff), "|E − E[P]|",
+                       f"E = {e_reported:.10f}, E[P] = {terms.total:.10f} Eh")
+
+
+def reference_energy(e_reported: float, e_ref: float) -> Measurement:
+    """|E − E_ref| against the stored pyscf reference; the sign is stated in words."""
+    diff = e_reported - e_ref
+    side = "above" if diff > 0 else "below"
+    return Measurement(abs(diff), "|E − E_ref|",
+                       f"E = {e_reported:.10f} Eh is {abs(diff):.3e} Eh {side} "
+                       f"E_ref = {e_ref:.10f} Eh")
