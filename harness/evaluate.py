@@ -113,7 +113,7 @@ def evaluate(problem: Problem, extracted: dict, reference=None,
                                             _energy.energy_consistency(sol["energy"], terms))
     if reference is not None:
         results["reference-energy"] = verdict("reference-energy", _energy.reference_energy(
-            sol["energy"], float(reference.energies["total"])))
+            sol["energy"], float(reference.energy)))
     else:
         results["reference-energy"] = not_applicable("reference-energy", "no reference", case)
 

@@ -1,0 +1,137 @@
+"""Planted bugs are caught by the checks meant to catch them; correct variants pass.
+
+Each broken code in ``broken_codes`` differs from the bundled example SCF in one way. For
+each, the set of failing checks is asserted exactly (so a check that fires for the wrong
+reason, or stops firing, is noticed), and the first line of the primary check's message
+is asserted verbatim up to its location part. Energies in Eh.
+"""
+
+from __future__ import annotations
+
+import functools
+
+import pytest
+
+import broken_codes as bc
+from harness.cases import load_catalogue
+from harness.evaluate import evaluate
+from harness.references import reference_for
+from harness.results import Status
+from harness.solution import extract
+
+RHF, UHF, ROHF = "water-sto-3g-rhf", "oh-sto-3g-uhf", "nh2-sto-3g-rohf"
+
+
+@functools.lru_cache(maxsize=None)
+def verdict(code: str, case_name: str):
+    case = load_catalogue().case(case_name)
+    problem = case.problem()
+    reference, _ = reference_for(case)
+    return {r.name: r for r in evaluate(problem, extract(getattr(bc, code)(problem)), reference)}
+
+
+def failing(code: str, case_name: str) -> set[str]:
+    return {name for name, r in verdict(code, case_name).items() if r.status is Status.FAILED}
+
+
+STATIONARY = {"stationarity", "self-consistency"}
+
+# (planted bug, case, the checks that must fail — exactly these)
+CAUGHT = [
+    ("wrong_exchange_factor", RHF, {"self-consistency", "energy-consistency", "reference-energy"}),
+    ("wrong_exchange_factor", UHF, {"self-consistency", "energy-consistency", "reference-energy"}),
+    ("wrong_exchange_factor", ROHF, {"self-consistency", "energy-consistency", "reference-energy"}),
+    ("missing_nuclear_repulsion", RHF, {"energy-consistency", "reference-energy"}),
+    ("missing_nuclear_repulsion", UHF, {"energy-consistency", "reference-energy"}),
+    ("missing_nuclear_repulsion", ROHF, {"energy-consistency", "reference-energy"}),
+    ("eigensolve_ignores_overlap", RHF, {"converged-flag", "orthonormality", "idempotency",
+                                         "electron-count", "roothaan-hall", "reference-energy"}
+     | STATIONARY),
+    ("eigensolve_ignores_overlap", ROHF, {"converged-flag", "orthonormality", "idempotency",
+                                          "electron-count", "reference-energy"} | STATIONARY),
+    ("one_electron_too_many", RHF, {"well-formed"}),
+    ("one_electron_too_many", UHF, {"well-formed"}),
+    ("one_electron_too_many", ROHF, {"well-formed"}),
+    ("two_iterations_claims_converged", RHF, {"roothaan-hall", "reference-energy"} | STATIONARY),
+    ("two_iterations_claims_converged", ROHF, {"reference-energy"} | STATIONARY),
+    ("excited_determinant", RHF, {"reference-energy", "aufbau"}),
+    ("excited_determinant", UHF, {"reference-energy"}),
+    ("excited_determinant", ROHF, {"reference-energy"}),
+    ("damping_left_in_final_density", RHF, {"idempotency", "density-consistency",
+                                            "roothaan-hall"} | STATIONARY),
+    ("damping_left_in_final_density", UHF, {"idempotency", "density-consistency",
+                                            "roothaan-hall"} | STATIONARY),
+    ("energies_in_ev", RHF, {"roothaan-hall"}),
+    ("energies_in_ev", UHF, {"roothaan-hall"}),
+    ("stopped_hundred_times_looser", RHF, {"roothaan-hall"} | STATIONARY),
+    ("stopped_hundred_times_looser", UHF, {"roothaan-hall"} | STATIONARY),
+    ("stopped_hundred_times_looser", ROHF, STATIONARY),
+]
+
+
+class TestPlantedBugs:
+    @pytest.mark.parametrize("code, case_name, expected", CAUGHT,
+                             ids=[f"{c}-{n}" for c, n, _ in CAUGHT])
+    def test_caught_by_exactly_the_expected_checks(self, code, case_name, expected):
+        """The planted bug fails exactly the checks that can see it, and no other."""
+        assert failing(code, case_name) == expected
+
+    def test_extra_electron_message(self):
+        """The well-formed failure names the key and the counts, and skips the rest."""
+        v = verdict("one_electron_too_many", RHF)
+        assert v["well-formed"].message == (
+            "well-formed: 'occupations' sum to 11 electrons, expected 10 (water-sto-3g-rhf)")
+        assert all(r.status is Status.SKIPPED for name, r in v.items() if name != "well-formed")
+
+    def test_missing_nuclear_repulsion_message(self):
+        """The energy-consistency failure is off by E_nuc = 8.0 Eh for water."""
+        message = verdict("missing_nuclear_repulsion", RHF)["energy-consistency"].message
+        assert message.startswith(
+            "energy-consistency: |E − E[P]| = 8.0e+00 > 1.0e-08 (water-sto-3g-rhf), E = ")
+
+    def test_ev_orbital_energies_message(self):
+        """Orbital energies in eV leave a large Roothaan–Hall residual."""
+        message = verdict("energies_in_ev", RHF)["roothaan-hall"].message
+        assert message.startswith("roothaan-hall: max|X(FC − SCε)| = ")
+        assert "> 1.0e-05 (water-sto-3g-rhf), orbital " in message
+
+    def test_looser_stop_message(self):
+        """A code stopped at 100× the requested convergence fails stationarity by ~90×."""
+        r = verdict("stopped_hundred_times_looser", RHF)["stationarity"]
+        assert 20 * 1e-6 < r.value < 100 * 1e-6
+        assert r.message.startswith("stationarity: max|X(FPS − SPF)X| = ")
+        assert r.message.endswith(")") and "Löwdin element" in r.message
+
+    def test_reported_convergence_false(self):
+        """A code that says it did not converge fails converged-flag with that message."""
+        message = verdict("eigensolve_ignores_overlap", RHF)["converged-flag"].message
+        assert message.startswith("converged-flag: the code reports converged=False "
+                                  "(water-sto-3g-rhf) after ")
+
+    def test_excited_determinant_aufbau(self):
+        """The swapped occupation shows as an occupied orbital above an empty one."""
+        r = verdict("excited_determinant", RHF)["aufbau"]
+        assert r.value > 0.05
+        assert "occupied orbital" in r.message and "above empty orbital" in r.message
+
+
+CORRECT = [("random_mo_phases", c) for c in (RHF, UHF, ROHF)] + [
+    ("rotated_degenerate_orbitals", "methane-sto-3g-rhf"),
+    ("rotated_degenerate_orbitals", "n2-cc-pvdz-rhf"),
+] + [("required_keys_only", c) for c in (RHF, UHF, ROHF)] + [
+    ("exactly_at_convergence", c) for c in (RHF, UHF, ROHF)]
+
+
+class TestCorrectVariants:
+    @pytest.mark.parametrize("code, case_name", CORRECT, ids=[f"{c}-{n}" for c, n in CORRECT])
+    def test_passes(self, code, case_name):
+        """A correct code in a different but legitimate form passes every applicable check."""
+        assert failing(code, case_name) == set()
+
+    def test_required_keys_only_not_applicable(self):
+        """Checks without their inputs are reported as not applicable, never as passed."""
+        v = verdict("required_keys_only", RHF)
+        na = {name for name, r in v.items() if r.status is Status.NOT_APPLICABLE}
+        assert na == {"converged-flag", "overlap", "density-consistency", "stationarity",
+                      "roothaan-hall", "aufbau"}
+        assert all(v[name].passed is None for name in na)
