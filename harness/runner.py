@@ -1,0 +1,398 @@
+"""Run a plug-in on a list of cases, each case in its own child process.
+
+The plug-in runs in a child started by multiprocessing's "forkserver" context (not
+"fork": the harness process has used OpenMP through pyscf, and libgomp is not safe to
+fork). The child re-imports the plug-in from its spec, calls it on the case's
+``Problem`` (bohr), normalises the return value with ``harness.solution.extract`` and
+sends it back, or sends a one-line error naming the plug-in's own innermost frame.
+A timeout (seconds), a crash (a signal, an exit), a garbage return value or an
+exception fails that case only; the run goes on. The checks run in this process.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import multiprocessing
+import multiprocessing.connection
+import os
+import signal
+import sys
+import sysconfig
+import time
+import traceback
+from pathlib import Path
+from typing import Any, Callable, Iterable
+
+from harness.plugins import load_plugin
+from harness.results import CaseResult, CheckResult, failed
+
+#: Modules the fork server imports once, so each child starts without re-importing them.
+PRELOAD = ["numpy", "pyscf", "harness.solution"]
+
+#: Seconds a child gets to exit after SIGTERM before it is killed (interrupted runs).
+TERMINATE_GRACE = 2.0
+
+#: Default per-case timeout of the plug-in call, in seconds.
+DEFAULT_TIMEOUT = 600.0
+
+
+@dataclasses.dataclass(frozen=True)
+class RunOutcome:
+    """The finished cases (input order), whether the run was interrupted, wall time (s)."""
+
+    cases: tuple[CaseResult, ...]
+    interrupted: bool
+    seconds: float
+
+    @property
+    def passed(self) -> bool:
+        """True when the run finished and every case passed (an empty run does not pass)."""
+        return bool(self.cases) and not self.interrupted and all(c.passed for c in self.cases)
+
+    @property
+    def counts(self) -> tuple[int, int]:
+        """(passed, failed) among the finished cases."""
+        n_pass = sum(1 for c in self.cases if c.passed)
+        return n_pass, len(self.cases) - n_pass
+
+
+# --------------------------------------------------------------------------- child side
+
+_LIBRARY_DIRS = tuple(
+    str(Path(p).resolve()) for key in ("stdlib", "platstdlib", "purelib", "platlib")
+    if (p := sysconfig.get_paths().get(key)))
+_THIS_FILE = str(Path(__file__).resolve())
+
+
+def _is_library(filename: str) -> bool:
+    try:
+        path = str(Path(filename).resolve())
+    except (OSError, ValueError):
+        return True
+    return filename.startswith("<") or path.startswith(_LIBRARY_DIRS)
+
+
+def plugin_frame(tb) -> traceback.FrameSummary | None:
+    """The innermost traceback frame that belongs to the plug-in (or, for an error in
+    the harness's checks, to the check code).
+
+    Frames up to and including the runner's own call are dropped; of the rest, the
+    innermost frame outside the standard library and site-packages is taken (so an
+    error raised inside numpy points at the plug-in line that called numpy); if all
+    are library frames, the outermost one (the plug-in's entry function).
+    """
+    frames = traceback.extract_tb(tb)
+    start = 0
+    for i, fr in enumerate(frames):
+        if str(Path(fr.filename).resolve()) == _THIS_FILE:
+            start = i + 1
+    frames = frames[start:]
+    if not frames:
+        return None
+    own = [fr for fr in frames if not _is_library(fr.filename)]
+    return own[-1] if own else frames[0]
+
+
+def describe_exception(exc: BaseException, tb=None) -> str:
+    """``"<ExcType>: <message> (at <file>:<line> in <function>)"``, one line."""
+    lines = str(exc).strip().splitlines()
+    text = f"{type(exc).__name__}: {lines[0]}" if lines else type(exc).__name__
+    frame = plugin_frame(tb if tb is not None else exc.__traceback__)
+    if frame is not None:
+        text += f" (at {frame.filename}:{frame.lineno} in {frame.name})"
+    return text
+
+
+def _die_with_harness(conn) -> None:
+    """End this child as soon as the harness process ends (even by SIGKILL), so that no
+    plug-in is left running. The harness never writes on the connection, so it becomes
+    readable only at end-of-file, when the harness's end is closed; a daemon thread
+    waits for that. (The fork server cannot do this: it lives as long as any child
+    holds its pipe, and a killed harness may linger as a zombie with its pid.)"""
+    import select
+    import threading
+
+    def watch():
+        try:
+            select.select([conn.fileno()], [], [])
+        except (OSError, ValueError):
+            pass
+        os._exit(1)
+
+    threading.Thread(target=watch, name="scf-harness-orphan-watch", daemon=True).start()
+
+
+def _child_main(conn, plugin_spec: str, path: list[str], cwd: str, problem) -> None:
+    """Entry point of the child process: call the plug-in once, send one message."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C
+    _die_with_harness(conn)
+    try:
+        import faulthandler
+        faulthandler.enable()  # a crashing plug-in prints where it crashed on stderr
+    except Exception:  # pragma: no cover - stderr unusable
+        pass
+    try:
+        os.chdir(cwd)
+    except OSError:
+        pass
+    sys.path[:] = path
+    from harness.solution import extract
+
+    try:
+        function = load_plugin(plugin_spec)
+    except Exception as exc:
+        conn.send({"error": str(exc)})
+        return
+    start = time.perf_counter()
+    try:
+        raw = function(problem)
+    except BaseException as exc:  # SystemExit from a plug-in is a failure too
+        conn.send({"error": describe_exception(exc)})
+        return
+    seconds = time.perf_counter() - start
+    try:
+        message = {"solution": extract(raw), "seconds": seconds}
+    except Exception as exc:
+        message = {"error": f"unreadable return value: {exc}", "seconds": seconds}
+    try:
+        conn.send(message)
+    except Exception as exc:  # e.g. a value extract let through that cannot be pickled
+        conn.send({"error": f"cannot send the plug-in's result: {type(exc).__name__}: {exc}",
+                   "seconds": seconds})
+
+
+# -------------------------------------------------------------------------- parent side
+
+
+def _context():
+    ctx = multiprocessing.get_context("forkserver")
+    ctx.set_forkserver_preload(PRELOAD)
+    return ctx
+
+
+def _reference(case, directory, write: bool):
+    """``harness.references.reference_for``, imported when first needed."""
+    from harness.references import reference_for
+    return reference_for(case, directory, write=write)
+
+
+def _evaluate(problem, extracted, reference, tolerances) -> tuple[CheckResult, ...]:
+    """``harness.evaluate.evaluate``, imported when first needed."""
+    from harness.evaluate import evaluate
+    return evaluate(problem, extracted, reference, tolerances)
+
+
+def death_reason(exitcode: int | None) -> str:
+    """Why a child that sent nothing ended: the signal's name or its exit code."""
+    if exitcode is None:
+        return "plug-in process vanished without sending a result"
+    if exitcode < 0:
+        try:
+            name = signal.Signals(-exitcode).name
+        except ValueError:
+            name = f"signal {-exitcode}"
+        return f"plug-in process died from {name} without sending a result"
+    return f"plug-in process exited with code {exitcode} without sending a result"
+
+
+@dataclasses.dataclass
+class _Running:
+    index: int
+    case: Any
+    problem: Any
+    process: Any
+    conn: Any
+    deadline: float
+    started: float
+    reference: Any = None
+    reference_source: str | None = None
+    reference_error: str | None = None
+
+
+def _base_result(case, **fields) -> CaseResult:
+    return CaseResult(name=case.name, method=getattr(case, "method", ""),
+                      basis=getattr(case, "basis", ""), **fields)
+
+
+def _finish(run: _Running, message: dict | None, error: str | None,
+            tolerances) -> CaseResult:
+    """Turn what the child sent (or why it sent nothing) into a CaseResult."""
+    common = dict(reference_energy=_ref_energy(run), reference_source=run.reference_source)
+    if error is None and message is not None and "error" in message:
+        error = message["error"]
+    seconds = message.get("seconds") if message else None
+    if error is not None:
+        return _base_result(run.case, error=error, plugin_seconds=seconds, **common)
+    extracted = message["solution"]
+    energy = extracted.get("energy")
+    energy = energy if isinstance(energy, float) else None
+    start = time.perf_counter()
+    try:
+        checks = tuple(_evaluate(run.problem, extracted, run.reference, tolerances))
+    except Exception as exc:
+        frame = plugin_frame(exc.__traceback__)  # innermost check-code frame
+        where = f"{frame.name} ({frame.filename}:{frame.lineno})" if frame else "evaluate"
+        return _base_result(run.case, error=f"internal error in check {where}: "
+                            f"{type(exc).__name__}: {exc}".splitlines()[0],
+                            energy=energy, plugin_seconds=seconds,
+                            check_seconds=time.perf_counter() - start, **common)
+    if run.reference_error is not None:
+        checks = tuple(
+            failed("reference-energy", f"reference-energy: no reference ({run.case.name}): "
+                   f"{run.reference_error}") if c.name == "reference-energy" else c
+            for c in checks)
+    return _base_result(run.case, checks=checks, energy=energy, plugin_seconds=seconds,
+                        check_seconds=time.perf_counter() - start, **common)
+
+
+def _append_jsonl(path: Path | None, result: CaseResult) -> None:
+    if path is None:
+        return
+    with open(path, "a", encoding="utf-8") as fh:
+        fh.write(json.dumps(result.to_json()) + "\n")
+        fh.flush()
+
+
+def _stop(run: _Running, *, grace: float) -> None:
+    proc = run.process
+    if proc.is_alive():
+        if grace > 0:
+            proc.terminate()
+            proc.join(grace)
+        if proc.is_alive():
+            proc.kill()
+    proc.join()
+    run.conn.close()
+    try:
+        proc.close()
+    except ValueError:  # pragma: no cover - still running (cannot happen after join)
+        pass
+
+
+def run_cases(cases: Iterable, plugin_spec: str, *, tolerances, convergence: float | None = None,
+              timeout: float = DEFAULT_TIMEOUT, jobs: int = 1, reference_dir=None,
+              write_references: bool = False, results_path=None,
+              on_start: Callable[[str], None] | None = None,
+              on_result: Callable[[CaseResult], None] | None = None) -> RunOutcome:
+    """Run ``plugin_spec`` on each case in a child process and check the results here.
+
+    ``convergence`` (dimensionless, Eh-based atomic units) is passed to
+    ``case.problem``; None means the default. ``timeout`` is per case in seconds (the
+    plug-in call, measured from the child's start). Up to ``jobs`` children run at
+    once. References come from ``harness.references.reference_for`` in this process
+    (``write_references`` stores the computed ones). ``results_path``: one JSON line
+    per finished case is appended as soon as it is known. ``on_start(name)`` is called
+    when a case starts, ``on_result(case_result)`` when it is finished. Ctrl-C stops
+    the children and returns the finished cases with ``interrupted=True``.
+
+    Raises ``PluginLoadError`` before running anything if the spec cannot be loaded.
+    """
+    cases = list(cases)
+    jobs = max(1, int(jobs))
+    load_plugin(plugin_spec)  # fail early, in one line, on a bad spec
+    path_now = list(sys.path)
+    cwd = os.getcwd()
+    results_file = Path(results_path) if results_path is not None else None
+    started = time.perf_counter()
+    finished: dict[int, CaseResult] = {}
+    running: list[_Running] = []
+    pending = list(enumerate(cases))
+    interrupted = False
+    ctx = None
+
+    def record(index: int, result: CaseResult) -> None:
+        finished[index] = result
+        _append_jsonl(results_file, result)
+        if on_result is not None:
+            on_result(result)
+
+    def launch(index: int, case) -> None:
+        nonlocal ctx
+        if on_start is not None:
+            on_start(case.name)
+        try:
+            problem = (case.problem() if convergence is None
+                       else case.problem(convergence=convergence))
+        except Exception as exc:
+            record(index, _base_result(case, error=f"cannot build the problem: {exc}"))
+            return
+        if ctx is None:
+            ctx = _context()
+        reader, writer = ctx.Pipe(duplex=True)  # duplex: the child sees our end close
+        proc = ctx.Process(target=_child_main, name=f"scf-harness:{case.name}",
+                           args=(writer, plugin_spec, path_now, cwd, problem), daemon=True)
+        proc.start()
+        writer.close()
+        now = time.monotonic()
+        run = _Running(index, case, problem, proc, reader, now + timeout, now)
+        running.append(run)
+        # The reference is looked up while the child works (a stored one is instant).
+        try:
+            run.reference, run.reference_source = _reference(case, reference_dir,
+                                                             write_references)
+        except Exception as exc:
+            run.reference_error = f"{type(exc).__name__}: {exc}".splitlines()[0]
+
+    def collect(run: _Running) -> None:
+        message, error = None, None
+        if run.conn.poll():
+            try:
+                message = run.conn.recv()
+            except (EOFError, OSError):
+                message = None
+        if message is None:
+            run.process.join(TERMINATE_GRACE)
+            error = death_reason(run.process.exitcode)
+        running.remove(run)
+        _stop(run, grace=TERMINATE_GRACE)
+        if not isinstance(message, dict) and error is None:
+            error = f"plug-in process sent an unexpected message ({type(message).__name__})"
+        record(run.index, _finish(run, message, error, tolerances))
+
+    try:
+        while pending or running:
+            while pending and len(running) < jobs:
+                launch(*pending.pop(0))
+            if not running:
+                continue
+            now = time.monotonic()
+            wait_for = max(0.0, min(r.deadline for r in running) - now)
+            handles = {}
+            for r in running:
+                handles[r.conn] = r
+                handles[r.process.sentinel] = r
+            ready = multiprocessing.connection.wait(list(handles), timeout=wait_for)
+            for r in {id(handles[h]): handles[h] for h in ready}.values():
+                collect(r)
+            now = time.monotonic()
+            for r in [r for r in running if now >= r.deadline]:
+                if r.conn.poll():  # the result arrived just in time
+                    collect(r)
+                    continue
+                running.remove(r)
+                _stop(r, grace=0.0)
+                record(r.index, _base_result(
+                    r.case, error=f"timed out after {timeout:.1f} s",
+                    reference_energy=_ref_energy(r), reference_source=r.reference_source))
+    except KeyboardInterrupt:
+        interrupted = True
+    finally:
+        for r in list(running):
+            running.remove(r)
+            _stop(r, grace=TERMINATE_GRACE)
+    ordered = tuple(finished[i] for i in sorted(finished))
+    return RunOutcome(cases=ordered, interrupted=interrupted,
+                      seconds=time.perf_counter() - started)
+
+
+def _ref_energy(run: _Running) -> float | None:
+    """The reference total energy in Eh (``energies["total"]``, or ``energy``), if any."""
+    ref = run.reference
+    if ref is None:
+        return None
+    try:
+        return float(ref.energies["total"])
+    except (AttributeError, KeyError, TypeError):
+        value = getattr(ref, "energy", None)
+        return float(value) if isinstance(value, (int, float)) else None

@@ -1,0 +1,250 @@
+"""Tests of harness.runner: each case in its own process, failures kept to their case.
+
+The checks and references are replaced by small fakes here (monkeypatched), so these
+tests exercise only the isolation: exceptions, timeouts, crashes, garbage, ordering,
+the JSON lines file and interruption. The plug-ins are in tests/cli/plugins.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import multiprocessing
+import time
+from pathlib import Path
+
+import pytest
+
+from harness import runner
+from harness.errors import PluginLoadError
+from harness.problem import Problem
+from harness.results import CheckResult, Status
+from harness.tolerances import Tolerances
+
+PLUGINS = Path(__file__).resolve().parents[1] / "cli" / "plugins" / "misbehaving.py"
+
+
+def spec(function: str) -> str:
+    return f"{PLUGINS}:{function}"
+
+
+def line_of(text: str, path: Path = PLUGINS) -> int:
+    """The 1-based line of ``path`` containing ``text`` (so no line number is hard-coded)."""
+    for number, line in enumerate(path.read_text().splitlines(), start=1):
+        if text in line:
+            return number
+    raise AssertionError(f"{text!r} not in {path}")
+
+
+@dataclasses.dataclass(frozen=True)
+class FakeCase:
+    """Stands in for harness.cases.Case: H2/STO-3G at R = 1.4 bohr under a given name."""
+
+    name: str
+    method: str = "rhf"
+    basis: str = "sto-3g"
+
+    def problem(self, convergence: float = 1e-6, initial_density=None) -> Problem:
+        return Problem.create(name=self.name, numbers=[1, 1],
+                              coordinates=[[0, 0, 0], [0, 0, 1.4]], basis=self.basis,
+                              method=self.method, convergence=convergence)
+
+
+@dataclasses.dataclass(frozen=True)
+class FakeReference:
+    energies: dict
+
+
+def fake_evaluate(problem, extracted, reference, tolerances):
+    """Passes when the plug-in sent an energy; reference-energy compares it if given."""
+    energy = extracted.get("energy")
+    ok = isinstance(energy, float)
+    checks = [CheckResult("well-formed", Status.PASSED if ok else Status.FAILED, None, None,
+                          f"well-formed: energy {'present' if ok else 'missing'}")]
+    if reference is None:
+        checks.append(CheckResult("reference-energy", Status.NOT_APPLICABLE, None, None,
+                                  "reference-energy: not applicable"))
+    else:
+        diff = abs(energy - reference.energies["total"])
+        checks.append(CheckResult("reference-energy",
+                                  Status.PASSED if diff <= 1e-3 else Status.FAILED,
+                                  diff, 1e-3, f"reference-energy: {diff:.1e}"))
+    return tuple(checks)
+
+
+@pytest.fixture(autouse=True)
+def fakes(monkeypatch):
+    """References and checks replaced by fakes; every reference 'stored' at -1.1167 Eh."""
+    monkeypatch.setattr(runner, "_evaluate", fake_evaluate)
+    monkeypatch.setattr(runner, "_reference",
+                        lambda case, directory, write: (FakeReference({"total": -1.1167}),
+                                                        "stored"))
+
+
+def run(function: str, names=("h2-sto-3g-rhf",), **kw):
+    kw.setdefault("timeout", 30.0)
+    return runner.run_cases([FakeCase(n) for n in names], spec(function),
+                            tolerances=Tolerances(), **kw)
+
+
+class TestRunCases:
+    def test_good_plugin_passes_and_is_timed(self):
+        """A well-behaved plug-in: case passed, energy and reference recorded."""
+        out = run("constant")
+        (case,) = out.cases
+        assert case.passed and out.passed and not out.interrupted
+        assert case.energy == pytest.approx(-1.1167)
+        assert case.reference_energy == pytest.approx(-1.1167)
+        assert case.reference_source == "stored"
+        assert 0 <= case.plugin_seconds < 5 and case.check_seconds >= 0
+
+    def test_exception_names_type_message_and_plugin_line(self):
+        """An exception fails its case with type, message and the plug-in's own line."""
+        out = run("raises_deep")
+        (case,) = out.cases
+        assert not case.passed and case.checks == ()
+        line = line_of("return a / b")
+        assert case.error == (f"ZeroDivisionError: float division by zero "
+                              f"(at {PLUGINS}:{line} in _divide)")
+
+    def test_run_goes_on_after_a_failing_case(self):
+        """The first case raises; the second one (the example SCF code) runs and passes."""
+        out = run("raises_on_first", names=("h2-sto-3g-rhf", "h2-copy"),
+                  timeout=60)
+        first, second = out.cases
+        line = line_of("raise ValueError")
+        assert first.error == (f"ValueError: planted failure on h2-sto-3g-rhf "
+                               f"(at {PLUGINS}:{line} in raises_on_first)")
+        assert second.name == "h2-copy" and second.error is None, second.error
+
+    def test_timeout_kills_the_child(self):
+        """A plug-in sleeping past the timeout fails with 'timed out after 1.0 s', promptly."""
+        start = time.monotonic()
+        out = run("sleeps", timeout=1.0)
+        assert out.cases[0].error == "timed out after 1.0 s"
+        assert time.monotonic() - start < 8
+        assert multiprocessing.active_children() == []
+
+    def test_segfault_is_named(self):
+        """A child killed by SIGSEGV fails its case naming the signal."""
+        out = run("segfaults")
+        assert out.cases[0].error == "plug-in process died from SIGSEGV without sending a result"
+
+    def test_exit_code_is_reported(self):
+        """os._exit(3) in the plug-in: the exit code is reported."""
+        out = run("hard_exit")
+        assert out.cases[0].error == "plug-in process exited with code 3 without sending a result"
+
+    def test_sys_exit_is_a_plugin_failure(self):
+        """sys.exit(4) inside the plug-in fails the case as an exception, with its line."""
+        out = run("calls_sys_exit")
+        line = line_of("    sys.exit(4)")
+        assert out.cases[0].error == f"SystemExit: 4 (at {PLUGINS}:{line} in calls_sys_exit)"
+
+    def test_string_return_is_unreadable(self):
+        """A string return value fails with extract's TypeError message."""
+        out = run("returns_string")
+        assert out.cases[0].error == ("unreadable return value: the plug-in returned str, not "
+                                      "a mapping with the keys energy, coefficients, "
+                                      "occupations")
+
+    def test_missing_keys_reach_the_checks(self):
+        """A dict without the required keys is handed to the checks, which judge it."""
+        out = run("missing_keys")
+        (case,) = out.cases
+        assert case.error is None
+        assert case.check("well-formed").status is Status.PASSED  # the fake only wants energy
+        assert case.energy == -1.0
+        assert case.check("reference-energy").status is Status.FAILED
+
+    def test_bad_spec_raises_before_running(self):
+        """An unloadable spec raises PluginLoadError and starts no child."""
+        with pytest.raises(PluginLoadError) as info:
+            runner.run_cases([FakeCase("x")], spec("nosuch"), tolerances=Tolerances())
+        assert str(info.value) == f"plug-in '{spec('nosuch')}': {PLUGINS} has no attribute 'nosuch'"
+
+    def test_internal_check_error_fails_case_and_run_goes_on(self, monkeypatch):
+        """An exception in the harness's own checks fails that case only."""
+        calls = []
+
+        def flaky(problem, extracted, reference, tolerances):
+            calls.append(problem.name)
+            if problem.name == "first":
+                raise RuntimeError("kernel broke")
+            return fake_evaluate(problem, extracted, reference, tolerances)
+
+        monkeypatch.setattr(runner, "_evaluate", flaky)
+        out = run("constant", names=("first", "second"))
+        first, second = out.cases
+        assert first.error.startswith("internal error in check flaky (")
+        assert first.error.endswith("RuntimeError: kernel broke")
+        assert second.passed and calls == ["first", "second"]
+
+    def test_reference_error_fails_reference_check_only(self, monkeypatch):
+        """A reference that cannot be had fails reference-energy; other checks stand."""
+        def broken(case, directory, write):
+            raise ValueError("stored file is truncated")
+
+        monkeypatch.setattr(runner, "_reference", broken)
+        (case,) = run("constant").cases
+        assert case.check("well-formed").status is Status.PASSED
+        ref = case.check("reference-energy")
+        assert ref.status is Status.FAILED
+        assert ref.message == ("reference-energy: no reference (h2-sto-3g-rhf): "
+                               "ValueError: stored file is truncated")
+
+    def test_results_file_gets_one_line_per_case(self, tmp_path):
+        """results_path receives one JSON line per finished case, in completion order."""
+        path = tmp_path / "r.jsonl"
+        out = run("raises_on_first", names=("h2-sto-3g-rhf", "b"), results_path=path)
+        lines = [json.loads(x) for x in path.read_text().splitlines()]
+        assert [x["name"] for x in lines] == ["h2-sto-3g-rhf", "b"]
+        assert lines == [c.to_json() for c in out.cases]
+
+    def test_jobs_run_in_parallel_and_keep_input_order(self):
+        """Three 1.5 s plug-in calls with jobs=3 take well under 3 × 1.5 s; order kept."""
+        names = ("c1", "c2", "c3")
+        start = time.monotonic()
+        out = run("sleeps_briefly", names=names, jobs=3)
+        took = time.monotonic() - start
+        assert [c.name for c in out.cases] == list(names)
+        assert all(c.passed for c in out.cases)
+        assert took < 3 * 1.5, took
+
+    def test_callbacks_see_every_case(self):
+        """on_start gets each name before on_result gets its result."""
+        events = []
+        run("constant", names=("a", "b"), on_start=lambda n: events.append(("start", n)),
+            on_result=lambda r: events.append(("result", r.name)))
+        assert events == [("start", "a"), ("result", "a"), ("start", "b"), ("result", "b")]
+
+    def test_interrupt_keeps_finished_cases(self, tmp_path):
+        """Ctrl-C after the first case: interrupted, first case kept, children gone."""
+        path = tmp_path / "r.jsonl"
+
+        def stop_after_first(result):
+            if result.name == "h2-sto-3g-rhf":
+                raise KeyboardInterrupt
+
+        out = run("sleeps_after_first", names=("h2-sto-3g-rhf", "b", "c"), jobs=2,
+                  results_path=path, on_result=stop_after_first)
+        assert out.interrupted and not out.passed
+        assert [c.name for c in out.cases] == ["h2-sto-3g-rhf"]
+        assert [json.loads(x)["name"] for x in path.read_text().splitlines()] == ["h2-sto-3g-rhf"]
+        assert multiprocessing.active_children() == []
+
+
+class TestDeathReason:
+    def test_signal_and_code(self):
+        """Negative exit codes are signals, named; positive ones are codes."""
+        assert runner.death_reason(-9) == "plug-in process died from SIGKILL without sending a result"
+        assert runner.death_reason(2) == "plug-in process exited with code 2 without sending a result"
+
+
+class TestRunOutcome:
+    def test_empty_or_interrupted_run_does_not_pass(self):
+        """No cases, or an interrupted run, is not a pass."""
+        assert not runner.RunOutcome(cases=(), interrupted=False, seconds=0.0).passed
+        out = run("constant")
+        assert out.passed
+        assert not dataclasses.replace(out, interrupted=True).passed
