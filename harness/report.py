@@ -1,6 +1,6 @@
 """Show a run's verdicts: progress lines, the case × check table, failures, JSON.
 
-Terminal output uses rich and stays readable without a terminal (CI logs are 120
+Terminal output uses rich and stays readable without a terminal (CI logs are 140
 columns, no colour when ``NO_COLOR`` is set or the output is not a TTY). The last
 line of :func:`render` is ``"N passed, M failed"`` alone on a line, which CI reads.
 All energies in hartree (Eh), lengths in bohr, times in seconds.
@@ -25,7 +25,7 @@ from harness.results import CaseResult, CheckResult, Status
 from harness.tolerances import CHECK_NAMES
 
 #: Width used when the output is not a terminal and COLUMNS is not set (CI logs).
-PLAIN_WIDTH = 120
+PLAIN_WIDTH = 140
 
 #: Column headers of the verdict table, in CHECK_NAMES order.
 SHORT_NAMES = {
@@ -121,7 +121,7 @@ def verdict_table(cases: Sequence[CaseResult], console: Console | None = None) -
     """Rows = cases, columns = the checks in CHECK_NAMES order; each cell the measured
     value (``.0e``) with ✓/✗, or ``n.a.`` / ``skip``; ``·`` when the check did not run."""
     marks = _marks(console) if console is not None else ("✓", "✗")
-    table = Table(box=box.SIMPLE_HEAD, padding=(0, 0), pad_edge=False, show_edge=False,
+    table = Table(box=box.SIMPLE_HEAD, padding=(0, 1), pad_edge=False, show_edge=False,
                   collapse_padding=True)
     table.add_column("case", no_wrap=True, overflow="ellipsis")
     for name in CHECK_NAMES:
