@@ -136,7 +136,7 @@ def test_unknown_suite_and_case_list_names(catalogue):
     assert str(err.value) == "suite: unknown suite 'smok' (closest: smoke)"
     with pytest.raises(CaseError) as err:
         catalogue.suite("zzz")
-    assert str(err.value) == "suite: unknown suite 'zzz' (known: smoke, standard, atoms)"
+    assert str(err.value) == "suite: unknown suite 'zzz' (known: smoke, standard, states, atoms)"
     with pytest.raises(CaseError) as err:
         catalogue.case("water-ccpvdz-rhf")
     assert str(err.value).startswith("case: unknown case 'water-ccpvdz-rhf' (closest: "
