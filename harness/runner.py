@@ -123,9 +123,23 @@ def _die_with_harness(conn) -> None:
     threading.Thread(target=watch, name="scf-harness-orphan-watch", daemon=True).start()
 
 
-def _child_main(conn, plugin_spec: str, path: list[str], cwd: str, problem) -> None:
+def _share_cores(jobs: int) -> None:
+    """Give each of ``jobs`` concurrent children its share of the cores for pyscf's
+    OpenMP threads (environment variables are too late: pyscf is preloaded)."""
+    try:
+        from pyscf import lib
+
+        lib.num_threads(max(1, (os.cpu_count() or 1) // max(1, jobs)))
+    except Exception:  # pragma: no cover - pyscf without OpenMP
+        pass
+
+
+def _child_main(conn, plugin_spec: str, path: list[str], cwd: str, problem,
+                jobs: int = 1) -> None:
     """Entry point of the child process: call the plug-in once, send one message."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C
+    if jobs > 1:
+        _share_cores(jobs)
     _die_with_harness(conn)
     try:
         import faulthandler
@@ -321,7 +335,7 @@ def run_cases(cases: Iterable, plugin_spec: str, *, tolerances, convergence: flo
             ctx = _context()
         reader, writer = ctx.Pipe(duplex=True)  # duplex: the child sees our end close
         proc = ctx.Process(target=_child_main, name=f"scf-harness:{case.name}",
-                           args=(writer, plugin_spec, path_now, cwd, problem), daemon=True)
+                           args=(writer, plugin_spec, path_now, cwd, problem, jobs), daemon=True)
         proc.start()
         writer.close()
         now = time.monotonic()

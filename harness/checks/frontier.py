@@ -27,7 +27,5 @@ def aufbau(e: np.ndarray, occ: np.ndarray) -> Measurement:
             head = f"{spin}, " if spin else ""
             best = (value, f"{head}occupied orbital {i} (ε = {homo:.6f}) above empty "
                            f"orbital {a} (ε = {lumo:.6f})")
-    value, where = best
-    if value == -np.inf:
-        value = -np.inf
+    value, where = best  # -inf when no spin has both occupied and empty orbitals
     return Measurement(float(value), "ε_HOMO − ε_LUMO", where)

@@ -81,4 +81,5 @@ def orthonormality(c: np.ndarray, s: np.ndarray) -> Measurement:
 def matrix_difference(a: np.ndarray, b: np.ndarray, quantity: str, labels=None) -> Measurement:
     """max |A − B| for two AO matrices of the same shape, worst AO element located."""
     value, idx = worst(np.asarray(a) - np.asarray(b))
-    return Measurement(value, quantity, locate("", "AO element", idx, labels) if idx else "")
+    where = locate("", "AO element", idx, labels) if idx and not value == 0 else ""
+    return Measurement(value, quantity, where)
