@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from harness.checks.orthonormal import locate, worst
+from harness.checks.orthonormal import locate, worst_of
 from harness.checks.spin import spin_names
 from harness.results import Measurement
 
@@ -19,13 +19,8 @@ def idempotency(d: np.ndarray, s: np.ndarray, scale: float = 1.0, labels=None) -
     A one-determinant density is a projector in the overlap metric, so this vanishes;
     a mixture of two densities (damping left in) or fractional occupations do not.
     """
-    best = (0.0, (), "")
-    for spin, ds in zip(spin_names(len(d)), d):
-        ds = ds / scale
-        value, idx = worst(ds @ s @ ds - ds)
-        if not value <= best[0]:
-            best = (value, idx, spin)
-    value, idx, spin = best
+    value, idx, spin = worst_of((spin, (ds / scale) @ s @ (ds / scale) - ds / scale)
+                                for spin, ds in zip(spin_names(len(d)), d))
     quantity = "max|(P/2)S(P/2) − P/2|" if scale == 2.0 else "max|PσSPσ − Pσ|"
     return Measurement(value, quantity, locate(spin, "AO element", idx, labels) if idx else "")
 
@@ -45,10 +40,6 @@ def electron_count(d: np.ndarray, s: np.ndarray, n: np.ndarray) -> Measurement:
 
 def density_consistency(d_reported: np.ndarray, d_built: np.ndarray, labels=None) -> Measurement:
     """max |P_reported − C n Cᵀ| per spin: the reported density is the one the orbitals give."""
-    best = (0.0, (), "")
-    for spin, a, b in zip(spin_names(len(d_built)), d_reported, d_built):
-        value, idx = worst(a - b)
-        if not value <= best[0]:
-            best = (value, idx, spin)
-    value, idx, spin = best
+    value, idx, spin = worst_of((spin, a - b) for spin, a, b in
+                                zip(spin_names(len(d_built)), d_reported, d_built))
     return Measurement(value, "max|P − CnCᵀ|", locate(spin, "AO element", idx, labels) if idx else "")

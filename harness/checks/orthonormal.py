@@ -54,6 +54,19 @@ def worst(a: np.ndarray) -> tuple[float, tuple[int, ...]]:
     return float(a[idx]), tuple(int(i) for i in idx)
 
 
+def worst_of(named) -> tuple[float, tuple[int, ...], str]:
+    """The largest absolute element over several ``(label, array)`` pairs.
+
+    Returns (value, index, label) of the worst one; NaN anywhere wins.
+    """
+    best = (0.0, (), "")
+    for label, a in named:
+        value, idx = worst(a)
+        if not value <= best[0]:
+            best = (value, idx, label)
+    return best
+
+
 def locate(spin: str, kind: str, index: tuple[int, ...], labels=None) -> str:
     """Word a location: ``"alpha, AO element (3, 5) = (O 2pz, H 1s)"``."""
     head = f"{spin}, " if spin else ""
@@ -68,13 +81,8 @@ def orthonormality(c: np.ndarray, s: np.ndarray) -> Measurement:
 
     Zero for orbitals orthonormal in the overlap metric; the worst MO pair is reported.
     """
-    best = (0.0, (), "")
-    for spin, cs in zip(spin_names(len(c)), c):
-        dev = cs.T @ s @ cs - np.eye(cs.shape[1])
-        value, idx = worst(dev)
-        if not value <= best[0]:
-            best = (value, idx, spin)
-    value, idx, spin = best
+    value, idx, spin = worst_of((spin, cs.T @ s @ cs - np.eye(cs.shape[1]))
+                                for spin, cs in zip(spin_names(len(c)), c))
     return Measurement(value, "max|CᵀSC − 1|", locate(spin, "MO pair", idx) if idx else "")
 
 

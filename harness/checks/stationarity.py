@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from harness.checks.orthonormal import Lowdin, locate, worst
+from harness.checks.orthonormal import Lowdin, locate, worst_of
 from harness.checks.spin import spin_names
 from harness.results import Measurement
 
@@ -21,13 +21,8 @@ def commutator(f: np.ndarray, d: np.ndarray, s: np.ndarray, low: Lowdin,
     f, d are (ns, nao, nao). Vanishes at any stationary point of the SCF energy; this is
     the measure ``problem.convergence`` asks a code to bring below its threshold.
     """
-    best = (0.0, (), "")
-    for spin, fs, ds in zip(spin_names(len(f)), f, d):
-        r = low.x @ (fs @ ds @ s - s @ ds @ fs) @ low.x
-        value, idx = worst(r)
-        if not value <= best[0]:
-            best = (value, idx, spin)
-    value, idx, spin = best
+    value, idx, spin = worst_of((spin, low.x @ (fs @ ds @ s - s @ ds @ fs) @ low.x)
+                                for spin, fs, ds in zip(spin_names(len(f)), f, d))
     return Measurement(value, "max|X(FPS − SPF)X|",
                        locate(spin, "Löwdin element", idx, labels) if idx else "")
 
@@ -49,12 +44,7 @@ def rohf_conditions(f: np.ndarray, d: np.ndarray, low: Lowdin, labels=None) -> M
     blocks = (("closed–virtual block of Fα+Fβ", dc @ (fa + fb) @ dv),
               ("closed–open block of Fβ", dc @ fb @ do),
               ("open–virtual block of Fα", do @ fa @ dv))
-    best = (0.0, (), "")
-    for name, block in blocks:
-        value, idx = worst(block)
-        if not value <= best[0]:
-            best = (value, idx, name)
-    value, idx, name = best
+    value, idx, name = worst_of(blocks)
     return Measurement(value, "max ROHF gradient block",
                        locate(name, "Löwdin element", idx, labels) if idx else "")
 
@@ -65,14 +55,11 @@ def roothaan_hall(f: np.ndarray, c: np.ndarray, e: np.ndarray, low: Lowdin) -> M
     f (ns, nao, nao), c (ns, nao, nmo), e (ns, nmo) orbital energies in Eh. In the
     Löwdin basis this is the residual F' C' − C' ε of an ordinary eigenproblem.
     """
-    best = (0.0, (), "")
-    for spin, fs, cs, es in zip(spin_names(len(f)), f, c, e):
-        r = low.x @ fs @ cs - low.root @ cs * es
-        value, idx = worst(r)
-        if not value <= best[0]:
-            best = (value, idx, spin)
-    value, idx, spin = best
+    names = spin_names(len(f))
+    value, idx, spin = worst_of((spin, low.x @ fs @ cs - low.root @ cs * es)
+                                for spin, fs, cs, es in zip(names, f, c, e))
     where = ""
     if idx:
-        where = f"{spin + ', ' if spin else ''}orbital {idx[1]} (ε = {e[spin_names(len(f)).index(spin)][idx[1]]:.6f} Eh)"
+        eps = e[names.index(spin)][idx[1]]
+        where = f"{spin + ', ' if spin else ''}orbital {idx[1]} (ε = {eps:.6f} Eh)"
     return Measurement(value, "max|X(FC − SCε)|", where)
