@@ -13,9 +13,14 @@ from typing import Any, Mapping
 import numpy as np
 
 REQUIRED_KEYS = ("energy", "coefficients", "occupations")
-OPTIONAL_ARRAY_KEYS = ("orbital_energies", "density", "fock", "overlap", "core_hamiltonian")
+OPTIONAL_ARRAY_KEYS = ("orbital_energies", "density", "fock", "overlap", "core_hamiltonian",
+                       "kinetic", "nuclear_attraction", "two_electron")
 OPTIONAL_SCALAR_KEYS = ("converged", "iterations")
-KNOWN_KEYS = REQUIRED_KEYS + OPTIONAL_ARRAY_KEYS + OPTIONAL_SCALAR_KEYS
+#: ``history``: a list of per-iteration records (mappings or objects) with ``energy``
+#: (Eh) and ``error`` (the code's own convergence measure); extracted as an (n, 2)
+#: float array, NaN where a record lacks a field.
+HISTORY_KEY = "history"
+KNOWN_KEYS = REQUIRED_KEYS + OPTIONAL_ARRAY_KEYS + OPTIONAL_SCALAR_KEYS + (HISTORY_KEY,)
 
 #: Largest array accepted from a plug-in (elements); guards memory against garbage.
 MAX_ARRAY_ELEMENTS = 50_000_000
@@ -69,6 +74,34 @@ def _read_scalar(key: str, value: Any):
     return float(arr.reshape(()))
 
 
+def _read_history(value: Any):
+    if isinstance(value, (str, bytes, Mapping)) or not hasattr(value, "__len__"):
+        return Malformed("must be a list of per-iteration records with 'energy' and 'error'")
+    if len(value) > MAX_HISTORY:
+        return Malformed(f"has {len(value)} records, more than the limit {MAX_HISTORY}")
+    rows = []
+    for k, record in enumerate(value):
+        row = []
+        for field in ("energy", "error"):
+            if isinstance(record, Mapping):
+                x = record.get(field)
+            else:
+                x = getattr(record, field, None)
+            if x is None:
+                row.append(float("nan"))
+                continue
+            try:
+                row.append(float(x))
+            except (TypeError, ValueError):
+                return Malformed(f"record {k}: '{field}' is not a number")
+        rows.append(row)
+    return np.array(rows, dtype=np.float64).reshape(len(rows), 2)
+
+
+#: Longest convergence history accepted (records).
+MAX_HISTORY = 100_000
+
+
 def extract(raw: Any) -> dict[str, Any]:
     """Read the known keys from a plug-in's return value into plain Python data.
 
@@ -90,6 +123,14 @@ def extract(raw: Any) -> dict[str, Any]:
             continue
         if key in ("converged", "iterations", "energy"):
             out[key] = _read_scalar(key, value)
+        elif key == HISTORY_KEY:
+            out[key] = _read_history(value)
+        elif key == "two_electron" and callable(value):
+            # integrals on request: called here, in the plug-in's process
+            try:
+                out[key] = _read_array(key, value())
+            except Exception as exc:
+                out[key] = Malformed(f"callable raised {type(exc).__name__}: {exc}")
         else:
             out[key] = _read_array(key, value)
     return out

@@ -27,7 +27,8 @@ def well_formed(sol: dict, nao: int, method: str, n_alpha: int, n_beta: int) -> 
     Shapes: coefficients (nao, nmo) — (2, nao, nmo) for UHF — with nmo ≤ nao;
     occupations (nmo,) in {0, 1, 2} — (2, nmo) in {0, 1} for UHF — summing to the
     electron counts; density and fock (nao, nao) for RHF, (2, nao, nao) otherwise;
-    overlap and core_hamiltonian (nao, nao); orbital_energies like occupations.
+    overlap, core_hamiltonian, kinetic, nuclear_attraction (nao, nao); two_electron
+    (nao, nao, nao, nao); orbital_energies like occupations; history non-empty.
     All values finite; square matrices symmetric.
     """
     problems: list[str] = []
@@ -79,9 +80,13 @@ def well_formed(sol: dict, nao: int, method: str, n_alpha: int, n_beta: int) -> 
         if key in sol and expect(key, spin_or_total + (nao, nao),
                                  _shape(np.empty(spin_or_total + (nao, nao)))):
             problems.extend(_symmetry_problems(key, sol[key]))
-    for key in ("overlap", "core_hamiltonian"):
+    for key in ("overlap", "core_hamiltonian", "kinetic", "nuclear_attraction"):
         if key in sol and expect(key, (nao, nao), _shape(np.empty((nao, nao)))):
             problems.extend(_symmetry_problems(key, sol[key]))
+    if "two_electron" in sol:
+        expect("two_electron", (nao,) * 4, f"({nao}, {nao}, {nao}, {nao})")
+    if "history" in sol and sol["history"].shape[0] == 0:
+        problems.append("'history' is empty")
     return problems
 
 
