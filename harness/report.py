@@ -124,20 +124,30 @@ def verdict_table(cases: Sequence[CaseResult], console: Console | None = None) -
     table = Table(box=box.SIMPLE_HEAD, padding=(0, 1), pad_edge=False, show_edge=False,
                   collapse_padding=True)
     table.add_column("case", no_wrap=True, overflow="ellipsis")
-    for name in CHECK_NAMES:
+    names = shown_checks(cases)
+    for name in names:
         table.add_column(SHORT_NAMES.get(name, name), justify="right", no_wrap=True)
     for result in cases:
         by_name = {c.name: c for c in result.checks}
         name = Text(result.name, style=None if result.passed else "bold red")
-        table.add_row(name, *(_cell(by_name.get(n), marks) for n in CHECK_NAMES))
+        table.add_row(name, *(_cell(by_name.get(n), marks) for n in names))
     return table
 
 
-def _legend_lines(width: int) -> list[str]:
+def shown_checks(cases: Sequence[CaseResult]) -> list[str]:
+    """The checks worth a column: those that ran (passed or failed) on some case; when no
+    case ran any check (every plug-in failed), the core checks, so the table keeps its shape."""
+    ran = {c.name for r in cases for c in r.checks
+           if c.status in (Status.PASSED, Status.FAILED)}
+    names = [n for n in CHECK_NAMES if n in ran]
+    return names or [n for n in CHECK_NAMES if n in SHORT_NAMES]
+
+
+def _legend_lines(width: int, names: Sequence[str] = CHECK_NAMES) -> list[str]:
     """``columns: form = well-formed, ...`` broken between entries to fit ``width``."""
     lines, line = [], "columns:"
-    for name in CHECK_NAMES:
-        entry = f" {SHORT_NAMES[name]} = {name},"
+    for name in names:
+        entry = f" {SHORT_NAMES.get(name, name)} = {name},"
         if len(line) + len(entry) > width and line.strip():
             lines.append(line)
             line = "        "
@@ -151,7 +161,7 @@ def render(outcome, console: Console, *, quiet: bool = False) -> None:
     messages and hints per failed case, then ``N passed, M failed`` alone on a line."""
     if outcome.cases and not quiet:
         console.print(verdict_table(outcome.cases, console))
-        for line in _legend_lines(min(console.width, PLAIN_WIDTH)):
+        for line in _legend_lines(min(console.width, PLAIN_WIDTH), shown_checks(outcome.cases)):
             console.print(Text(line, style="dim"), soft_wrap=True)
     failed_cases = [c for c in outcome.cases if not c.passed]
     if failed_cases:

@@ -59,13 +59,28 @@ class TestRender:
 
     def test_table_cells(self):
         """Measured values in .0e with a mark; n.a. and skip shown; headers short."""
-        text = rendered(outcome(passing_case(), failing_case()))
+        full = CaseResult(name="lih-sto-3g-rhf", method="rhf", basis="sto-3g", checks=(
+            judge("overlap", Measurement(1e-16, "max|S − S_ref|"), 1e-8, "lih-sto-3g-rhf"),
+            judge("aufbau", Measurement(-0.3, "ε_HOMO − ε_LUMO"), 1e-6, "lih-sto-3g-rhf")))
+        cases = (passing_case(), failing_case(), full)
+        text = rendered(outcome(*cases))
         header = next(line for line in text.splitlines() if line.startswith("case"))
-        assert header.split() == ["case"] + [report.SHORT_NAMES[n] for n in CHECK_NAMES]
+        ran = {c.name for r in cases for c in r.checks if c.passed is not None}
+        assert header.split() == ["case"] + [report.SHORT_NAMES[n] for n in CHECK_NAMES
+                                             if n in ran]
         row = next(line for line in text.splitlines() if line.startswith("h2-sto-3g-rhf"))
         assert "2e-08✓" in row and "n.a." in row and "skip" in row
         bad = next(line for line in text.splitlines() if line.startswith("water-sto-3g-rhf"))
         assert "3e-03✗" in bad
+
+    def test_columns_of_checks_that_never_ran_are_hidden(self):
+        """A check that is n.a. or skipped on every case gets no column."""
+        text = rendered(outcome(passing_case(), failing_case()))
+        header = next(line for line in text.splitlines() if line.startswith("case")).split()
+        ran = {c.name for r in (passing_case(), failing_case()) for c in r.checks
+               if c.passed is not None}
+        hidden = [n for n in CHECK_NAMES if n not in ran]
+        assert hidden and all(report.SHORT_NAMES[n] not in header for n in hidden)
 
     def test_table_fits_120_columns(self):
         """A long case name and all thirteen columns fit a 120-column CI log."""
