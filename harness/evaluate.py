@@ -17,17 +17,73 @@ from harness.checks import stationarity as _stat
 from harness.checks.spin import density_by_spin, density_from_orbitals, fock_by_spin
 from harness.checks.spin import occupation_scale, orbitals_by_spin
 from harness.checks.wellformed import well_formed
+from harness.conventions import BasisMismatch, detect_convention, named_convention
+from harness.errors import HarnessError
 from harness.integrals import AOIntegrals, integrals_for
 from harness.problem import Problem
 from harness.results import CheckResult, Status, failed, judge, not_applicable, skipped
 from harness.tolerances import CHECK_NAMES, Tolerances
 
 
+#: A reported overlap within this of pyscf's, element by element, is taken to be in
+#: pyscf's AO order with less accurate integrals (the overlap check judges it): any
+#: reordering, sign flip or renormalisation changes some element by far more (≥ 1e-2).
+SAME_ORDER_INACCURATE_OVERLAP = 1e-3
+
+
+def _basis(problem: Problem, sol: dict, ints: AOIntegrals, ao_convention: str | None):
+    """The "basis" check: map the code's AO convention onto pyscf's.
+
+    Returns (result, solution in pyscf's AO order, go_on). A user-named convention is
+    applied as given; otherwise a reported overlap that differs from pyscf's is matched by
+    per-shell signed permutations and scalings (``harness.conventions``). A basis that no
+    such mapping explains fails; with a different number of functions nothing else can
+    be checked.
+    """
+    case = problem.name
+    if ao_convention is not None:
+        conv = named_convention(ao_convention, ints.mol)
+        return (CheckResult("basis", Status.PASSED, None, None,
+                            f"basis: AO convention {ao_convention!r} as given ({case}): "
+                            f"{conv.describe()}"), conv.solution_to_reference(sol), True)
+    s_code = sol.get("overlap")
+    if not isinstance(s_code, np.ndarray) or s_code.ndim != 2 \
+            or s_code.shape[0] != s_code.shape[1] or not np.all(np.isfinite(s_code)):
+        return (not_applicable("basis", "no usable 'overlap' key; pyscf's AO order assumed",
+                               case), sol, True)
+    c = sol.get("coefficients")
+    if s_code.shape != ints.s.shape and not (
+            isinstance(c, np.ndarray) and c.ndim >= 2 and c.shape[-2] == s_code.shape[0]):
+        return (not_applicable("basis", "the overlap's size disagrees with the coefficients",
+                               case), sol, True)
+    if s_code.shape == ints.s.shape and \
+            np.max(np.abs(s_code - ints.s)) <= SAME_ORDER_INACCURATE_OVERLAP:
+        return (not_applicable("basis", "the overlap is pyscf's in pyscf's AO order up to "
+                               "integral accuracy; see the overlap check", case), sol, True)
+    try:
+        conv = detect_convention(s_code, ints.mol, s_ref=ints.s)
+    except HarnessError as exc:
+        return not_applicable("basis", str(exc), case), sol, True
+    if isinstance(conv, BasisMismatch):
+        go_on = s_code.shape == ints.s.shape
+        return failed("basis", f"basis: {conv.reason} ({case})"), sol, go_on
+    if conv.is_identity:
+        return (CheckResult("basis", Status.PASSED, 0.0, None,
+                            f"basis: the code's overlap is pyscf's, same AO order ({case})"),
+                sol, True)
+    return (CheckResult("basis", Status.PASSED, None, None,
+                        f"basis: AO convention detected ({case}): {conv.describe()}"),
+            conv.solution_to_reference(sol), True)
+
+
 def evaluate(problem: Problem, extracted: dict, reference=None,
              tolerances: Tolerances | None = None,
-             integrals: AOIntegrals | None = None) -> tuple[CheckResult, ...]:
+             integrals: AOIntegrals | None = None, *,
+             ao_convention: str | None = None) -> tuple[CheckResult, ...]:
     """All checks of one case. ``reference`` (a ``harness.references.Reference``) may be
-    None, then reference-energy is not applicable. Energies in Eh."""
+    None, then reference-energy is not applicable. ``ao_convention`` names the code's
+    AO convention (``harness.conventions.NAMED``) when it reports no overlap. Energies
+    in Eh."""
     tol = tolerances or Tolerances()
     case = problem.name
     method = problem.method
@@ -35,19 +91,26 @@ def evaluate(problem: Problem, extracted: dict, reference=None,
     def verdict(name, measurement):
         return judge(name, measurement, tol.for_check(name, problem.convergence), case)
 
-    problems = well_formed(extracted, problem.nao, method, problem.n_alpha, problem.n_beta)
+    ints = integrals or integrals_for(problem)
+    basis, sol, go_on = _basis(problem, extracted, ints, ao_convention)
+    if not go_on:
+        rest = [skipped(n, "the code's basis differs from the case's", case)
+                for n in CHECK_NAMES if n != "basis"]
+        return (basis, *rest)
+
+    problems = well_formed(sol, problem.nao, method, problem.n_alpha, problem.n_beta)
     if problems:
         more = f" (and {len(problems) - 1} more: {'; '.join(problems[1:])})" if len(problems) > 1 else ""
         head = failed("well-formed", f"well-formed: {problems[0]} ({case}){more}",
                       value=float(len(problems)))
-        rest = [skipped(n, "the solution is malformed", case) for n in CHECK_NAMES[1:]]
-        return (head, *rest)
+        rest = [skipped(n, "the solution is malformed", case) for n in CHECK_NAMES
+                if n not in ("basis", "well-formed")]
+        return (basis, head, *rest)
 
     results: dict[str, CheckResult] = {
+        "basis": basis,
         "well-formed": CheckResult("well-formed", Status.PASSED, 0.0, None,
                                    f"well-formed: keys, shapes and occupations valid ({case})")}
-    sol = extracted
-    ints = integrals or integrals_for(problem)
     labels = ints.labels
     low = _orth.lowdin(ints.s)
 
@@ -130,4 +193,4 @@ def evaluate(problem: Problem, extracted: dict, reference=None,
     else:
         results["aufbau"] = not_applicable("aufbau", "no 'orbital_energies' key", case)
 
-    return tuple(results[name] for name in CHECK_NAMES)
+    return tuple(results[name] for name in CHECK_NAMES if name in results)
