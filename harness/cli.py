@@ -149,6 +149,17 @@ def build_parser() -> argparse.ArgumentParser:
                            description="List the catalogue's cases (name, method, basis, "
                            "number of AOs, suites, note).")
     cases.add_argument("--suite", metavar="NAME", help="only this suite (default: all cases)")
+
+    selftest = sub.add_parser("selftest", help="run the built-in planted-bug plug-ins and "
+                              "check that each is caught by the checks meant to catch it",
+                              description="Run every planted-bug plug-in (and correct variant) "
+                              "of harness.planted on its case and compare the verdict with the "
+                              "expected one. Exit 0 if all match, 1 otherwise, 2 for usage "
+                              "errors.")
+    selftest.add_argument("--only", metavar="SUBSTRING",
+                          help="only the entries of the module SUBSTRING (core, hints, "
+                          "conventions, integrals), or else those whose 'module:function @ "
+                          "case' contains SUBSTRING, e.g. 'water' (default: all entries)")
     return parser
 
 
@@ -309,6 +320,15 @@ def _cases(args, console) -> int:
     return 0
 
 
+def _selftest(args, console) -> int:
+    from harness import planted
+    from harness.selftest import run_selftest, select
+
+    if args.only is not None and not select(planted.catalogue(), args.only):
+        raise UsageError(f"--only: no planted entry matches {args.only!r}")
+    return run_selftest(console, only=args.only).exit_code
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line with ``argv`` (default ``sys.argv[1:]``); return the exit status."""
     from harness.report import make_console
@@ -327,6 +347,8 @@ def main(argv: Sequence[str] | None = None) -> int:
             return _certify(args, console)
         if args.command == "references":
             return _references(args, console)
+        if args.command == "selftest":
+            return _selftest(args, console)
         return _cases(args, console)
     except (UsageError, HarnessError) as exc:
         _error(str(exc))

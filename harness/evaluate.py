@@ -7,6 +7,8 @@ return value (``harness.solution.extract``) and gives one ``CheckResult`` per ch
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 
 from harness.checks import frontier as _frontier
@@ -17,7 +19,13 @@ from harness.checks import stationarity as _stat
 from harness.checks.spin import density_by_spin, density_from_orbitals, fock_by_spin
 from harness.checks.spin import occupation_scale, orbitals_by_spin
 from harness.checks.wellformed import well_formed
-from harness.conventions import BasisMismatch, detect_convention, named_convention
+from harness.checks.history import history_from_results
+from harness.checks.integrals import integral_checks
+from harness import stability as _stability
+from harness.stability import state_hint
+from harness.diagnosis import diagnose
+from harness.conventions import CONVENTION_MATCH, BasisMismatch, detect_convention
+from harness.conventions import named_convention
 from harness.errors import HarnessError
 from harness.integrals import AOIntegrals, integrals_for
 from harness.problem import Problem
@@ -56,6 +64,10 @@ def _basis(problem: Problem, sol: dict, ints: AOIntegrals, ao_convention: str | 
             isinstance(c, np.ndarray) and c.ndim >= 2 and c.shape[-2] == s_code.shape[0]):
         return (not_applicable("basis", "the overlap's size disagrees with the coefficients",
                                case), sol, True)
+    if s_code.shape == ints.s.shape and np.max(np.abs(s_code - ints.s)) <= CONVENTION_MATCH:
+        return (CheckResult("basis", Status.PASSED, 0.0, None,
+                            f"basis: the code's overlap is pyscf's, same AO order ({case})"),
+                sol, True)
     if s_code.shape == ints.s.shape and \
             np.max(np.abs(s_code - ints.s)) <= SAME_ORDER_INACCURATE_OVERLAP:
         return (not_applicable("basis", "the overlap is pyscf's in pyscf's AO order up to "
@@ -76,14 +88,49 @@ def _basis(problem: Problem, sol: dict, ints: AOIntegrals, ao_convention: str | 
             conv.solution_to_reference(sol), True)
 
 
+@dataclasses.dataclass(frozen=True)
+class Verdict:
+    """The checks of one case, in CHECK_NAMES order, and the same-density analysis
+    (JSON-ready numbers from ``harness.diagnosis``; empty when nothing failed)."""
+
+    checks: tuple[CheckResult, ...]
+    analysis: dict
+
+
+STABILITY_MODES = ("internal", "external", "off")
+
+
 def evaluate(problem: Problem, extracted: dict, reference=None,
              tolerances: Tolerances | None = None,
              integrals: AOIntegrals | None = None, *,
-             ao_convention: str | None = None) -> tuple[CheckResult, ...]:
-    """All checks of one case. ``reference`` (a ``harness.references.Reference``) may be
-    None, then reference-energy is not applicable. ``ao_convention`` names the code's
-    AO convention (``harness.conventions.NAMED``) when it reports no overlap. Energies
-    in Eh."""
+             ao_convention: str | None = None,
+             stability: str = "internal") -> tuple[CheckResult, ...]:
+    """All checks of one case (see :func:`evaluate_case`); the checks only."""
+    return evaluate_case(problem, extracted, reference, tolerances, integrals,
+                         ao_convention=ao_convention, stability=stability).checks
+
+
+def evaluate_case(problem: Problem, extracted: dict, reference=None,
+                  tolerances: Tolerances | None = None,
+                  integrals: AOIntegrals | None = None, *,
+                  ao_convention: str | None = None,
+                  stability: str = "internal") -> Verdict:
+    """All checks of one case, with hints on failures.
+
+    ``reference`` (a ``harness.references.Reference``) may be None, then
+    reference-energy is not applicable. ``ao_convention`` names the code's AO convention
+    (``harness.conventions.NAMED``) when it reports no overlap. ``stability``: "internal"
+    (default), "external" (RHF→UHF too) or "off". Energies in Eh.
+    """
+    if stability not in STABILITY_MODES:
+        raise HarnessError(f"must be one of {', '.join(STABILITY_MODES)}, got {stability!r}",
+                           field="stability")
+    checks, analysis = _evaluate(problem, extracted, reference, tolerances, integrals,
+                                 ao_convention, stability)
+    return Verdict(checks=checks, analysis=analysis)
+
+
+def _evaluate(problem, extracted, reference, tolerances, integrals, ao_convention, stability):
     tol = tolerances or Tolerances()
     case = problem.name
     method = problem.method
@@ -96,7 +143,7 @@ def evaluate(problem: Problem, extracted: dict, reference=None,
     if not go_on:
         rest = [skipped(n, "the code's basis differs from the case's", case)
                 for n in CHECK_NAMES if n != "basis"]
-        return (basis, *rest)
+        return (basis, *rest), {}
 
     problems = well_formed(sol, problem.nao, method, problem.n_alpha, problem.n_beta)
     if problems:
@@ -105,7 +152,7 @@ def evaluate(problem: Problem, extracted: dict, reference=None,
                       value=float(len(problems)))
         rest = [skipped(n, "the solution is malformed", case) for n in CHECK_NAMES
                 if n not in ("basis", "well-formed")]
-        return (basis, head, *rest)
+        return (basis, head, *rest), {}
 
     results: dict[str, CheckResult] = {
         "basis": basis,
@@ -193,4 +240,45 @@ def evaluate(problem: Problem, extracted: dict, reference=None,
     else:
         results["aufbau"] = not_applicable("aufbau", "no 'orbital_energies' key", case)
 
-    return tuple(results[name] for name in CHECK_NAMES if name in results)
+    results.update(integral_checks(sol, ints, tol, case))
+    results.update(_state_checks(problem, sol, reference, ints, tol, stability, d, rebuilt))
+    results["history"] = history_from_results(sol, results, convergence=problem.convergence,
+                                              case=case)
+
+    analysis: dict = {}
+    if any(r.status is Status.FAILED for r in results.values()):
+        diagnosis = diagnose(problem, sol, ints, d, results, reference=reference, jk=(vj, vk))
+        analysis = dict(diagnosis.analysis)
+        hints = dict(diagnosis.hints)
+        ref_result = results.get("reference-energy")
+        # Naming a state needs an energy that belongs to the density; above the reference
+        # it also needs a stationary density (an unconverged code is above it anyway).
+        below = reference is not None and sol["energy"] < float(reference.energy)
+        consistent = results["energy-consistency"].status is Status.PASSED and (
+            below or results["self-consistency"].status is Status.PASSED)
+        if ref_result is not None and ref_result.status is Status.FAILED and consistent \
+                and "reference-energy" not in hints:
+            hint = state_hint(problem, sol, ints, reference,
+                              tolerance=tol.for_check("reference-energy", problem.convergence))
+            if hint:
+                hints["reference-energy"] = hint
+        for name, hint in hints.items():
+            if name in results and results[name].status is Status.FAILED and hint:
+                results[name] = dataclasses.replace(results[name], hint=hint)
+    return tuple(results[name] for name in CHECK_NAMES if name in results), analysis
+
+
+def _state_checks(problem, sol, reference, ints, tol: Tolerances, mode: str, d, fock):
+    """stability, spin-squared and energy-error-bound (``harness.stability``), with any
+    tolerance overrides applied."""
+    over = tol.overrides
+    out = {}
+    out["stability"] = _stability.stability_check(
+        problem, sol, ints, mode=mode,
+        threshold=over.get("stability", _stability.STABILITY_EIGENVALUE))
+    out["spin-squared"] = _stability.spin_check(problem, sol, ints, reference,
+                                                tolerance=over.get("spin-squared"))
+    out["energy-error-bound"] = _stability.energy_error_check(
+        problem, sol, ints, d, fock,
+        tolerance=over.get("energy-error-bound", _stability.ENERGY_ERROR_BOUND))
+    return out

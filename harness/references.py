@@ -2,8 +2,10 @@
 
 This is the only module of the harness that runs pyscf's SCF. A reference is the
 lowest converged, internally stable pyscf solution for a case, with its energy split
-into terms, orbital energies, ⟨S²⟩ and dipole. All values in atomic units: energies
-in hartree (Eh), dipole in e·bohr (origin at the coordinate origin), lengths in bohr.
+into terms, orbital energies, ⟨S²⟩ and dipole, and the other distinct stationary
+solutions met on the way (``known_states``: saddle points and higher minima). All
+values in atomic units: energies in hartree (Eh), dipole in e·bohr (origin at the
+coordinate origin), lengths in bohr.
 
 Storage: one JSON file per case, ``<data directory>/<case name>.json`` (default data
 directory: ``default_reference_dir() / "data"``). Each file carries an input hash
@@ -37,15 +39,30 @@ CONV_TOL_GRAD = 1e-8
 MAX_CYCLE = 500
 #: Rounds of "stability analysis → follow the unstable mode → rerun" before giving up.
 MAX_STABILITY_ROUNDS = 10
+#: Two converged stationary solutions whose energies differ by more than this (Eh) are
+#: distinct states (``known_states``); closer ones are the same state (the first met is
+#: kept). 1e-6 Eh is the reference-energy tolerance: a code cannot be told apart from
+#: two states closer than that anyway.
+KNOWN_STATE_SEPARATION = 1e-6
 #: Versioned description of how a reference solution is chosen; part of the input hash.
 STABILITY_POLICY = (
-    "policy/1: for each guess, converge, run pyscf internal stability analysis, rerun from "
-    f"the rotated orbitals until stable (at most {MAX_STABILITY_ROUNDS} rounds); keep the "
-    "lowest-energy converged stable solution over all guesses")
-#: Starting densities tried for every case; UHF singlets also try "broken-symmetry"
-#: (alpha HOMO/LUMO rotated by +45°, beta by −45°, on the minao guess orbitals).
-GUESSES = ("minao", "atom")
+    "policy/2: for each guess (minao, atom, huckel, 1e; UHF singlets also broken-symmetry "
+    "and restricted, the UHF started from the stable RHF solution), "
+    "converge, find the lowest internal orbital-Hessian eigenvalue (harness.stability."
+    "internal_mode: one root, Davidson tol 1e-5, seeded random start admixture), while "
+    "it is below -1e-5 Eh/rad^2 rerun from the "
+    f"rotated orbitals (at most {MAX_STABILITY_ROUNDS} rounds); keep the lowest-energy "
+    "converged stable solution over all guesses; record every converged stationary "
+    f"solution distinct by > {KNOWN_STATE_SEPARATION:g} Eh as a known state")
+#: Starting densities tried for every case (pyscf's names; "1e" is the bare core
+#: Hamiltonian, which leads some open shells into excited states); UHF singlets also try
+#: "broken-symmetry" (alpha HOMO/LUMO rotated by +45°, beta by −45°, on the minao guess
+#: orbitals). Earlier guesses win ties, so the order is part of the policy.
+GUESSES = ("minao", "atom", "huckel", "1e")
 BROKEN_SYMMETRY = "broken-symmetry"
+#: UHF singlets also start from the internally stable RHF solution (Pα = Pβ = P/2), so
+#: that the spin-restricted stationary point is among the known states.
+RESTRICTED = "restricted"
 #: |E_total − (E_nuc + E_1 + E_J + E_K)| allowed when the energy terms are stored (Eh).
 ENERGY_SUM_TOLERANCE = 1e-9
 #: |E_recomputed − E_stored| allowed by ``verify(..., recompute=True)`` (Eh).
@@ -113,6 +130,34 @@ def _frozen(values) -> np.ndarray:
     return arr
 
 
+@dataclasses.dataclass(frozen=True)
+class KnownState:
+    """One stationary Hartree–Fock solution of a case found while making its reference.
+
+    ``energy`` (Eh, total), ``s_squared`` (⟨S²⟩; 0 for RHF), ``stable`` (no internal
+    orbital-Hessian eigenvalue below −1e-5 Eh/rad²), ``eigenvalue`` (that lowest
+    eigenvalue, Eh/rad², see ``harness.stability``), ``label`` (a short description of the
+    occupation: per-spin HOMO character, aufbau or not, spin-restricted or not) and
+    ``found_by`` (guess, and how many instability-following rounds led there).
+    """
+
+    energy: float
+    s_squared: float
+    stable: bool
+    eigenvalue: float
+    label: str
+    found_by: str
+
+    def to_json(self) -> dict[str, Any]:
+        return _clean(dataclasses.asdict(self))
+
+    @classmethod
+    def from_json(cls, data: Mapping[str, Any]) -> "KnownState":
+        return cls(energy=float(data["energy"]), s_squared=float(data["s_squared"]),
+                   stable=bool(data["stable"]), eigenvalue=float(data["eigenvalue"]),
+                   label=str(data["label"]), found_by=str(data["found_by"]))
+
+
 @dataclasses.dataclass(frozen=True, eq=False)
 class Reference:
     """A stored pyscf solution of one case. Energies in Eh, dipole in e·bohr.
@@ -122,6 +167,10 @@ class Reference:
     UHF (alpha first). The energy terms satisfy
     ``energy = energy_nuclear + energy_one_electron + energy_coulomb + energy_exchange``
     with E_1 = Tr(P h), E_J = ½ Tr(P J[P]), E_K = −½ Σσ Tr(Pσ K[Pσ]) (RHF: −¼ Tr(P K[P])).
+
+    ``known_states``: every distinct converged stationary solution found (energy-sorted;
+    index 0 is the reference solution itself). Files written before known states were
+    recorded read back with an empty tuple.
     """
 
     case: str
@@ -147,10 +196,12 @@ class Reference:
     stability_rounds: int
     inputs: Mapping[str, Any] = dataclasses.field(default_factory=dict)
     provenance: Mapping[str, Any] = dataclasses.field(default_factory=dict)
+    known_states: tuple[KnownState, ...] = ()
 
     def __post_init__(self):
         for name in ("orbital_energies", "occupations", "dipole"):
             object.__setattr__(self, name, _frozen(getattr(self, name)))
+        object.__setattr__(self, "known_states", tuple(self.known_states))
 
     @property
     def energy_terms_sum(self) -> float:
@@ -179,6 +230,7 @@ class Reference:
             "occupations": self.occupations,
             "inputs": dict(self.inputs),
             "provenance": dict(self.provenance),
+            "known_states": [k.to_json() for k in self.known_states],
         })
 
     @classmethod
@@ -205,7 +257,9 @@ class Reference:
                       converged=bool(data["converged"]), stable=bool(data["stable"]),
                       stability_rounds=int(data["stability_rounds"]),
                       inputs=dict(data.get("inputs", {})),
-                      provenance=dict(data.get("provenance", {})))
+                      provenance=dict(data.get("provenance", {})),
+                      known_states=tuple(KnownState.from_json(k)
+                                         for k in data.get("known_states", ())))
         except KeyError as exc:
             raise ReferenceDataError(f"missing key {exc.args[0]!r}", case=data.get("case"),
                                      field="reference") from None
@@ -257,6 +311,11 @@ def _broken_symmetry_density(mf) -> np.ndarray:
 def _initial_density(mf, guess: str) -> np.ndarray:
     if guess == BROKEN_SYMMETRY:
         return _broken_symmetry_density(mf)
+    if guess == RESTRICTED:
+        rhf = _new_scf(mf.mol, "rhf")
+        _stable_solution(rhf, rhf.get_init_guess(key="minao"))
+        dm = 0.5 * np.asarray(rhf.make_rdm1())
+        return np.stack([dm, dm])
     with warnings.catch_warnings():  # pyscf's own "atom" guess calls a deprecated helper
         warnings.simplefilter("ignore", DeprecationWarning)
         return mf.get_init_guess(key=guess)
@@ -271,15 +330,91 @@ def _converge(mf, dm0) -> None:
             setattr(mf, attr, getattr(second, attr))
 
 
-def _stable_solution(mf, dm0) -> tuple[bool, int]:
-    """Converge, then follow internal instabilities. Returns (stable, rounds used)."""
+def _s_squared(mf) -> float:
+    from pyscf import scf
+
+    if isinstance(mf, scf.uhf.UHF) or isinstance(mf, scf.rohf.ROHF):
+        return float(mf.spin_square()[0])
+    return 0.0
+
+
+def _state_label(mf) -> str:
+    """Short occupation description: per-spin HOMO character (largest Mulliken share),
+    "non-aufbau" if an empty orbital lies below an occupied one, and for UHF whether
+    Pα = Pβ (spin-restricted-like) or not."""
+    from pyscf import scf
+
+    mol = mf.mol
+    s = mf.get_ovlp()
+    labels = [" ".join(x.split()) for x in mol.ao_labels()]
+    c, e, occ = np.asarray(mf.mo_coeff), np.asarray(mf.mo_energy), np.asarray(mf.mo_occ)
+    if c.ndim == 2:
+        c, e, occ = c[None], e[None], occ[None]
+        names = ("",)
+    else:
+        names = ("α ", "β ")
+    parts, aufbau = [], True
+    for cs, es, ns, name in zip(c, e, occ, names):
+        filled, empty = np.flatnonzero(ns > 0), np.flatnonzero(ns == 0)
+        if filled.size == 0:
+            continue
+        homo = filled[np.argmax(es[filled])]
+        share = cs[:, homo] * (s @ cs[:, homo])
+        parts.append(f"{name}HOMO {labels[int(np.argmax(share))]}")
+        if empty.size and es[empty].min() < es[filled].max() - 1e-6:
+            aufbau = False
+    if isinstance(mf, scf.uhf.UHF) and mol.spin == 0:
+        dm = np.asarray(mf.make_rdm1())
+        parts.append("α = β" if np.abs(dm[0] - dm[1]).max() < 1e-5 else "α ≠ β")
+    if not aufbau:
+        parts.append("non-aufbau")
+    return ", ".join(parts)
+
+
+def _stable_solution(mf, dm0, guess: str = "", states: list | None = None
+                     ) -> tuple[bool, int]:
+    """Converge, then follow internal instabilities (``harness.stability.internal_mode``:
+    λ < −STABILITY_EIGENVALUE). Returns (stable, rounds used); every converged stationary
+    point met is appended to ``states`` as a :class:`KnownState`."""
+    from harness import stability as stab
+
     _converge(mf, dm0)
     for rounds in range(1, MAX_STABILITY_ROUNDS + 1):
-        mo, _, stable, _ = mf.stability(internal=True, external=False, return_status=True)
+        mode = stab.internal_mode(mf)
+        stable = not mode.eigenvalue < -stab.STABILITY_EIGENVALUE
+        if states is not None and mf.converged:
+            found = guess if rounds == 1 else f"{guess}, followed {rounds - 1}×"
+            states.append(KnownState(energy=float(mf.e_tot), s_squared=_s_squared(mf),
+                                     stable=stable, eigenvalue=float(mode.eigenvalue),
+                                     label=_state_label(mf), found_by=found))
         if stable:
             return True, rounds
-        _converge(mf, mf.make_rdm1(mo, mf.mo_occ))
+        _converge(mf, mf.make_rdm1(stab.rotated_orbitals(mf, mode), mf.mo_occ))
     return False, MAX_STABILITY_ROUNDS
+
+
+def follow(mol, method: str, mo_coeff, mo_occ) -> tuple[float, float]:
+    """pyscf SCF of ``method`` started from the density of the given orbitals (pyscf AO
+    order of ``mol``), followed until internally stable as for a reference. Returns
+    (total energy in Eh, ⟨S²⟩). Used by ``harness.stability`` to follow an instability of
+    a code's solution (pyscf analysing the code's solution, not checking itself)."""
+    mf = _new_scf(mol, method)
+    _stable_solution(mf, mf.make_rdm1(np.asarray(mo_coeff), np.asarray(mo_occ)))
+    return float(mf.e_tot), _s_squared(mf)
+
+
+def distinct_states(states: Iterable[KnownState]) -> tuple[KnownState, ...]:
+    """Energy-sorted states, merging those within KNOWN_STATE_SEPARATION Eh (the first
+    met of a group is kept, and a stable member wins over a saddle)."""
+    kept: list[KnownState] = []
+    for st in states:
+        twin = next((k for k, old in enumerate(kept)
+                     if abs(old.energy - st.energy) <= KNOWN_STATE_SEPARATION), None)
+        if twin is None:
+            kept.append(st)
+        elif st.stable and not kept[twin].stable:
+            kept[twin] = st
+    return tuple(sorted(kept, key=lambda k: k.energy))
 
 
 def _energy_terms(mf) -> dict[str, float]:
@@ -309,7 +444,8 @@ def _versions() -> dict[str, str]:
 
 
 def _solve(mol, method: str):
-    """Run every guess through :func:`_stable_solution`; return the kept run and all runs.
+    """Run every guess through :func:`_stable_solution`; return the kept run, all runs and
+    the distinct stationary states met.
 
     A run is ``(guess, mf, converged, stable, rounds)``. Kept: the lowest energy among
     the converged stable runs (else the converged ones, else all); ties within
@@ -317,11 +453,11 @@ def _solve(mol, method: str):
     """
     guesses = list(GUESSES)
     if method == "uhf" and mol.spin == 0:
-        guesses.append(BROKEN_SYMMETRY)
-    runs = []
+        guesses += [BROKEN_SYMMETRY, RESTRICTED]
+    runs, states = [], []
     for guess in guesses:
         mf = _new_scf(mol, method)
-        stable, rounds = _stable_solution(mf, _initial_density(mf, guess))
+        stable, rounds = _stable_solution(mf, _initial_density(mf, guess), guess, states)
         runs.append((guess, mf, bool(mf.converged), stable, rounds))
 
     def rank(run):
@@ -331,14 +467,18 @@ def _solve(mol, method: str):
     pool = [r for r in runs if rank(r) == best_class]
     lowest = min(r[1].e_tot for r in pool)
     kept = next(r for r in pool if r[1].e_tot < lowest + SAME_SOLUTION)
-    return kept, runs
+    # the kept solution is state 0, the others follow by energy (a saddle point below it
+    # would be listed too: it would mean a lower minimum exists that no guess reached)
+    known = distinct_states(states)
+    first = [st for st in known if abs(st.energy - kept[1].e_tot) <= KNOWN_STATE_SEPARATION]
+    return kept, runs, tuple(first[:1]) + tuple(st for st in known if st not in first[:1])
 
 
 def reference_energy(mol, method: str) -> float:
     """Total energy (Eh) of the reference solution for a pyscf ``Mole`` built in bohr,
     chosen exactly as :func:`compute_reference` chooses it. For molecules that are not
     catalogue cases, e.g. a custom basis given as a pyscf basis dict."""
-    (_, mf, _, _, _), _ = _solve(mol, method)
+    (_, mf, _, _, _), _, _ = _solve(mol, method)
     return float(mf.e_tot)
 
 
@@ -346,13 +486,15 @@ def compute_reference(case: Case) -> Reference:
     """Run pyscf RHF/UHF/ROHF for ``case`` and return its :class:`Reference`.
 
     Symmetry off, conv_tol = CONV_TOL (Eh), conv_tol_grad = CONV_TOL_GRAD; every guess
-    in GUESSES (plus BROKEN_SYMMETRY for UHF singlets) is converged and followed to an
-    internally stable solution; the lowest converged stable one is kept (ties within
-    SAME_SOLUTION Eh go to the earlier guess). Raises ReferenceDataError if the stored
+    in GUESSES (plus BROKEN_SYMMETRY and RESTRICTED for UHF singlets) is converged and
+    followed to an internally stable solution; the lowest converged stable one is kept
+    (ties within SAME_SOLUTION Eh go to the earlier guess). Every converged stationary
+    point met is recorded; the distinct ones (KNOWN_STATE_SEPARATION) are
+    ``known_states``, the kept solution first. Raises ReferenceDataError if the stored
     energy terms do not sum to the total within ENERGY_SUM_TOLERANCE.
     """
     mol = case.mole()
-    (guess, mf, converged, stable, rounds), runs = _solve(mol, case.method)
+    (guess, mf, converged, stable, rounds), runs, known = _solve(mol, case.method)
     guesses = [r[0] for r in runs]
 
     terms = _energy_terms(mf)
@@ -362,7 +504,7 @@ def compute_reference(case: Case) -> Reference:
         raise ReferenceDataError(f"energy terms sum to {total - mismatch!r}, total is "
                                  f"{total!r} (difference {mismatch:.1e} Eh)", case=case.name,
                                  field="energies")
-    s2 = 0.0 if case.method == "rhf" else float(mf.spin_square()[0])
+    s2 = _s_squared(mf)
     dipole = np.asarray(mf.dip_moment(unit="AU", verbose=0), dtype=float)
     mo_energy = np.asarray(mf.mo_energy, dtype=float)
     mo_occ = np.asarray(mf.mo_occ, dtype=float)
@@ -385,7 +527,7 @@ def compute_reference(case: Case) -> Reference:
                      orbital_energies=mo_energy, occupations=mo_occ, s_squared=s2,
                      dipole=dipole, nao=int(mol.nao), nmo=int(np.shape(mf.mo_coeff)[-1]),
                      converged=converged, stable=stable, stability_rounds=rounds,
-                     inputs=_inputs(case), provenance=provenance)
+                     inputs=_inputs(case), provenance=provenance, known_states=known)
 
 
 # --------------------------------------------------------------------------- storage

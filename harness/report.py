@@ -42,7 +42,24 @@ SHORT_NAMES = {
     "energy-consistency": "Econs",
     "reference-energy": "Eref",
     "aufbau": "aufb",
+    "basis": "AO",
+    "stability": "stab",
+    "spin-squared": "S²",
+    "energy-error-bound": "Eerr",
+    "kinetic": "T",
+    "nuclear-attraction": "V",
+    "core-hamiltonian": "H",
+    "overlap-definite": "S>0",
+    "kinetic-definite": "T>0",
+    "two-electron": "ERI",
+    "two-electron-symmetry": "ERIsym",
+    "two-electron-schwarz": "Schwarz",
+    "two-electron-definite": "ERI≥0",
+    "history": "hist",
 }
+
+#: Width of one check column in the verdict table (a ``.0e`` value and a mark).
+COLUMN_WIDTH = 8
 
 
 def make_console(file=None, *, width: int | None = None) -> Console:
@@ -117,14 +134,25 @@ def _cell(check: CheckResult | None, marks: tuple[str, str]) -> Text:
     return Text(value + (marks[0] if ok else marks[1]), style="green" if ok else "bold red")
 
 
-def verdict_table(cases: Sequence[CaseResult], console: Console | None = None) -> Table:
+def verdict_tables(cases: Sequence[CaseResult], console: Console | None = None,
+                   width: int = PLAIN_WIDTH) -> list[Table]:
+    """The verdict table split into panels of check columns that fit ``width``."""
+    names = shown_checks(cases)
+    case_width = max([len("case")] + [len(r.name) for r in cases]) + 1
+    per_panel = max(1, (width - case_width) // COLUMN_WIDTH)
+    return [verdict_table(cases, console, names=names[i:i + per_panel])
+            for i in range(0, len(names), per_panel)]
+
+
+def verdict_table(cases: Sequence[CaseResult], console: Console | None = None,
+                  names: Sequence[str] | None = None) -> Table:
     """Rows = cases, columns = the checks in CHECK_NAMES order; each cell the measured
     value (``.0e``) with ✓/✗, or ``n.a.`` / ``skip``; ``·`` when the check did not run."""
     marks = _marks(console) if console is not None else ("✓", "✗")
     table = Table(box=box.SIMPLE_HEAD, padding=(0, 1), pad_edge=False, show_edge=False,
                   collapse_padding=True)
     table.add_column("case", no_wrap=True, overflow="ellipsis")
-    names = shown_checks(cases)
+    names = shown_checks(cases) if names is None else list(names)
     for name in names:
         table.add_column(SHORT_NAMES.get(name, name), justify="right", no_wrap=True)
     for result in cases:
@@ -160,7 +188,11 @@ def render(outcome, console: Console, *, quiet: bool = False) -> None:
     """Print the final report: the verdict table (unless quiet), the failing checks'
     messages and hints per failed case, then ``N passed, M failed`` alone on a line."""
     if outcome.cases and not quiet:
-        console.print(verdict_table(outcome.cases, console))
+        for k, table in enumerate(verdict_tables(outcome.cases, console,
+                                                 min(console.width, PLAIN_WIDTH))):
+            if k:
+                console.print()
+            console.print(table)
         for line in _legend_lines(min(console.width, PLAIN_WIDTH), shown_checks(outcome.cases)):
             console.print(Text(line, style="dim"), soft_wrap=True)
     failed_cases = [c for c in outcome.cases if not c.passed]

@@ -137,6 +137,7 @@ class CaseResult:
     plugin_seconds: float | None = None
     check_seconds: float | None = None
     reference_source: str | None = None  #: "stored" or "computed"
+    analysis: dict = dataclasses.field(default_factory=dict, compare=False)
 
     @property
     def passed(self) -> bool:
@@ -168,6 +169,7 @@ class CaseResult:
             "timings": {"plugin_seconds": self.plugin_seconds,
                         "check_seconds": self.check_seconds},
             "checks": [c.to_json() for c in self.checks],
+            "analysis": self.analysis,
         }
 
     @classmethod
@@ -179,4 +181,5 @@ class CaseResult:
                    reference_energy=data.get("reference_energy"),
                    plugin_seconds=timings.get("plugin_seconds"),
                    check_seconds=timings.get("check_seconds"),
-                   reference_source=data.get("reference_source"))
+                   reference_source=data.get("reference_source"),
+                   analysis=data.get("analysis") or {})

@@ -191,10 +191,10 @@ def _reference(case, directory, write: bool):
     return reference_for(case, directory, write=write)
 
 
-def _evaluate(problem, extracted, reference, tolerances) -> tuple[CheckResult, ...]:
-    """``harness.evaluate.evaluate``, imported when first needed."""
-    from harness.evaluate import evaluate
-    return evaluate(problem, extracted, reference, tolerances)
+def _evaluate(problem, extracted, reference, tolerances, options):
+    """``harness.evaluate.evaluate_case``, imported when first needed."""
+    from harness.evaluate import evaluate_case
+    return evaluate_case(problem, extracted, reference, tolerances, **options)
 
 
 def death_reason(exitcode: int | None) -> str:
@@ -230,7 +230,7 @@ def _base_result(case, **fields) -> CaseResult:
 
 
 def _finish(run: _Running, message: dict | None, error: str | None,
-            tolerances) -> CaseResult:
+            tolerances, options) -> CaseResult:
     """Turn what the child sent (or why it sent nothing) into a CaseResult."""
     common = dict(reference_energy=_ref_energy(run), reference_source=run.reference_source)
     if error is None and message is not None and "error" in message:
@@ -243,7 +243,8 @@ def _finish(run: _Running, message: dict | None, error: str | None,
     energy = energy if isinstance(energy, float) else None
     start = time.perf_counter()
     try:
-        checks = tuple(_evaluate(run.problem, extracted, run.reference, tolerances))
+        verdict = _evaluate(run.problem, extracted, run.reference, tolerances, options)
+        checks = verdict.checks
     except Exception as exc:
         frame = plugin_frame(exc.__traceback__)  # innermost check-code frame
         where = f"{frame.name} ({frame.filename}:{frame.lineno})" if frame else "evaluate"
@@ -257,7 +258,8 @@ def _finish(run: _Running, message: dict | None, error: str | None,
                    f"{run.reference_error}") if c.name == "reference-energy" else c
             for c in checks)
     return _base_result(run.case, checks=checks, energy=energy, plugin_seconds=seconds,
-                        check_seconds=time.perf_counter() - start, **common)
+                        check_seconds=time.perf_counter() - start, analysis=verdict.analysis,
+                        **common)
 
 
 def _append_jsonl(path: Path | None, result: CaseResult) -> None:
@@ -285,6 +287,7 @@ def _stop(run: _Running, *, grace: float) -> None:
 
 
 def run_cases(cases: Iterable, plugin_spec: str, *, tolerances, convergence: float | None = None,
+              ao_convention: str | None = None, stability: str = "internal",
               timeout: float = DEFAULT_TIMEOUT, jobs: int = 1, reference_dir=None,
               write_references: bool = False, results_path=None,
               on_start: Callable[[str], None] | None = None,
@@ -300,8 +303,11 @@ def run_cases(cases: Iterable, plugin_spec: str, *, tolerances, convergence: flo
     when a case starts, ``on_result(case_result)`` when it is finished. Ctrl-C stops
     the children and returns the finished cases with ``interrupted=True``.
 
+    ``ao_convention`` and ``stability`` are passed to ``harness.evaluate.evaluate_case``.
+
     Raises ``PluginLoadError`` before running anything if the spec cannot be loaded.
     """
+    options = {"ao_convention": ao_convention, "stability": stability}
     cases = list(cases)
     jobs = max(1, int(jobs))
     load_plugin(plugin_spec)  # fail early, in one line, on a bad spec
@@ -362,7 +368,7 @@ def run_cases(cases: Iterable, plugin_spec: str, *, tolerances, convergence: flo
         _stop(run, grace=TERMINATE_GRACE)
         if not isinstance(message, dict) and error is None:
             error = f"plug-in process sent an unexpected message ({type(message).__name__})"
-        record(run.index, _finish(run, message, error, tolerances))
+        record(run.index, _finish(run, message, error, tolerances, options))
 
     try:
         while pending or running:

@@ -123,7 +123,11 @@ class TestUsageErrors:
     @pytest.mark.parametrize("tol, message", [
         ("foo=1", "--tol: unknown check 'foo' (known: overlap, orthonormality, idempotency, "
                   "electron-count, density-consistency, stationarity, self-consistency, "
-                  "roothaan-hall, energy-consistency, reference-energy, aufbau)"),
+                  "roothaan-hall, energy-consistency, reference-energy, aufbau, stability, "
+                  "spin-squared, energy-error-bound, kinetic, "
+                  "nuclear-attraction, core-hamiltonian, overlap-definite, kinetic-definite, "
+                  "two-electron, two-electron-symmetry, two-electron-schwarz, "
+                  "two-electron-definite)"),
         ("stationarity", "--tol: expected NAME=VALUE, got 'stationarity'"),
         ("stationarity=abc", "--tol: tolerance for stationarity must be a number, got 'abc'"),
         ("stationarity=-1", "--tol: tolerance for stationarity must be positive and finite, "

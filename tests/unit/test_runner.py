@@ -15,6 +15,8 @@ from pathlib import Path
 
 import pytest
 
+from harness.evaluate import Verdict
+
 from harness import runner
 from harness.errors import PluginLoadError
 from harness.problem import Problem
@@ -55,7 +57,7 @@ class FakeReference:
     energies: dict
 
 
-def fake_evaluate(problem, extracted, reference, tolerances):
+def fake_evaluate(problem, extracted, reference, tolerances, options=None):
     """Passes when the plug-in sent an energy; reference-energy compares it if given."""
     energy = extracted.get("energy")
     ok = isinstance(energy, float)
@@ -69,7 +71,7 @@ def fake_evaluate(problem, extracted, reference, tolerances):
         checks.append(CheckResult("reference-energy",
                                   Status.PASSED if diff <= 1e-3 else Status.FAILED,
                                   diff, 1e-3, f"reference-energy: {diff:.1e}"))
-    return tuple(checks)
+    return Verdict(checks=tuple(checks), analysis={})
 
 
 @pytest.fixture(autouse=True)
@@ -167,11 +169,11 @@ class TestRunCases:
         """An exception in the harness's own checks fails that case only."""
         calls = []
 
-        def flaky(problem, extracted, reference, tolerances):
+        def flaky(problem, extracted, reference, tolerances, options):
             calls.append(problem.name)
             if problem.name == "first":
                 raise RuntimeError("kernel broke")
-            return fake_evaluate(problem, extracted, reference, tolerances)
+            return fake_evaluate(problem, extracted, reference, tolerances, options)
 
         monkeypatch.setattr(runner, "_evaluate", flaky)
         out = run("constant", names=("first", "second"))

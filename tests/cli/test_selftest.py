@@ -1,0 +1,143 @@
+"""``scf-harness selftest``: filtering, the table, the per-check summary, exit codes.
+
+The core planted entries (harness.planted.core) must all match; the mismatch and error
+paths are exercised with a fake catalogue (monkeypatched), so they do not depend on which
+other planted modules are wired into evaluate yet.
+"""
+
+from __future__ import annotations
+
+import io
+import subprocess
+import sys
+
+import pytest
+
+from harness import planted
+from harness import selftest as st
+from harness.cli import main
+from harness.planted import Planted
+from harness.planted import core
+from harness.report import make_console
+
+from test_cli import environment
+
+RHF = "water-sto-3g-rhf"
+
+
+def console_text():
+    buffer = io.StringIO()
+    return buffer, make_console(buffer, width=200)
+
+
+@pytest.fixture(scope="module")
+def core_run():
+    buffer, console = console_text()
+    outcome = st.run_selftest(console, only="core")
+    return outcome, buffer.getvalue()
+
+
+class TestCore:
+    """The self-test over the core entries. Whether each core entry's expectation is
+    up to date is tests/quality/test_planted_bugs.py's business; here the verdict of the
+    self-test must agree with the failing set evaluate produced, entry by entry."""
+
+    def test_verdicts_agree_with_the_failing_sets(self, core_run):
+        outcome, text = core_run
+        assert len(outcome.entries) == len(core.CATALOGUE)
+        for o in outcome.entries:
+            assert o.error is None
+            assert o.matched == (o.failed == o.entry.fails), o.entry.name
+        assert outcome.n_passed > len(core.CATALOGUE) // 2  # most entries are up to date
+        assert outcome.exit_code == (0 if outcome.n_failed == 0 else 1)
+        assert text.rstrip().splitlines()[-1] == (
+            f"{outcome.n_passed} passed, {outcome.n_failed} failed")
+
+    def test_summary_counts_the_planted_bugs_per_check(self, core_run):
+        outcome, text = core_run
+        meant = [o for o in outcome.entries if "stationarity" in o.entry.fails]
+        caught = sum("stationarity" in o.failed for o in meant)
+        assert meant
+        assert f"stationarity: caught {caught} of {len(meant)} planted bugs meant for it" in text
+        correct = [o for o in outcome.entries if o.entry.correct]
+        assert (f"correct variants: {sum(o.matched for o in correct)} of {len(correct)} pass"
+                in text)
+
+    def test_table_rows(self, core_run):
+        _, text = core_run
+        row = next(line for line in text.splitlines()
+                   if line.startswith(f"wrong_exchange_factor @ {RHF}"))
+        assert "✓ caught" in row and "energy-consistency," in row
+        row = next(line for line in text.splitlines()
+                   if line.startswith(f"random_mo_phases @ {RHF}"))
+        assert "(none)" in row and "✓ passes" in row
+
+
+def _boom(problem):
+    raise RuntimeError("planted crash")
+
+
+FAKE = (
+    Planted("energies_in_ev", core.energies_in_ev, RHF, frozenset({"roothaan-hall"}),
+            "eV energies"),
+    Planted("wrong_exchange_factor", core.wrong_exchange_factor, RHF,
+            frozenset({"aufbau", "self-consistency"}), "wrong expectation"),
+    Planted("random_mo_phases", core.random_mo_phases, RHF, frozenset(), "needs a hint",
+            hint="no such hint", hint_check="stationarity"),
+    Planted("boom", _boom, RHF, frozenset(), "raises"),
+)
+
+
+class TestMismatch:
+    def test_mismatches_and_errors_reported(self, monkeypatch):
+        monkeypatch.setattr(planted, "catalogue", lambda: FAKE)
+        buffer, console = console_text()
+        outcome = st.run_selftest(console)
+        text = buffer.getvalue()
+        assert [o.matched for o in outcome.entries] == [True, False, False, False]
+        assert outcome.exit_code == 1
+        assert text.rstrip().splitlines()[-1] == "1 passed, 3 failed"
+        assert outcome.entries[1].mismatches == (
+            "also failed: energy-consistency, reference-energy", "did not fail: aufbau")
+        assert outcome.entries[2].mismatches == (
+            "hint on stationarity: expected 'no such hint', got none",)
+        assert outcome.entries[3].error.startswith("RuntimeError: planted crash (")
+        assert "aufbau: caught 0 of 1 planted bug meant for it" in text
+        assert "hint on stationarity: given in 0 of 1 planted bug meant for it" in text
+
+    def test_convention_expected_without_basis_check(self):
+        entry = Planted("x", core.random_mo_phases, RHF, frozenset(), "n", convention="y,z,x")
+        assert st.compare(entry, {}) == ("no basis check to report the AO convention",)
+
+    def test_main_exit_code_one(self, monkeypatch, capsys):
+        monkeypatch.setattr(planted, "catalogue", lambda: FAKE)
+        assert main(["selftest", "--only", "wrong_exchange"]) == 1
+        lines = capsys.readouterr().out.rstrip().splitlines()
+        assert lines[-1] == "0 passed, 1 failed"
+
+    def test_only_by_module_and_substring(self):
+        entries = planted.catalogue()
+        by_module = st.select(entries, "core")
+        assert by_module and all(e.solve.__module__ == "harness.planted.core" for e in by_module)
+        water = st.select(entries, "@ oh-sto-3g-uhf")
+        assert water and {e.case for e in water} == {"oh-sto-3g-uhf"}
+
+
+class TestCommandLine:
+    def run(self, *args, cwd):
+        return subprocess.run([sys.executable, "-m", "harness", "selftest", *args], cwd=cwd,
+                              env=environment(), capture_output=True, text=True, timeout=300)
+
+    def test_filtered_run_exit_zero(self, tmp_path):
+        result = self.run("--only", "planted.core:energies_in_ev", cwd=tmp_path)
+        assert result.returncode == 0, result.stdout + result.stderr
+        lines = result.stdout.rstrip().splitlines()
+        assert lines[-1] == "2 passed, 0 failed"
+        assert "roothaan-hall: caught 2 of 2 planted bugs meant for it" in result.stdout
+
+    def test_no_match_is_a_usage_error(self, tmp_path):
+        result = self.run("--only", "no-such-entry", cwd=tmp_path)
+        assert result.returncode == 2
+        assert result.stderr.strip() == ("scf-harness: error: --only: no planted entry "
+                                         "matches 'no-such-entry'")
+        assert result.stdout == ""
