@@ -16,7 +16,13 @@ from harness.problem import Problem
 from harness.results import Status
 from harness.tolerances import CHECK_NAMES, FIXED, INTEGRAL_CHECK_NAMES, Tolerances
 
-from conftest import WATER_COORDS, WATER_NUMBERS
+# Water geometry (bohr): Crawford group "Programming Projects", Project #3, water/STO-3G
+# (the same geometry as tests/unit/conftest.py; not imported from there, since several
+# test folders have a conftest module).
+WATER_NUMBERS = (8, 1, 1)
+WATER_COORDS = ((0.0, -0.143225816552, 0.0),
+                (1.638036840407, 1.136548822547, 0.0),
+                (-1.638036840407, 1.136548822547, 0.0))
 
 CASE = "water-sto-3g-rhf"
 
