@@ -1,0 +1,145 @@
+"""The [tool.scf-harness] table and the --scf-… flags: parsing, precedence, errors.
+
+No SCF runs here: these are the rules of harness.config. Units: tolerances absolute
+(Eh for energies), timeout in seconds.
+"""
+
+from __future__ import annotations
+
+import pytest
+
+from harness import config
+from harness.config import ConfigError, Settings
+
+
+def write(tmp_path, text: str):
+    path = tmp_path / "pyproject.toml"
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def test_defaults_match_the_modules_they_mirror():
+    from harness import cli, problem, runner
+
+    assert config.DEFAULT_SUITE == cli.DEFAULT_SUITE
+    assert config.DEFAULT_TIMEOUT == runner.DEFAULT_TIMEOUT
+    assert config.DEFAULT_CONVERGENCE == problem.DEFAULT_CONVERGENCE
+
+
+def test_table_is_read_and_validated(tmp_path):
+    path = write(tmp_path, """
+[tool.scf-harness]
+plugin = "mypkg.scf:solve"
+suite = ["smoke", "standard", "smoke"]
+tolerances = { stationarity = 1e-5, "reference-energy" = 2e-6 }
+timeout = 30
+convergence = 1e-7
+stability = "Internal"
+""")
+    s = config.load_settings(path, {})
+    assert s.plugin == "mypkg.scf:solve"
+    assert s.suites == ("smoke", "standard")
+    assert s.tolerances == {"stationarity": 1e-5, "reference-energy": 2e-6}
+    assert (s.timeout, s.convergence, s.stability) == (30.0, 1e-7, "internal")
+    assert s.source == str(path) and s.active
+
+
+def test_no_table_means_defaults(tmp_path):
+    s = config.load_settings(write(tmp_path, "[project]\nname = 'x'\n"), {})
+    assert s == Settings(source=s.source)
+    assert not s.active and s.suites == (config.DEFAULT_SUITE,)
+
+
+def test_flag_wins_over_key_and_tolerances_merge_per_check(tmp_path):
+    path = write(tmp_path, """
+[tool.scf-harness]
+plugin = "a:solve"
+suite = "standard"
+tolerances = { stationarity = 1e-5, "reference-energy" = 2e-6 }
+timeout = 30
+""")
+    flags = config.parse_flags(plugin="b:solve", suites=["smoke"],
+                               tolerances=["reference-energy=1e-4"], timeout="5")
+    s = config.load_settings(path, flags)
+    assert s.plugin == "b:solve" and s.suites == ("smoke",) and s.timeout == 5.0
+    assert s.tolerances == {"stationarity": 1e-5, "reference-energy": 1e-4}
+    assert s.from_flags == {"plugin", "suite", "tolerances", "timeout"}
+
+
+@pytest.mark.parametrize("table, words", [
+    ('plugn = "a:b"', "plugn: unknown key (did you mean 'plugin'?)"),
+    ('plugin = "no-colon"', "plugin: expected MODULE:FUNCTION"),
+    ('suite = []', "suite: expected a suite name or a list of suite names"),
+    ('timeout = -1', "timeout: expected a positive number of seconds, got -1"),
+    ('timeout = true', "timeout: expected a number, got True"),
+    ('convergence = 2', "convergence: expected a number in (0, 1), got 2"),
+    ('stability = "sometimes"', "stability: expected one of internal, external, off"),
+    ('tolerances = { stationarty = 1e-5 }', "tolerances: unknown check 'stationarty'"),
+    ('tolerances = { stationarity = -1 }', "tolerances: tolerance for stationarity must be "
+                                           "positive and finite, got -1"),
+])
+def test_bad_keys_give_one_line_naming_file_and_key(tmp_path, table, words):
+    path = write(tmp_path, f"[tool.scf-harness]\n{table}\n")
+    with pytest.raises(ConfigError) as info:
+        config.load_settings(path, {})
+    message = str(info.value)
+    assert "\n" not in message
+    assert message.startswith(f"{path}: [tool.scf-harness]: ")
+    assert words in message
+
+
+def test_bad_flags_name_the_flag():
+    with pytest.raises(ConfigError, match=r"^--scf-timeout: expected a number, got 'soon'$"):
+        config.parse_flags(timeout="soon")
+    with pytest.raises(ConfigError, match=r"^--scf-tol: expected NAME=VALUE"):
+        config.parse_flags(tolerances=["stationarity"])
+    with pytest.raises(ConfigError, match=r"^--scf-convergence: expected a number in"):
+        config.parse_flags(convergence="1.5")
+
+
+def test_invalid_toml_is_one_line(tmp_path):
+    path = write(tmp_path, "[tool.scf-harness\nplugin = 1\n")
+    with pytest.raises(ConfigError, match="not valid TOML") as info:
+        config.read_table(path)
+    assert "\n" not in str(info.value)
+
+
+def test_pyproject_is_found_from_pytest_paths_never_the_cwd(tmp_path, monkeypatch):
+    here = tmp_path / "cwd"
+    here.mkdir()
+    write(here, "[tool.scf-harness]\nplugin = 'a:b'\n")
+    root = tmp_path / "root"
+    root.mkdir()
+    monkeypatch.chdir(here)
+    assert config.pyproject_for(root, None) is None
+    ini = root / "pytest.ini"
+    ini.write_text("[pytest]\n")
+    assert config.pyproject_for(root, ini) is None
+    own = write(root, "[project]\nname = 'x'\n")
+    assert config.pyproject_for(root, ini) == own
+    other = tmp_path / "elsewhere" / "pyproject.toml"
+    assert config.pyproject_for(root, other) == other
+
+
+def test_reproduce_command_carries_the_non_default_settings():
+    s = Settings(plugin="path/my scf.py:solve", tolerances={"stationarity": 1e-5,
+                                                            "aufbau": 2e-6},
+                 convergence=1e-7, timeout=30.0)
+    assert s.reproduce_command("water-sto-3g-rhf") == (
+        "scf-harness certify 'path/my scf.py:solve' --case water-sto-3g-rhf "
+        "--tol aufbau=2e-06 --tol stationarity=1e-05 --convergence 1e-07 --timeout 30")
+    assert Settings(plugin="m:f").reproduce_command("h2-sto-3g-rhf") == \
+        "scf-harness certify m:f --case h2-sto-3g-rhf"
+
+
+def test_reproduce_command_is_accepted_by_the_cli():
+    """Every part of the command parses with scf-harness's own parser."""
+    import shlex
+
+    from harness.cli import build_parser
+
+    s = Settings(plugin="m:f", tolerances={"stationarity": 1e-5}, convergence=1e-7,
+                 timeout=30.0)
+    args = build_parser().parse_args(shlex.split(s.reproduce_command("h2-sto-3g-rhf"))[1:])
+    assert (args.plugin, args.case_names, args.tol, args.convergence, args.timeout) == (
+        "m:f", ["h2-sto-3g-rhf"], ["stationarity=1e-05"], 1e-7, 30.0)
