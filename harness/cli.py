@@ -1,8 +1,11 @@
-"""The ``scf-harness`` command line: certify a plug-in, manage references, list cases.
+"""The ``scf-harness`` command line: certify a plug-in or an external code, check a
+solution file, write and verify certificates, bench an accelerator, manage references,
+list cases.
 
 Exit status: 0 when every case passed, 1 when a case failed or the run was
-interrupted (or ``references verify`` found a mismatch), 2 for usage and setup errors
-(bad plug-in spec, unknown suite or case, bad tolerance, unreadable cases file),
+interrupted (or ``references verify`` / ``verify-certificate`` found a mismatch, or
+the bench found the accelerator worse), 2 for usage and setup errors (bad plug-in
+spec, unknown suite or case, bad tolerance, unreadable cases file, missing file),
 reported as one line ``scf-harness: error: <message>`` on stderr, without traceback.
 Atomic units throughout: bohr, hartree (Eh); times in seconds.
 """
@@ -69,6 +72,48 @@ def _positive_int(text: str) -> int:
     return n
 
 
+def _nonnegative_int(text: str) -> int:
+    try:
+        n = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected an integer >= 0, got {text!r}") from None
+    if n < 0:
+        raise argparse.ArgumentTypeError(f"expected an integer >= 0, got {text!r}")
+    return n
+
+
+def _baselines(text: str) -> tuple[str, ...]:
+    from harness.accelerators import BASELINE_NAMES
+
+    names = tuple(n.strip() for n in text.split(",") if n.strip())
+    if not names:
+        raise argparse.ArgumentTypeError(f"expected a comma-separated list of baselines "
+                                         f"(known: {', '.join(BASELINE_NAMES)}), got {text!r}")
+    for name in names:
+        if name not in BASELINE_NAMES:
+            raise argparse.ArgumentTypeError(f"unknown baseline {name!r} (known: "
+                                             f"{', '.join(BASELINE_NAMES)})")
+    return names
+
+
+def _add_checking(group) -> None:
+    """Options shared by certify and check-result: tolerances, AO convention, stability."""
+    from harness.conventions import NAMED
+    from harness.evaluate import STABILITY_MODES
+
+    group.add_argument("--tol", action="append", default=[], metavar="CHECK=VALUE",
+                       help="override the tolerance of one check (repeatable), e.g. "
+                       "reference-energy=1e-5 (Eh for energies; default: the documented "
+                       "values in harness.tolerances)")
+    group.add_argument("--ao-convention", choices=NAMED, default=None, metavar="NAME",
+                       help="the code's AO convention (order, signs, normalisation), "
+                       f"one of {', '.join(NAMED)}; applied as given (default: detected "
+                       "from the reported overlap matrix, else pyscf's order)")
+    group.add_argument("--stability", choices=STABILITY_MODES, default="internal",
+                       help="stability analysis of the converged state: internal (same "
+                       "method), external (RHF also against UHF) or off (default: internal)")
+
+
 def _add_selection(parser: argparse.ArgumentParser, default_text: str):
     group = parser.add_argument_group("which cases")
     group.add_argument("--suite", action="append", dest="suites", default=None, metavar="NAME",
@@ -93,10 +138,11 @@ def build_parser() -> argparse.ArgumentParser:
                           description="Run PLUGIN on each case in its own process, check "
                           "the result and print a verdict per case. Exit 0 if all cases "
                           "passed, 1 otherwise, 2 for usage errors.")
-    cert.add_argument("plugin", nargs="?", default=DEFAULT_PLUGIN, metavar="PLUGIN",
+    cert.add_argument("plugin", nargs="?", default=None, metavar="PLUGIN",
                       help="MODULE:FUNCTION or path/to/file.py:FUNCTION; the function takes "
                       f"a Problem (bohr) and returns the solution mapping (Eh) "
-                      f"(default: {DEFAULT_PLUGIN}, the bundled example SCF code)")
+                      f"(default: {DEFAULT_PLUGIN}, the bundled example SCF code; not "
+                      "together with --command)")
     which = _add_selection(cert, f"{DEFAULT_SUITE}, unless --case or --cases-file is given")
     which.add_argument("--cases-file", type=Path, metavar="FILE",
                       help="a TOML suite file of your own ([[case]] tables as in the catalogue; "
@@ -106,14 +152,24 @@ def build_parser() -> argparse.ArgumentParser:
                      help="stationarity asked of the plug-in: max|X^T (F P S - S P F) X| with "
                      "X = S^-1/2, dimensionless in Eh-based atomic units "
                      f"(default: {DEFAULT_CONVERGENCE:g})")
-    run.add_argument("--tol", action="append", default=[], metavar="CHECK=VALUE",
-                     help="override the tolerance of one check (repeatable), e.g. "
-                     "reference-energy=1e-5 (Eh for energies; default: the documented "
-                     "values in harness.tolerances)")
+    _add_checking(run)
     run.add_argument("--timeout", type=_positive_float, default=600.0, metavar="S",
                      help="seconds allowed for the plug-in on one case (default: 600)")
     run.add_argument("--jobs", type=_positive_int, default=1, metavar="N",
                      help="cases run at once, each in its own process (default: 1)")
+    ext = cert.add_argument_group("an external code instead of PLUGIN")
+    ext.add_argument("--command", dest="command_template", metavar="TEMPLATE",
+                     help="run this command per case in a scratch folder, e.g. \"./my_scf "
+                     "--in {problem} --out {solution}\"; placeholders {problem} (JSON, bohr), "
+                     "{geometry} (XYZ, angstrom), {basis} (NWChem format), {ao_order}, {dir}, "
+                     "{solution} (default file solution.npz; Eh); see harness.external "
+                     "(default: none, PLUGIN is run)")
+    ext.add_argument("--scratch", type=Path, metavar="DIR",
+                     help="where the per-case scratch folders are made (default: the "
+                     "system's temporary folder)")
+    ext.add_argument("--keep-scratch", action="store_true",
+                     help="keep the scratch folders (default: remove them after reading "
+                     "the solution)")
     out = cert.add_argument_group("output and references")
     out.add_argument("--json", type=Path, metavar="FILE",
                      help="write the results as JSON to FILE (results are also appended to "
@@ -122,8 +178,97 @@ def build_parser() -> argparse.ArgumentParser:
                      help=REFERENCES_HELP)
     out.add_argument("--write-references", action="store_true",
                      help="store references computed during the run (default: do not)")
+    out.add_argument("--certificate", type=Path, metavar="FILE",
+                     help="write a certificate of the verdicts to FILE (JSON) with the "
+                     "solution arrays beside it in FILE's stem + .solutions.npz (default: "
+                     "none)")
     out.add_argument("--quiet", action="store_true",
                      help="no progress lines and no table: only failures and the summary")
+
+    chk = sub.add_parser("check-result", help="check a solution file written by any code",
+                         description="Check a solution file (.npz, .json, .h5, or .molden "
+                         "with an energy file; energies in Eh) for the molecule of an XYZ "
+                         "file, with the same checks and the same report as certify. Exit "
+                         "0 if the case passed, 1 if it failed (also for an unreadable "
+                         "solution file), 2 for usage errors.")
+    chk.add_argument("file", type=Path, metavar="FILE",
+                     help="the solution file (.npz, .json, .h5/.hdf5, .molden)")
+    mol = chk.add_argument_group("the case")
+    mol.add_argument("--geometry", type=Path, required=True, metavar="XYZ",
+                     help="XYZ file of the molecule (angstrom, or bohr with units=bohr on "
+                     "its comment line; required)")
+    mol.add_argument("--basis", required=True, metavar="NAME",
+                     help="basis set name as pyscf knows it, e.g. sto-3g (required)")
+    mol.add_argument("--method", required=True, choices=("rhf", "uhf", "rohf"),
+                     help="rhf, uhf or rohf (required)")
+    mol.add_argument("--charge", type=int, default=0, metavar="Q",
+                     help="total charge in units of e (default: 0)")
+    mol.add_argument("--multiplicity", type=_positive_int, default=1, metavar="M",
+                     help="spin multiplicity 2S+1 (default: 1)")
+    mol.add_argument("--cartesian", action="store_true",
+                     help="cartesian d, f, ... functions (default: spherical)")
+    mol.add_argument("--name", metavar="N",
+                     help="the case's name (default: <xyz stem>-<basis>-<method>)")
+    mol.add_argument("--energy-file", type=Path, metavar="F",
+                     help="for a .molden file: the JSON file with the energy (Eh) "
+                     "(default: the Molden file's name with .json)")
+    how = chk.add_argument_group("how to check")
+    how.add_argument("--convergence", type=_convergence, metavar="X",
+                     help="stationarity the code was asked for: max|X^T (F P S - S P F) X| "
+                     f"with X = S^-1/2, dimensionless (default: {DEFAULT_CONVERGENCE:g})")
+    _add_checking(how)
+    cout = chk.add_argument_group("output and references")
+    cout.add_argument("--json", type=Path, metavar="FILE",
+                      help="write the result as JSON to FILE (default: none)")
+    cout.add_argument("--certificate", type=Path, metavar="FILE",
+                      help="write a certificate of the verdict to FILE (default: none)")
+    cout.add_argument("--references", type=Path, metavar="DIR", help=REFERENCES_HELP +
+                      "; a case without a matching stored reference gets one computed")
+    cout.add_argument("--quiet", action="store_true",
+                      help="no table: only failures and the summary")
+
+    ver = sub.add_parser("verify-certificate", help="check that a certificate is intact "
+                         "(and, with --recompute, reproduce it)",
+                         description="Check a certificate's hashes and its solution file; "
+                         "with --recompute also re-run every check on the stored solutions. "
+                         "Exit 0 if intact (and reproduced), 1 with one line per problem "
+                         "otherwise, 2 if FILE does not exist.")
+    ver.add_argument("certificate", type=Path, metavar="FILE", help="the certificate (JSON)")
+    ver.add_argument("--recompute", action="store_true",
+                     help="re-run the checks on the stored solutions and compare every "
+                     "verdict and value (default: no; computes missing references)")
+    ver.add_argument("--references", type=Path, metavar="DIR",
+                     help=REFERENCES_HELP + "; used with --recompute")
+    ver.add_argument("--markdown", type=Path, metavar="OUT",
+                     help="also write a Markdown summary for a reviewer to OUT (default: "
+                     "none)")
+
+    from harness import bench as _bench
+
+    ben = sub.add_parser("bench", help="bench a convergence accelerator against baselines",
+                         description="Run your accelerator and the baselines in the "
+                         "harness's SCF loop from the same starting guesses, and compare "
+                         "convergence, ground-state rate and Fock builds. Exit 0 when the "
+                         "accelerator is nowhere worse than the best baseline and its "
+                         "properties hold, 1 otherwise, 2 for usage errors. Energies in Eh, "
+                         "times in s.")
+    ben.add_argument("accelerator", metavar="MODULE:ACCELERATOR",
+                     help="the accelerator class or instance, e.g. "
+                     "harness.example_accelerator:CommutatorDIIS (see harness.accelerators)")
+    ben.add_argument("--suite", default=DEFAULT_SUITE, metavar="NAME",
+                     help=f"a catalogue suite or the bench suite 'hard' (default: "
+                     f"{DEFAULT_SUITE})")
+    ben.add_argument("--guesses", type=_nonnegative_int, default=_bench.DEFAULT_GUESSES,
+                     metavar="N", help="perturbed starting guesses per case, besides the "
+                     f"default guess (default: {_bench.DEFAULT_GUESSES})")
+    ben.add_argument("--seed", type=int, default=0, metavar="S",
+                     help="seed of the perturbed guesses (default: 0)")
+    ben.add_argument("--report", type=Path, metavar="DIR",
+                     help="write bench.jsonl, bench.json, plots and index.html to DIR "
+                     "(default: none)")
+    ben.add_argument("--baselines", type=_baselines, default=None, metavar="A,B,...",
+                     help="the baselines to run, comma-separated (default: all of "
+                     f"{', '.join(_bench.DEFAULT_BASELINES)})")
 
     refs = sub.add_parser("references", help="build or verify the stored pyscf references",
                           description="Build or verify the stored pyscf references.")
@@ -218,18 +363,55 @@ def _sigterm_as_interrupt():
         signal.signal(signal.SIGTERM, previous)
 
 
-def _certify(args, console) -> int:
-    from harness import report
-    from harness.plugins import load_plugin
-    from harness.runner import run_cases
+def _tolerances(args):
     from harness.tolerances import Tolerances, parse_override
 
-    overrides = dict(parse_override(text) for text in args.tol)
-    tolerances = Tolerances(overrides=overrides)
+    return Tolerances(overrides=dict(parse_override(text) for text in args.tol))
+
+
+def _plugin(args):
+    """(what certify runs: a spec string or a CommandPlugin, the label reports name)."""
+    if args.command_template is None:
+        if args.scratch is not None or args.keep_scratch:
+            raise UsageError("--scratch and --keep-scratch need --command")
+        spec = args.plugin if args.plugin is not None else DEFAULT_PLUGIN
+        return spec, spec
+    if args.plugin is not None:
+        raise UsageError(f"give either PLUGIN ({args.plugin}) or --command, not both")
+    from harness.external import CommandPlugin
+
+    scratch = args.scratch.resolve() if args.scratch is not None else None
+    plugin = CommandPlugin(args.command_template, scratch_root=scratch,
+                           keep=args.keep_scratch)
+    return plugin, f"command: {args.command_template}"
+
+
+def _write_certificate(path: Path, outcome, *, tolerances, plugin: str, console,
+                       quiet: bool) -> None:
+    """Write the certificate of the cases whose problem could be built (the others
+    have no inputs to certify)."""
+    from harness.certificate import sidecar_path, write_certificate
+
+    results = [r for r in outcome.cases if r.name in outcome.problems]
+    write_certificate(path, results, problems=outcome.problems, solutions=outcome.solutions,
+                      references=outcome.references, tolerances=tolerances, plugin=plugin)
+    if not quiet:
+        console.print(f"certificate: {path} (solutions in {sidecar_path(path).name})",
+                      markup=False, soft_wrap=True)
+
+
+def _certify(args, console) -> int:
+    from harness import report
+    from harness.runner import run_cases
+
+    plugin, label = _plugin(args)
+    tolerances = _tolerances(args)
     cases, suite_names = select_cases(args.suites, args.case_names, args.cases_file)
     if not cases:
         raise UsageError("no cases selected")
-    load_plugin(args.plugin)
+    if isinstance(plugin, str):
+        from harness.plugins import load_plugin
+        load_plugin(plugin)
     if (args.references is not None and not args.references.is_dir()
             and not args.write_references):
         raise UsageError(f"--references: not a folder: {args.references}")
@@ -243,14 +425,15 @@ def _certify(args, console) -> int:
 
     selection = ", ".join(suite_names) if suite_names else "selected cases"
     if not args.quiet:
-        console.print(f"scf-harness: {args.plugin} on {len(cases)} case"
+        console.print(f"scf-harness: {label} on {len(cases)} case"
                       f"{'s' if len(cases) != 1 else ''} ({selection}), convergence "
                       f"{convergence:g}, timeout {args.timeout:g} s, jobs {args.jobs}",
                       markup=False, soft_wrap=True)
     on_result = None if args.quiet else (lambda r: report.print_progress(console, r))
     with _sigterm_as_interrupt():
-        outcome = run_cases(cases, args.plugin, tolerances=tolerances,
-                            convergence=args.convergence, timeout=args.timeout,
+        outcome = run_cases(cases, plugin, tolerances=tolerances,
+                            convergence=args.convergence, ao_convention=args.ao_convention,
+                            stability=args.stability, timeout=args.timeout,
                             jobs=args.jobs, reference_dir=args.references,
                             write_references=args.write_references, results_path=partial,
                             on_result=on_result)
@@ -258,7 +441,7 @@ def _certify(args, console) -> int:
             console.print()
         report.render(outcome, console, quiet=args.quiet)
         if args.json is not None:
-            data = report.to_json(outcome, plugin=args.plugin, suite_names=suite_names,
+            data = report.to_json(outcome, plugin=label, suite_names=suite_names,
                                   tolerances_table=tolerances.table(convergence),
                                   versions=report.collect_versions())
             data["convergence"] = convergence
@@ -268,7 +451,134 @@ def _certify(args, console) -> int:
             report.write_json(args.json, data)
             if partial is not None:
                 partial.unlink(missing_ok=True)
+        if args.certificate is not None:
+            _write_certificate(args.certificate, outcome, tolerances=tolerances, plugin=label,
+                               console=console, quiet=args.quiet)
     return 0 if outcome.passed else 1
+
+
+def _check_result(args, console) -> int:
+    """``check-result``: one solution file judged like a certify case."""
+    import time
+
+    from harness import report
+    from harness.files import SolutionFileError, read_solution, result_case
+    from harness.references import reference_for
+    from harness.runner import RunOutcome, judge_solution
+    from harness.results import CaseResult
+    from harness.solution import extract
+
+    started = time.perf_counter()
+    tolerances = _tolerances(args)
+    if not args.file.is_file():
+        raise UsageError(f"{args.file}: file not found")
+    if args.energy_file is not None and not args.energy_file.is_file():
+        raise UsageError(f"--energy-file: {args.energy_file}: file not found")
+    if args.references is not None and not args.references.is_dir():
+        raise UsageError(f"--references: not a folder: {args.references}")
+    case = result_case(geometry=args.geometry, basis=args.basis, method=args.method,
+                       charge=args.charge, multiplicity=args.multiplicity,
+                       cartesian=args.cartesian, name=args.name,
+                       note=f"check-result of {args.file.name}")
+    convergence = args.convergence if args.convergence is not None else DEFAULT_CONVERGENCE
+    problem = case.problem(convergence)
+    if not args.quiet:
+        console.print(f"scf-harness: check-result {args.file} as case {case.name} "
+                      f"({case.method}/{case.basis}), convergence {convergence:g}",
+                      markup=False, soft_wrap=True)
+    reference, source, reference_error = None, None, None
+    try:
+        reference, source = reference_for(case, args.references)
+    except Exception as exc:
+        reference_error = f"{type(exc).__name__}: {exc}".splitlines()[0]
+    extracted = None
+    try:
+        extracted = extract(read_solution(args.file, problem=problem,
+                                          energy_file=args.energy_file))
+    except SolutionFileError as exc:
+        result = CaseResult(name=case.name, method=case.method, basis=case.basis,
+                            error=str(exc), reference_energy=_energy_of(reference),
+                            reference_source=source)
+    else:
+        result = judge_solution(case, problem, extracted, tolerances, reference=reference,
+                                reference_source=source, reference_error=reference_error,
+                                ao_convention=args.ao_convention, stability=args.stability)
+    outcome = RunOutcome(cases=(result,), interrupted=False,
+                         seconds=time.perf_counter() - started,
+                         problems={case.name: problem}, solutions={case.name: extracted},
+                         references={case.name: reference})
+    if not args.quiet:
+        console.print()
+    report.render(outcome, console, quiet=args.quiet)
+    label = f"file: {args.file}"
+    if args.json is not None:
+        data = report.to_json(outcome, plugin=label, suite_names=[],
+                              tolerances_table=tolerances.table(convergence),
+                              versions=report.collect_versions())
+        data["convergence"] = convergence
+        data["solution_file"] = str(args.file)
+        data["geometry_file"] = str(args.geometry)
+        report.write_json(args.json, data)
+    if args.certificate is not None:
+        _write_certificate(args.certificate, outcome, tolerances=tolerances, plugin=label,
+                           console=console, quiet=args.quiet)
+    return 0 if outcome.passed else 1
+
+
+def _energy_of(reference) -> float | None:
+    """The reference's total energy in Eh, if there is a reference."""
+    return float(reference.energy) if reference is not None else None
+
+
+def _verify_certificate(args, console) -> int:
+    """``verify-certificate``: integrity (and, with --recompute, reproduction)."""
+    import json
+
+    from harness.certificate import summary_markdown, verify_certificate
+
+    path = args.certificate
+    if not path.is_file():
+        raise UsageError(f"{path}: file not found")
+    result = verify_certificate(path, recompute=args.recompute,
+                                reference_dir=args.references)
+    console.print(result.summary(), markup=False, soft_wrap=True)
+    for issue in result.issues:
+        console.print(f"  {issue}", markup=False, soft_wrap=True)
+    if args.markdown is not None:
+        try:
+            cert = json.loads(path.read_text(encoding="utf-8"))
+        except (OSError, UnicodeDecodeError, json.JSONDecodeError):
+            cert = None
+        if isinstance(cert, dict):
+            args.markdown.parent.mkdir(parents=True, exist_ok=True)
+            args.markdown.write_text(summary_markdown(cert), encoding="utf-8")
+            console.print(f"summary: {args.markdown}", markup=False, soft_wrap=True)
+        else:
+            console.print(f"summary: not written ({path} is not a readable certificate)",
+                          markup=False, soft_wrap=True)
+    return 0 if result.ok else 1
+
+
+def _bench(args, console) -> int:
+    """``bench``: the accelerator against the baselines (harness.bench)."""
+    from harness import bench
+
+    cases = bench.bench_suite(args.suite)
+    if not cases:
+        raise UsageError(f"--suite: suite {args.suite!r} has no cases")
+
+    def progress(done, total, record):
+        console.print(f"[{done}/{total}] {record.case} guess {record.guess} "
+                      f"{record.method}: {record.status}, {record.fock_builds} Fock builds, "
+                      f"{record.state}", markup=False, highlight=False, soft_wrap=True)
+
+    options = {} if args.baselines is None else {"baselines": args.baselines}
+    outcome = bench.run_bench(args.accelerator, cases=cases, guesses=args.guesses,
+                              seed=args.seed, report_dir=args.report,
+                              references=bench.bench_reference_dir(args.suite),
+                              progress=progress, **options)
+    print("\n".join(bench.summary_lines(outcome)))
+    return outcome.exit_status
 
 
 def _references(args, console) -> int:
@@ -345,6 +655,12 @@ def main(argv: Sequence[str] | None = None) -> int:
             return 2
         if args.command == "certify":
             return _certify(args, console)
+        if args.command == "check-result":
+            return _check_result(args, console)
+        if args.command == "verify-certificate":
+            return _verify_certificate(args, console)
+        if args.command == "bench":
+            return _bench(args, console)
         if args.command == "references":
             return _references(args, console)
         if args.command == "selftest":

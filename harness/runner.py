@@ -2,7 +2,9 @@
 
 The plug-in runs in a child started by multiprocessing's "forkserver" context (not
 "fork": the harness process has used OpenMP through pyscf, and libgomp is not safe to
-fork). The child re-imports the plug-in from its spec, calls it on the case's
+fork). The child re-imports the plug-in from its spec (or, when the plug-in is given
+as a picklable callable such as ``harness.external.CommandPlugin``, receives it
+pickled), calls it on the case's
 ``Problem`` (bohr), normalises the return value with ``harness.solution.extract`` and
 sends it back, or sends a one-line error naming the plug-in's own innermost frame.
 A timeout (seconds), a crash (a signal, an exit), a garbage return value or an
@@ -24,6 +26,7 @@ import traceback
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
+from harness.errors import PluginLoadError
 from harness.plugins import load_plugin
 from harness.results import CaseResult, CheckResult, failed
 
@@ -39,11 +42,20 @@ DEFAULT_TIMEOUT = 600.0
 
 @dataclasses.dataclass(frozen=True)
 class RunOutcome:
-    """The finished cases (input order), whether the run was interrupted, wall time (s)."""
+    """The finished cases (input order), whether the run was interrupted, wall time (s).
+
+    For certificates (``harness.certificate.write_certificate``), keyed by case name:
+    ``problems`` (the ``Problem`` each launched case was given, bohr), ``solutions``
+    (the extracted solution, ``harness.solution.extract``; None when the plug-in sent
+    none) and ``references`` (the ``Reference`` used, or None when there was none).
+    """
 
     cases: tuple[CaseResult, ...]
     interrupted: bool
     seconds: float
+    problems: dict = dataclasses.field(default_factory=dict)
+    solutions: dict = dataclasses.field(default_factory=dict)
+    references: dict = dataclasses.field(default_factory=dict)
 
     @property
     def passed(self) -> bool:
@@ -134,9 +146,11 @@ def _share_cores(jobs: int) -> None:
         pass
 
 
-def _child_main(conn, plugin_spec: str, path: list[str], cwd: str, problem,
+def _child_main(conn, plugin_spec, path: list[str], cwd: str, problem,
                 jobs: int = 1) -> None:
-    """Entry point of the child process: call the plug-in once, send one message."""
+    """Entry point of the child process: call the plug-in once, send one message.
+
+    ``plugin_spec`` is a spec string (imported here) or the plug-in callable itself."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C
     if jobs > 1:
         _share_cores(jobs)
@@ -154,7 +168,7 @@ def _child_main(conn, plugin_spec: str, path: list[str], cwd: str, problem,
     from harness.solution import extract
 
     try:
-        function = load_plugin(plugin_spec)
+        function = load_plugin(plugin_spec) if isinstance(plugin_spec, str) else plugin_spec
     except Exception as exc:
         conn.send({"error": str(exc)})
         return
@@ -232,34 +246,72 @@ def _base_result(case, **fields) -> CaseResult:
 def _finish(run: _Running, message: dict | None, error: str | None,
             tolerances, options) -> CaseResult:
     """Turn what the child sent (or why it sent nothing) into a CaseResult."""
-    common = dict(reference_energy=_ref_energy(run), reference_source=run.reference_source)
     if error is None and message is not None and "error" in message:
         error = message["error"]
     seconds = message.get("seconds") if message else None
     if error is not None:
-        return _base_result(run.case, error=error, plugin_seconds=seconds, **common)
-    extracted = message["solution"]
+        return _base_result(run.case, error=error, plugin_seconds=seconds,
+                            reference_energy=_ref_energy(run),
+                            reference_source=run.reference_source)
+    return judge_solution(run.case, run.problem, message["solution"], tolerances,
+                          reference=run.reference, reference_source=run.reference_source,
+                          reference_error=run.reference_error, plugin_seconds=seconds,
+                          **options)
+
+
+def judge_solution(case, problem, extracted: dict, tolerances, *, reference=None,
+                   reference_source: str | None = None, reference_error: str | None = None,
+                   plugin_seconds: float | None = None, ao_convention: str | None = None,
+                   stability: str = "internal") -> CaseResult:
+    """The CaseResult of an extracted solution (``harness.solution.extract``) of
+    ``case``'s ``problem`` (bohr): every check of ``harness.evaluate.evaluate_case``
+    against ``reference`` (energies in Eh). ``reference_error`` (one line: why there is
+    no reference) makes reference-energy fail with it. An exception inside the checks
+    becomes the case's one-line error. Used by :func:`run_cases` and by ``check-result``.
+    """
+    options = {"ao_convention": ao_convention, "stability": stability}
+    common = dict(reference_energy=_reference_energy(reference),
+                  reference_source=reference_source)
     energy = extracted.get("energy")
     energy = energy if isinstance(energy, float) else None
     start = time.perf_counter()
     try:
-        verdict = _evaluate(run.problem, extracted, run.reference, tolerances, options)
+        verdict = _evaluate(problem, extracted, reference, tolerances, options)
         checks = verdict.checks
     except Exception as exc:
         frame = plugin_frame(exc.__traceback__)  # innermost check-code frame
         where = f"{frame.name} ({frame.filename}:{frame.lineno})" if frame else "evaluate"
-        return _base_result(run.case, error=f"internal error in check {where}: "
+        return _base_result(case, error=f"internal error in check {where}: "
                             f"{type(exc).__name__}: {exc}".splitlines()[0],
-                            energy=energy, plugin_seconds=seconds,
+                            energy=energy, plugin_seconds=plugin_seconds,
                             check_seconds=time.perf_counter() - start, **common)
-    if run.reference_error is not None:
+    if reference_error is not None:
         checks = tuple(
-            failed("reference-energy", f"reference-energy: no reference ({run.case.name}): "
-                   f"{run.reference_error}") if c.name == "reference-energy" else c
+            failed("reference-energy", f"reference-energy: no reference ({case.name}): "
+                   f"{reference_error}") if c.name == "reference-energy" else c
             for c in checks)
-    return _base_result(run.case, checks=checks, energy=energy, plugin_seconds=seconds,
+    return _base_result(case, checks=checks, energy=energy, plugin_seconds=plugin_seconds,
                         check_seconds=time.perf_counter() - start, analysis=verdict.analysis,
                         **common)
+
+
+def _check_plugin(plugin) -> None:
+    """Fail early, in one line: a spec that cannot be loaded, or a callable that cannot
+    be sent to the child process (it must pickle)."""
+    if isinstance(plugin, str):
+        load_plugin(plugin)
+        return
+    if not callable(plugin):
+        raise PluginLoadError(f"plug-in {plugin!r}: not callable "
+                              f"(it is {type(plugin).__name__})")
+    import pickle
+
+    try:
+        pickle.dumps(plugin)
+    except Exception as exc:
+        raise PluginLoadError(f"plug-in {plugin!r}: cannot be sent to the plug-in process "
+                              f"(it does not pickle: {type(exc).__name__}: {exc})"
+                              .splitlines()[0]) from None
 
 
 def _append_jsonl(path: Path | None, result: CaseResult) -> None:
@@ -286,13 +338,17 @@ def _stop(run: _Running, *, grace: float) -> None:
         pass
 
 
-def run_cases(cases: Iterable, plugin_spec: str, *, tolerances, convergence: float | None = None,
+def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | None = None,
               ao_convention: str | None = None, stability: str = "internal",
               timeout: float = DEFAULT_TIMEOUT, jobs: int = 1, reference_dir=None,
               write_references: bool = False, results_path=None,
               on_start: Callable[[str], None] | None = None,
               on_result: Callable[[CaseResult], None] | None = None) -> RunOutcome:
     """Run ``plugin_spec`` on each case in a child process and check the results here.
+
+    ``plugin_spec`` is a ``MODULE:FUNCTION`` / ``path.py:FUNCTION`` string (re-imported
+    in each child) or a picklable callable (sent to each child as it is, e.g. a
+    ``harness.external.CommandPlugin``).
 
     ``convergence`` (dimensionless, Eh-based atomic units) is passed to
     ``case.problem``; None means the default. ``timeout`` is per case in seconds (the
@@ -305,18 +361,25 @@ def run_cases(cases: Iterable, plugin_spec: str, *, tolerances, convergence: flo
 
     ``ao_convention`` and ``stability`` are passed to ``harness.evaluate.evaluate_case``.
 
-    Raises ``PluginLoadError`` before running anything if the spec cannot be loaded.
+    The outcome also holds, per case name, the problems, the extracted solutions and
+    the references (for ``harness.certificate``).
+
+    Raises ``PluginLoadError`` before running anything if the spec cannot be loaded
+    (or the callable does not pickle).
     """
     options = {"ao_convention": ao_convention, "stability": stability}
     cases = list(cases)
     jobs = max(1, int(jobs))
-    load_plugin(plugin_spec)  # fail early, in one line, on a bad spec
+    _check_plugin(plugin_spec)  # fail early, in one line, on a bad spec
     path_now = list(sys.path)
     cwd = os.getcwd()
     results_file = Path(results_path) if results_path is not None else None
     started = time.perf_counter()
     finished: dict[int, CaseResult] = {}
     running: list[_Running] = []
+    problems: dict[str, Any] = {}
+    solutions: dict[str, Any] = {}
+    references: dict[str, Any] = {}
     pending = list(enumerate(cases))
     interrupted = False
     ctx = None
@@ -337,6 +400,9 @@ def run_cases(cases: Iterable, plugin_spec: str, *, tolerances, convergence: flo
         except Exception as exc:
             record(index, _base_result(case, error=f"cannot build the problem: {exc}"))
             return
+        problems[case.name] = problem
+        solutions[case.name] = None
+        references[case.name] = None
         if ctx is None:
             ctx = _context()
         reader, writer = ctx.Pipe(duplex=True)  # duplex: the child sees our end close
@@ -353,6 +419,7 @@ def run_cases(cases: Iterable, plugin_spec: str, *, tolerances, convergence: flo
                                                              write_references)
         except Exception as exc:
             run.reference_error = f"{type(exc).__name__}: {exc}".splitlines()[0]
+        references[case.name] = run.reference
 
     def collect(run: _Running) -> None:
         message, error = None, None
@@ -368,6 +435,8 @@ def run_cases(cases: Iterable, plugin_spec: str, *, tolerances, convergence: flo
         _stop(run, grace=TERMINATE_GRACE)
         if not isinstance(message, dict) and error is None:
             error = f"plug-in process sent an unexpected message ({type(message).__name__})"
+        if error is None and isinstance(message, dict) and "solution" in message:
+            solutions[run.case.name] = message["solution"]
         record(run.index, _finish(run, message, error, tolerances, options))
 
     try:
@@ -403,12 +472,17 @@ def run_cases(cases: Iterable, plugin_spec: str, *, tolerances, convergence: flo
             _stop(r, grace=TERMINATE_GRACE)
     ordered = tuple(finished[i] for i in sorted(finished))
     return RunOutcome(cases=ordered, interrupted=interrupted,
-                      seconds=time.perf_counter() - started)
+                      seconds=time.perf_counter() - started, problems=problems,
+                      solutions=solutions, references=references)
 
 
 def _ref_energy(run: _Running) -> float | None:
+    """The reference total energy in Eh of a running case, if any."""
+    return _reference_energy(run.reference)
+
+
+def _reference_energy(ref) -> float | None:
     """The reference total energy in Eh (``energies["total"]``, or ``energy``), if any."""
-    ref = run.reference
     if ref is None:
         return None
     try:

@@ -236,6 +236,65 @@ class TestRunCases:
         assert multiprocessing.active_children() == []
 
 
+class TestCallablePluginsAndRecords:
+    """A picklable callable in place of the spec; problems, solutions and references kept."""
+
+    LAB = Path(__file__).resolve().parents[1] / "external" / "lab_code.py"
+
+    def test_command_plugin_is_sent_to_the_child(self, tmp_path):
+        """A CommandPlugin (a callable, not a spec) runs the external code per case."""
+        import sys
+
+        from harness.external import CommandPlugin
+
+        plugin = CommandPlugin(f"{sys.executable} {self.LAB} --in {{problem}} "
+                               f"--out {{solution}}", scratch_root=tmp_path, keep=True)
+        out = runner.run_cases([FakeCase("h2-sto-3g-rhf")], plugin, tolerances=Tolerances(),
+                               timeout=60.0)
+        (case,) = out.cases
+        assert case.error is None and case.passed
+        # H2/STO-3G at R = 1.4 bohr, solved by the example SCF code in the external
+        # process. Published E_total = -1.1167 Eh: Szabo & Ostlund, Modern Quantum
+        # Chemistry (Dover, 1989), sec. 3.5.2 (as commonly quoted; see
+        # /work/shared/reference-values.md item 3).
+        assert case.energy == pytest.approx(-1.1167, abs=1e-3)
+        (folder,) = tmp_path.iterdir()  # kept: the child really ran the command
+        assert (folder / "solution.npz").is_file()
+        assert out.solutions["h2-sto-3g-rhf"]["energy"] == case.energy
+
+    def test_unpicklable_callable_is_refused_before_running(self):
+        with pytest.raises(PluginLoadError) as info:
+            runner.run_cases([FakeCase("x")], lambda problem: {}, tolerances=Tolerances())
+        assert "cannot be sent to the plug-in process (it does not pickle" in str(info.value)
+        assert multiprocessing.active_children() == []
+
+    def test_not_callable_is_refused(self):
+        with pytest.raises(PluginLoadError, match="not callable"):
+            runner.run_cases([FakeCase("x")], 42, tolerances=Tolerances())
+
+    def test_outcome_holds_problems_solutions_references(self):
+        """Passing case: its problem, extracted solution and reference; failing: None."""
+        out = run("raises_on_first", names=("h2-sto-3g-rhf", "b"))
+        first, second = out.cases
+        assert first.error is not None and second.passed
+        assert set(out.problems) == {"h2-sto-3g-rhf", "b"}
+        assert out.problems["b"].name == "b" and out.problems["b"].nao == 2
+        assert out.solutions["h2-sto-3g-rhf"] is None
+        assert out.solutions["b"]["energy"] == second.energy
+        assert out.references["b"].energies["total"] == pytest.approx(-1.1167)
+
+    def test_judge_solution_matches_the_runner(self):
+        """check-result's path (judge_solution) gives the runner's verdict."""
+        out = run("constant")
+        (case,) = out.cases
+        again = runner.judge_solution(FakeCase("h2-sto-3g-rhf"), out.problems["h2-sto-3g-rhf"],
+                                      out.solutions["h2-sto-3g-rhf"], Tolerances(),
+                                      reference=out.references["h2-sto-3g-rhf"],
+                                      reference_source="stored")
+        assert [c.to_json() for c in again.checks] == [c.to_json() for c in case.checks]
+        assert again.energy == case.energy and again.reference_energy == case.reference_energy
+
+
 class TestDeathReason:
     def test_signal_and_code(self):
         """Negative exit codes are signals, named; positive ones are codes."""
