@@ -24,13 +24,13 @@ import datetime
 import hashlib
 import json
 import math
-import os
 import platform
-import tempfile
 from pathlib import Path
 from typing import Any, Mapping, Sequence
 
 import numpy as np
+
+from harness.atomic import atomic_write
 
 from harness.results import CaseResult, _json_float
 
@@ -271,17 +271,7 @@ def _sidecar_arrays(solutions: Mapping[str, Mapping[str, Any] | None]) -> dict[s
 
 
 def _atomic_write(path: Path, write) -> None:
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    os.close(fd)
-    try:
-        write(tmp)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
+    atomic_write(path, write)
 
 
 def write_certificate(path, case_results: Sequence[CaseResult], *, problems, solutions,

@@ -12,7 +12,6 @@ import json
 import os
 import platform
 import sys
-import tempfile
 from pathlib import Path
 from typing import Any, Mapping, Sequence
 
@@ -21,6 +20,7 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
+from harness.atomic import atomic_write
 from harness.results import CaseResult, CheckResult, Status
 from harness.tolerances import CHECK_NAMES
 
@@ -274,20 +274,11 @@ def to_json(outcome, *, plugin: str, suite_names: Sequence[str],
 
 def write_json(path, data: Mapping[str, Any]) -> Path:
     """Write ``data`` as JSON to ``path`` atomically (a temporary file, then a rename)."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+    def write(tmp: str) -> None:
+        with open(tmp, "w", encoding="utf-8") as fh:
             json.dump(data, fh, indent=2)
             fh.write("\n")
             fh.flush()
             os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
-    return path
+
+    return atomic_write(path, write)

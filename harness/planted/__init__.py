@@ -45,6 +45,20 @@ class Planted:
         return not self.fails
 
 
+def entries(caught, correct=()) -> tuple[Planted, ...]:
+    """Catalogue entries from ``(function, cases, fails)`` rows of planted bugs and
+    ``(function, cases)`` rows of correct variants; each entry's note is the first line of
+    the function's docstring."""
+    out: list[Planted] = []
+    rows = [(f, cases, fails) for f, cases, fails in caught] + \
+        [(f, cases, ()) for f, cases in correct]
+    for function, cases, fails in rows:
+        note = (function.__doc__ or "").strip().splitlines()[0]
+        out += [Planted(function.__name__, function, case, frozenset(fails), note)
+                for case in cases]
+    return tuple(out)
+
+
 def catalogue() -> tuple[Planted, ...]:
     """Every entry of every module in :data:`MODULES` that exists."""
     entries: list[Planted] = []

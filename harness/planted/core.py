@@ -316,7 +316,7 @@ def stationarity_of(problem, result: dict) -> float:
 # --------------------------------------------------------------------------- catalogue
 
 def _catalogue():
-    from harness.planted import Planted
+    from harness.planted import entries
 
     rhf, uhf, rohf = "water-sto-3g-rhf", "oh-sto-3g-uhf", "nh2-sto-3g-rohf"
     stationary = {"stationarity", "self-consistency"}
@@ -348,16 +348,7 @@ def _catalogue():
         (required_keys_only, (rhf, uhf, rohf)),
         (exactly_at_convergence, (rhf, uhf, rohf)),
     ]
-    entries = []
-    for function, cases, fails in caught:
-        note = (function.__doc__ or "").strip().splitlines()[0]
-        entries += [Planted(function.__name__, function, case, frozenset(fails), note)
-                    for case in cases]
-    for function, cases in correct:
-        note = (function.__doc__ or "").strip().splitlines()[0]
-        entries += [Planted(function.__name__, function, case, frozenset(), note)
-                    for case in cases]
-    return tuple(entries)
+    return entries(caught, correct)
 
 
 CATALOGUE = _catalogue()

@@ -241,7 +241,7 @@ def stalled_by_heavy_damping(problem) -> dict:
 # --------------------------------------------------------------------------- catalogue
 
 def _catalogue():
-    from harness.planted import Planted
+    from harness.planted import entries
 
     rhf, uhf = "water-sto-3g-rhf", "oh-sto-3g-uhf"
     wrong_h = {"self-consistency", "energy-consistency", "reference-energy"}
@@ -262,16 +262,7 @@ def _catalogue():
          | not_converged),
     ]
     correct = [(all_integrals_reported, (rhf, uhf))]
-    entries = []
-    for function, cases, fails in caught:
-        note = (function.__doc__ or "").strip().splitlines()[0]
-        entries += [Planted(function.__name__, function, case, frozenset(fails), note)
-                    for case in cases]
-    for function, cases in correct:
-        note = (function.__doc__ or "").strip().splitlines()[0]
-        entries += [Planted(function.__name__, function, case, frozenset(), note)
-                    for case in cases]
-    return tuple(entries)
+    return entries(caught, correct)
 
 
 CATALOGUE = _catalogue()
