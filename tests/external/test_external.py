@@ -134,8 +134,10 @@ class TestCommandPlugin:
         assert failed_checks("h2-sto-3g-rhf", plugin(sf.problem("h2-sto-3g-rhf"))) == []
 
     def test_pickles(self):
+        """The plug-in survives the trip to the runner's child process (multiprocessing
+        pickles it; this round trip is of our own object, never of a user's file)."""
         plugin = CommandPlugin(LAB, timeout=30)
-        again = pickle.loads(pickle.dumps(plugin))
+        again = pickle.loads(pickle.dumps(plugin))  # our own bytes, not untrusted input
         assert again.words == plugin.words and again.timeout == 30.0
 
     def test_unknown_placeholder(self):
