@@ -75,6 +75,7 @@ from typing import Any, Callable
 
 import numpy as np
 
+from harness.checks.energy import fock_from_terms
 from harness.checks.orthonormal import LINEAR_DEPENDENCE, lowdin
 from harness.checks.stationarity import commutator, rohf_conditions
 from harness.errors import PluginLoadError
@@ -305,9 +306,7 @@ def spin_densities(ham: Hamiltonian, orb: Orbitals) -> np.ndarray:
 def fock_matrices(ham: Hamiltonian, d: np.ndarray) -> np.ndarray:
     """RHF: F = H + J(P) − ½K(P) (1, n, n); UHF/ROHF: Fσ = H + J(Pα+Pβ) − K(Pσ) (2, n, n)."""
     j, k = ham.jk(d)
-    if ham.method == "rhf":
-        return (ham.h + j - 0.5 * k[0])[None]
-    return np.stack([ham.h + j - k[0], ham.h + j - k[1]])
+    return fock_from_terms(ham.h, j, k, len(d))
 
 
 def energy_of(ham: Hamiltonian, d: np.ndarray, f: np.ndarray) -> float:
@@ -766,19 +765,9 @@ def load_accelerator(spec_or_object) -> tuple[str, Callable[[], Any]]:
     instance). Raises PluginLoadError (one line) for a bad spec or object."""
     obj = spec_or_object
     if isinstance(spec_or_object, str):
-        from harness import plugins
+        from harness.plugins import load_object
 
-        target, attr = plugins.split_spec(spec_or_object)
-        if plugins.is_file_target(target):
-            module = plugins._load_file(spec_or_object, target)
-        else:
-            module = plugins._import_module(spec_or_object, target)
-        obj = module
-        for part in attr.split("."):
-            if not hasattr(obj, part):
-                raise PluginLoadError(f"accelerator {spec_or_object!r}: {target} has no "
-                                      f"attribute {attr!r}")
-            obj = getattr(obj, part)
+        obj = load_object(spec_or_object, kind="accelerator")
     factory = as_factory(obj)
     return accelerator_name(obj), factory
 

@@ -104,6 +104,23 @@ def _load_file(spec: str, target: str):
     return module
 
 
+def load_object(spec: str, kind: str = "plug-in") -> Any:
+    """Import the module or file of ``spec`` and return the (possibly dotted) attribute it
+    names. ``kind`` words the error ("plug-in", "accelerator"). Raises
+    :class:`PluginLoadError` (one line)."""
+    target, attr = split_spec(spec)
+    if is_file_target(target):
+        module = _load_file(spec, target)
+    else:
+        module = _import_module(spec, target)
+    obj: Any = module
+    for part in attr.split("."):
+        if not hasattr(obj, part):
+            raise PluginLoadError(f"{kind} {spec!r}: {target} has no attribute {attr!r}")
+        obj = getattr(obj, part)
+    return obj
+
+
 def load_plugin(spec: str) -> Callable[[Any], Any]:
     """Import the plug-in named by ``spec`` and return its function.
 
@@ -113,19 +130,9 @@ def load_plugin(spec: str) -> Callable[[Any], Any]:
     (``module:Class.method``). The returned callable takes a ``Problem`` (bohr) and
     returns the solution mapping (Eh). Raises :class:`PluginLoadError` (one line).
     """
-    target, attr = split_spec(spec)
-    if is_file_target(target):
-        module = _load_file(spec, target)
-        where = target
-    else:
-        module = _import_module(spec, target)
-        where = target
-    obj: Any = module
-    for part in attr.split("."):
-        if not hasattr(obj, part):
-            raise PluginLoadError(f"plug-in {spec!r}: {where} has no attribute {attr!r}")
-        obj = getattr(obj, part)
+    obj = load_object(spec)
     if not callable(obj):
-        raise PluginLoadError(f"plug-in {spec!r}: {where}:{attr} is not callable "
+        target, attr = split_spec(spec)
+        raise PluginLoadError(f"plug-in {spec!r}: {target}:{attr} is not callable "
                               f"(it is {type(obj).__name__})")
     return obj
