@@ -344,20 +344,34 @@ def select_cases(suites: Sequence[str] | None, case_names: Sequence[str] | None,
 
 
 @contextlib.contextmanager
-def _sigterm_as_interrupt():
-    """Treat SIGTERM (CI cancelling a job) like Ctrl-C, so finished cases are kept."""
+def _signals_as_interrupt():
+    """Treat SIGTERM (CI cancelling a job) like Ctrl-C, so finished cases are kept.
+
+    The handler also flags the run loop (``runner.request_interrupt``): the exception
+    it raises is lost if the signal lands while Python runs a finaliser.
+    """
+    from harness.runner import request_interrupt
+
     def handler(signum, frame):
+        request_interrupt()
         raise KeyboardInterrupt
 
+    def unraisable(info):  # the lost KeyboardInterrupt: no "Exception ignored" traceback
+        if not isinstance(info.exc_value, KeyboardInterrupt):
+            hook_before(info)
+
     try:
-        previous = signal.signal(signal.SIGTERM, handler)
+        previous = {sig: signal.signal(sig, handler) for sig in (signal.SIGINT, signal.SIGTERM)}
     except ValueError:  # not the main thread
         yield
         return
+    hook_before, sys.unraisablehook = sys.unraisablehook, unraisable
     try:
         yield
     finally:
-        signal.signal(signal.SIGTERM, previous)
+        sys.unraisablehook = hook_before
+        for sig, before in previous.items():
+            signal.signal(sig, before)
 
 
 def _tolerances(args):
@@ -427,7 +441,7 @@ def _certify(args, console) -> int:
                       f"{convergence:g}, timeout {args.timeout:g} s, jobs {args.jobs}",
                       markup=False, soft_wrap=True)
     on_result = None if args.quiet else (lambda r: report.print_progress(console, r))
-    with _sigterm_as_interrupt():
+    with _signals_as_interrupt():
         outcome = run_cases(cases, plugin, tolerances=tolerances,
                             convergence=args.convergence, ao_convention=args.ao_convention,
                             stability=args.stability, timeout=args.timeout,

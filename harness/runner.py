@@ -21,6 +21,7 @@ import os
 import signal
 import sys
 import sysconfig
+import threading
 import time
 import traceback
 from pathlib import Path
@@ -38,6 +39,19 @@ TERMINATE_GRACE = 2.0
 
 #: Default per-case timeout of the plug-in call, in seconds.
 DEFAULT_TIMEOUT = 600.0
+
+#: Longest the run loop waits (seconds) before it looks at the interrupt flag again.
+INTERRUPT_POLL = 0.25
+
+# Set by ``request_interrupt``. A KeyboardInterrupt raised by a signal handler while
+# Python runs a finaliser (a pipe's __del__, say) is printed and swallowed, so the
+# handler also sets this flag and the run loop raises for it.
+_interrupt = threading.Event()
+
+
+def request_interrupt() -> None:
+    """Ask a running ``run_cases`` to stop as if Ctrl-C were pressed (signal-safe)."""
+    _interrupt.set()
 
 
 @dataclasses.dataclass(frozen=True)
@@ -369,6 +383,7 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     """
     options = {"ao_convention": ao_convention, "stability": stability}
     cases = list(cases)
+    _interrupt.clear()
     jobs = max(1, int(jobs))
     _check_plugin(plugin_spec)  # fail early, in one line, on a bad spec
     path_now = list(sys.path)
@@ -441,12 +456,14 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
 
     try:
         while pending or running:
+            if _interrupt.is_set():
+                raise KeyboardInterrupt
             while pending and len(running) < jobs:
                 launch(*pending.pop(0))
             if not running:
                 continue
             now = time.monotonic()
-            wait_for = max(0.0, min(r.deadline for r in running) - now)
+            wait_for = min(INTERRUPT_POLL, max(0.0, min(r.deadline for r in running) - now))
             handles = {}
             for r in running:
                 handles[r.conn] = r
@@ -467,6 +484,7 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     except KeyboardInterrupt:
         interrupted = True
     finally:
+        _interrupt.clear()
         for r in list(running):
             running.remove(r)
             _stop(r, grace=TERMINATE_GRACE)

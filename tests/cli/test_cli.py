@@ -261,6 +261,35 @@ class TestInterruption:
         proc.kill()
         raise AssertionError("no finished case appeared in the partial file")
 
+    def test_lost_interrupt_prints_no_traceback_and_sets_the_flag(self, capsys):
+        """A signal landing in a finaliser: its KeyboardInterrupt is dropped silently
+        (other unraisable errors still reach the previous hook) and the run loop's
+        flag is set."""
+        from types import SimpleNamespace
+
+        from harness import cli, runner
+
+        seen = []
+
+        def record(info):
+            seen.append(info)
+
+        before = sys.unraisablehook
+        sys.unraisablehook = record
+        try:
+            with cli._signals_as_interrupt():
+                sys.unraisablehook(SimpleNamespace(exc_value=KeyboardInterrupt()))
+                other = SimpleNamespace(exc_value=ValueError("x"))
+                sys.unraisablehook(other)
+                with pytest.raises(KeyboardInterrupt):
+                    signal.getsignal(signal.SIGTERM)(signal.SIGTERM, None)
+                assert runner._interrupt.is_set()
+            assert sys.unraisablehook is record
+        finally:
+            sys.unraisablehook = before
+            runner._interrupt.clear()
+        assert seen == [other]
+
     @pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM])
     def test_interrupt_writes_finished_cases(self, work, sig):
         """Ctrl-C (or SIGTERM) mid-run: exit 1, the JSON says interrupted and keeps the

@@ -235,6 +235,27 @@ class TestRunCases:
         assert [json.loads(x)["name"] for x in path.read_text().splitlines()] == ["h2-sto-3g-rhf"]
         assert multiprocessing.active_children() == []
 
+    def test_interrupt_request_stops_the_run_without_an_exception(self):
+        """A signal that lands in a finaliser loses its KeyboardInterrupt; the flag
+        ``request_interrupt`` sets still stops the run while a child sleeps."""
+
+        def request_after_first(result):
+            if result.name == "h2-sto-3g-rhf":
+                runner.request_interrupt()  # no exception: as if it had been swallowed
+
+        started = time.monotonic()
+        out = run("sleeps_after_first", names=("h2-sto-3g-rhf", "b"),
+                  on_result=request_after_first)
+        assert out.interrupted
+        assert [c.name for c in out.cases] == ["h2-sto-3g-rhf"]
+        assert time.monotonic() - started < 20.0  # the sleeping child sleeps far longer
+        assert multiprocessing.active_children() == []
+
+    def test_a_new_run_forgets_an_old_request(self):
+        runner.request_interrupt()
+        out = run("constant", names=("a",))
+        assert not out.interrupted and [c.name for c in out.cases] == ["a"]
+
 
 class TestCallablePluginsAndRecords:
     """A picklable callable in place of the spec; problems, solutions and references kept."""
