@@ -34,7 +34,8 @@ from harness.results import CaseResult, CheckResult, failed
 #: Modules the fork server imports once, so each child starts without re-importing them.
 PRELOAD = ["numpy", "pyscf", "harness.solution"]
 
-#: Seconds a child gets to exit after SIGTERM before it is killed (interrupted runs).
+#: Seconds a child gets to exit after SIGTERM before it is killed (timed-out cases,
+#: interrupted runs): time for a plug-in's clean-up, such as removing a scratch folder.
 TERMINATE_GRACE = 2.0
 
 #: Default per-case timeout of the plug-in call, in seconds.
@@ -160,6 +161,16 @@ def _share_cores(jobs: int) -> None:
         pass
 
 
+class _Stopped(BaseException):
+    """Raised in a child by SIGTERM (a timeout or an interrupted run), so the plug-in's
+    ``finally`` blocks run: a ``CommandPlugin`` kills its program and removes its
+    scratch directory."""
+
+
+def _stop_on_sigterm(signum, frame):
+    raise _Stopped
+
+
 def _child_main(conn, plugin_spec, path: list[str], cwd: str, problem,
                 jobs: int = 1) -> None:
     """Entry point of the child process: call the plug-in once, send one message.
@@ -187,10 +198,17 @@ def _child_main(conn, plugin_spec, path: list[str], cwd: str, problem,
         conn.send({"error": str(exc)})
         return
     start = time.perf_counter()
+    # Only while the plug-in runs: before and after, SIGTERM ends the child quietly.
+    signal.signal(signal.SIGTERM, _stop_on_sigterm)
     try:
-        raw = function(problem)
+        raw, error = function(problem), None
+    except _Stopped:  # the parent stopped this case and reads nothing more
+        return
     except BaseException as exc:  # SystemExit from a plug-in is a failure too
-        conn.send({"error": describe_exception(exc)})
+        raw, error = None, exc
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    if error is not None:
+        conn.send({"error": describe_exception(error)})
         return
     seconds = time.perf_counter() - start
     try:
@@ -477,7 +495,7 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
                     collect(r)
                     continue
                 running.remove(r)
-                _stop(r, grace=0.0)
+                _stop(r, grace=TERMINATE_GRACE)
                 record(r.index, _base_result(
                     r.case, error=f"timed out after {timeout:.1f} s",
                     reference_energy=_ref_energy(r), reference_source=r.reference_source))

@@ -238,8 +238,8 @@ class TestThroughTheRunner:
         assert "\n" not in result.error
 
     def test_timeout_leaves_nothing_running(self):
-        """The harness's per-case timeout kills the plug-in's process; the kernel then
-        kills the external code (parent-death signal): no program is left behind."""
+        """The harness's per-case timeout stops the plug-in's process, which kills the
+        external code and removes its scratch folder: nothing is left behind."""
         commands.SCRATCH.mkdir(parents=True, exist_ok=True)
         for old in commands.SCRATCH.glob("*.pid"):
             old.unlink()
@@ -251,4 +251,39 @@ class TestThroughTheRunner:
         while _alive(pid) and time.monotonic() < deadline:
             time.sleep(0.05)
         assert not _alive(pid)
+        assert not pidfile.with_suffix("").exists()  # its scratch folder was removed
+        pidfile.unlink()
+
+    def test_interrupted_run_leaves_nothing_running(self):
+        """Ctrl-C while the external code runs: the run stops, the program is killed
+        and its scratch folder removed."""
+        import threading
+
+        from harness import runner
+
+        commands.SCRATCH.mkdir(parents=True, exist_ok=True)
+        for old in commands.SCRATCH.glob("*.pid"):
+            old.unlink()
+
+        def interrupt_once_started():
+            deadline = time.monotonic() + 30
+            while not list(commands.SCRATCH.glob("*.pid")) and time.monotonic() < deadline:
+                time.sleep(0.05)
+            runner.request_interrupt()
+
+        threading.Thread(target=interrupt_once_started, daemon=True).start()
+        from harness.cases import load_catalogue
+        from harness.tolerances import Tolerances
+
+        outcome = runner.run_cases([load_catalogue().case("h2-sto-3g-rhf")],
+                                   self.SPEC.format("sleeper"), tolerances=Tolerances(),
+                                   timeout=60.0)
+        assert outcome.interrupted and outcome.cases == ()
+        (pidfile,) = commands.SCRATCH.glob("h2-sto-3g-rhf-*.pid")
+        pid = int(pidfile.read_text())
+        deadline = time.monotonic() + 5
+        while _alive(pid) and time.monotonic() < deadline:
+            time.sleep(0.05)
+        assert not _alive(pid)
+        assert not pidfile.with_suffix("").exists()
         pidfile.unlink()
