@@ -91,6 +91,9 @@ class ExternalCodeError(HarnessError):
     is removed afterwards unless the plug-in keeps it).
     """
 
+    #: The message names the external code's failure; a harness frame would add nothing.
+    names_its_source = True
+
     def __init__(self, reason: str, *, case: str | None = None, stderr_tail: str = "",
                  stdout_tail: str = "", returncode: int | None = None,
                  scratch: str | None = None):

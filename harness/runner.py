@@ -122,11 +122,14 @@ def plugin_frame(tb) -> traceback.FrameSummary | None:
 
 
 def describe_exception(exc: BaseException, tb=None) -> str:
-    """``"<ExcType>: <message> (at <file>:<line> in <function>)"``, one line."""
+    """``"<ExcType>: <message> (at <file>:<line> in <function>)"``, one line.
+
+    No location for an exception whose class sets ``names_its_source`` (an external
+    code's failure: the frame would be the harness's, the message says what failed)."""
     lines = str(exc).strip().splitlines()
     text = f"{type(exc).__name__}: {lines[0]}" if lines else type(exc).__name__
     frame = plugin_frame(tb if tb is not None else exc.__traceback__)
-    if frame is not None:
+    if frame is not None and not getattr(exc, "names_its_source", False):
         text += f" (at {frame.filename}:{frame.lineno} in {frame.name})"
     return text
 

@@ -236,6 +236,7 @@ class TestThroughTheRunner:
         assert not result.passed
         assert result.error.startswith(prefix)
         assert "\n" not in result.error
+        assert "(at " not in result.error  # no harness frame: the message says what failed
 
     def test_timeout_leaves_nothing_running(self):
         """The harness's per-case timeout stops the plug-in's process, which kills the
