@@ -116,7 +116,8 @@ def _add_selection(parser: argparse.ArgumentParser, default_text: str):
     group.add_argument("--suite", action="append", dest="suites", default=None, metavar="NAME",
                        help=f"a suite of the catalogue (repeatable; default: {default_text})")
     group.add_argument("--case", action="append", dest="case_names", default=None,
-                       metavar="NAME", help="a single catalogue case (repeatable)")
+                       metavar="NAME", help="a single case of the catalogue (or of "
+                       "--cases-file, where there is one) (repeatable)")
     return group
 
 
@@ -143,7 +144,8 @@ def build_parser() -> argparse.ArgumentParser:
     which = _add_selection(cert, f"{DEFAULT_SUITE}, unless --case or --cases-file is given")
     which.add_argument("--cases-file", type=Path, metavar="FILE",
                       help="a TOML suite file of your own ([[case]] tables as in the catalogue; "
-                      "geometry paths relative to the file)")
+                      "geometry paths relative to the file); all its cases run, or, with "
+                      "--case, only the named ones")
     run = cert.add_argument_group("how to run")
     run.add_argument("--convergence", type=_convergence, metavar="X",
                      help="stationarity asked of the plug-in: max|X^T (F P S - S P F) X| with "
@@ -313,7 +315,9 @@ def select_cases(suites: Sequence[str] | None, case_names: Sequence[str] | None,
     """The cases named by the options, in order, without duplicates.
 
     Returns ``(cases, suite_names)``. With no suite, case or file given, the
-    ``default_suite`` (or, if None, the whole catalogue) is used.
+    ``default_suite`` (or, if None, the whole catalogue) is used. A ``cases_file``
+    adds all its cases, unless case names are given: then each name is looked up in
+    the file first, then in the catalogue, and only the named cases (and suites) run.
     """
     from harness.cases import load_catalogue, load_suite_file
 
@@ -323,15 +327,18 @@ def select_cases(suites: Sequence[str] | None, case_names: Sequence[str] | None,
         if default_suite is None:
             return list(load_catalogue().cases), []
         suite_names = [default_suite]
+    own = {}
+    if cases_file is not None:
+        if not cases_file.is_file():
+            raise UsageError(f"--cases-file: file not found: {cases_file}")
+        own = {case.name: case for case in load_suite_file(cases_file)}
     catalogue = load_catalogue() if (suite_names or case_names) else None
     for name in suite_names:
         chosen.extend(catalogue.suite(name))
     for name in case_names or []:
-        chosen.append(catalogue.case(name))
-    if cases_file is not None:
-        if not cases_file.is_file():
-            raise UsageError(f"--cases-file: file not found: {cases_file}")
-        chosen.extend(load_suite_file(cases_file))
+        chosen.append(own[name] if name in own else catalogue.case(name))
+    if not case_names:
+        chosen.extend(own.values())
     seen, unique = set(), []
     for case in chosen:
         if case.name not in seen:

@@ -10,10 +10,11 @@ over its key, and ``--scf-tol`` wins per check over ``tolerances``)::
     [tool.scf-harness]
     plugin = "mypkg.scf:solve"         # MODULE:FUNCTION or path/to/file.py:FUNCTION
     suite = "smoke"                    # a catalogue suite, or a list of them
+    cases_file = "tests/my-cases.toml" # your own [[case]] tables (relative to this file)
     tolerances = { stationarity = 1e-5, "reference-energy" = 1e-5 }   # absolute: Eh, ...
     timeout = 600                      # seconds per case (the plug-in call)
     convergence = 1e-6                 # stationarity asked of the plug-in (atomic units)
-    stability = "off"                  # internal | external | off (stored for a later feature)
+    stability = "internal"             # internal | external | off (as certify --stability)
 
 This module imports only the standard library and ``harness.errors`` /
 ``harness.tolerances`` (both light), so that reading the table costs nothing heavy.
@@ -48,12 +49,13 @@ DEFAULT_TIMEOUT = 600.0
 #: ``harness.problem.DEFAULT_CONVERGENCE`` (a test keeps the two equal).
 DEFAULT_CONVERGENCE = 1e-6
 
-#: Accepted values of ``stability`` (stored for a later feature; nothing runs it yet).
+#: Accepted values of ``stability``: ``harness.cli.STABILITY_MODES``, and the same
+#: default as ``scf-harness certify --stability`` (a test keeps them equal).
 STABILITY_CHOICES = ("internal", "external", "off")
-DEFAULT_STABILITY = "off"
+DEFAULT_STABILITY = "internal"
 
 #: The keys of the table, in the order the documentation lists them.
-KEYS = ("plugin", "suite", "tolerances", "timeout", "convergence", "stability")
+KEYS = ("plugin", "suite", "cases_file", "tolerances", "timeout", "convergence", "stability")
 
 
 class ConfigError(HarnessError):
@@ -65,15 +67,18 @@ class Settings:
     """The resolved configuration of one pytest run (flags over keys over defaults).
 
     ``plugin``: the plug-in spec, or None (then the plug-in generates no items).
-    ``suites``: catalogue suite names. ``tolerances``: check name → absolute tolerance.
+    ``suites``: catalogue suite names (none by default when a cases file is given).
+    ``cases_file``: an absolute path to the user's own suite file, or None.
+    ``tolerances``: check name → absolute tolerance.
     ``timeout``: seconds per case. ``convergence``: the stationarity asked, or None for
-    the default. ``stability``: one of STABILITY_CHOICES (stored only).
+    the default. ``stability``: one of STABILITY_CHOICES, as ``certify --stability``.
     ``source``: the pyproject.toml that was read ("" if none); ``from_flags``: the
     names of the settings that came from flags.
     """
 
     plugin: str | None = None
     suites: tuple[str, ...] = (DEFAULT_SUITE,)
+    cases_file: Path | None = None
     tolerances: Mapping[str, float] = dataclasses.field(default_factory=dict)
     timeout: float = DEFAULT_TIMEOUT
     convergence: float | None = None
@@ -87,15 +92,21 @@ class Settings:
         return self.plugin is not None
 
     def reproduce_command(self, case_name: str) -> str:
-        """``scf-harness certify SPEC --case NAME [--tol C=V ...] [--convergence X] ...``:
-        the one-line command that reruns one case with these settings."""
-        parts = ["scf-harness", "certify", _quote(self.plugin or ""), "--case", case_name]
+        """``scf-harness certify SPEC [--cases-file F] --case NAME [--tol C=V ...]
+        [--convergence X] ...``: the one-line command that reruns one case with these
+        settings."""
+        parts = ["scf-harness", "certify", _quote(self.plugin or "")]
+        if self.cases_file is not None:
+            parts += ["--cases-file", _quote(str(self.cases_file))]
+        parts += ["--case", case_name]
         for name in sorted(self.tolerances):
             parts += ["--tol", f"{name}={self.tolerances[name]:g}"]
         if self.convergence is not None:
             parts += ["--convergence", f"{self.convergence:g}"]
         if self.timeout != DEFAULT_TIMEOUT:
             parts += ["--timeout", f"{self.timeout:g}"]
+        if self.stability != DEFAULT_STABILITY:
+            parts += ["--stability", self.stability]
         return " ".join(parts)
 
 
@@ -163,6 +174,18 @@ def _suites(value, where, field) -> tuple[str, ...]:
     return tuple(out)
 
 
+def _cases_file(value, where, field, base: Path) -> Path:
+    """An existing file; a relative path is relative to ``base``."""
+    if not isinstance(value, str) or not value.strip():
+        raise ConfigError(f"expected the path of a TOML suite file, got {value!r}",
+                          case=where, field=field)
+    path = Path(value.strip()).expanduser()
+    path = path if path.is_absolute() else Path(base) / path
+    if not path.is_file():
+        raise ConfigError(f"file not found: {path}", case=where, field=field)
+    return path.resolve()
+
+
 def _tolerances(value, where, field) -> dict[str, float]:
     from harness.tolerances import Tolerances
 
@@ -212,13 +235,17 @@ _PARSERS = {"plugin": _plugin, "suite": _suites, "tolerances": _tolerances,
 
 
 def parse_table(table: Mapping[str, Any], source: str = "pyproject.toml") -> dict[str, Any]:
-    """Validate a raw table: ``{key: value}`` with values parsed (suite → tuple).
+    """Validate a raw table: ``{key: value}`` with values parsed (suite → tuple,
+    cases_file → an absolute path, relative ones taken from the directory of ``source``).
 
     Unknown keys raise :class:`ConfigError` with the closest known key.
     """
     where = f"{source}: [{TABLE}]"
     out: dict[str, Any] = {}
     for key, value in table.items():
+        if key == "cases_file":
+            out[key] = _cases_file(value, where, key, Path(source).parent)
+            continue
         if key not in _PARSERS:
             close = difflib.get_close_matches(key, KEYS, n=1)
             hint = f"did you mean {close[0]!r}?" if close else f"known keys: {', '.join(KEYS)}"
@@ -229,18 +256,23 @@ def parse_table(table: Mapping[str, Any], source: str = "pyproject.toml") -> dic
 
 def parse_flags(*, plugin: str | None = None, suites: Sequence[str] | None = None,
                 tolerances: Sequence[str] | None = None, timeout: str | None = None,
-                convergence: str | None = None,
-                stability: str | None = None) -> dict[str, Any]:
+                convergence: str | None = None, stability: str | None = None,
+                cases_file: str | None = None, base=None) -> dict[str, Any]:
     """Validate the ``--scf-…`` flag values (strings as typed; None: not given).
 
-    ``tolerances`` are ``CHECK=VALUE`` strings as for ``--tol``. Returns the same keys
-    as :func:`parse_table` for the flags that were given.
+    ``tolerances`` are ``CHECK=VALUE`` strings as for ``--tol``; a relative
+    ``cases_file`` is taken from ``base`` (default: the current directory, where pytest
+    was started). Returns the same keys as :func:`parse_table` for the flags that were
+    given.
     """
     out: dict[str, Any] = {}
     if plugin is not None:
         out["plugin"] = _plugin(plugin, None, "--scf-plugin")
     if suites:
         out["suite"] = _suites(list(suites), None, "--scf-suite")
+    if cases_file is not None:
+        out["cases_file"] = _cases_file(cases_file, None, "--scf-cases-file",
+                                        Path.cwd() if base is None else Path(base))
     if tolerances:
         from harness.tolerances import parse_override
 
@@ -269,7 +301,9 @@ def resolve(flags: Mapping[str, Any], keys: Mapping[str, Any], source: str = "")
 
     tolerances = dict(keys.get("tolerances", {}))
     tolerances.update(flags.get("tolerances", {}))
-    return Settings(plugin=pick("plugin", None), suites=tuple(pick("suite", (DEFAULT_SUITE,))),
+    cases_file = pick("cases_file", None)
+    suites = pick("suite", () if cases_file is not None else (DEFAULT_SUITE,))
+    return Settings(plugin=pick("plugin", None), suites=tuple(suites), cases_file=cases_file,
                     tolerances=tolerances, timeout=float(pick("timeout", DEFAULT_TIMEOUT)),
                     convergence=pick("convergence", None),
                     stability=pick("stability", DEFAULT_STABILITY), source=source,

@@ -17,8 +17,8 @@ the case fails; the failure report starts with the failing checks' one-line mess
 hints, then the verdict table, then a ``reproduce: scf-harness certify ...`` line.
 
 Options (group "scf-harness"; each also a key of ``[tool.scf-harness]``, the flag wins):
-``--scf-plugin``, ``--scf-suite``, ``--scf-tol``, ``--scf-timeout``, ``--scf-convergence``,
-``--scf-stability``. pytest's ``addini`` is not used: ini keys live in
+``--scf-plugin``, ``--scf-suite``, ``--scf-cases-file``, ``--scf-tol``, ``--scf-timeout``,
+``--scf-convergence``, ``--scf-stability``. pytest's ``addini`` is not used: ini keys live in
 ``[tool.pytest.ini_options]``, and the harness's own table is read by
 :mod:`harness.config`, so that flag and key have one parser and one meaning.
 
@@ -64,7 +64,11 @@ def pytest_addoption(parser: pytest.Parser) -> None:
     group.addoption("--scf-suite", dest="scf_suite", action="append", default=None,
                     metavar="NAME",
                     help="catalogue suite to run (repeatable). Key: suite (a name or a list). "
-                    f"Default: {_config.DEFAULT_SUITE}")
+                    f"Default: {_config.DEFAULT_SUITE}, or none with a cases file")
+    group.addoption("--scf-cases-file", dest="scf_cases_file", default=None, metavar="FILE",
+                    help="a TOML suite file of your own ([[case]] tables as in the catalogue, "
+                    "geometry paths relative to it); its cases run too. Key: cases_file "
+                    "(relative to the pyproject.toml). Default: none")
     group.addoption("--scf-tol", dest="scf_tol", action="append", default=None,
                     metavar="CHECK=VALUE",
                     help="absolute tolerance of one check, e.g. reference-energy=1e-5 (Eh for "
@@ -80,8 +84,9 @@ def pytest_addoption(parser: pytest.Parser) -> None:
                     f"Default: {_config.DEFAULT_CONVERGENCE:g}")
     group.addoption("--scf-stability", dest="scf_stability", default=None,
                     metavar="|".join(_config.STABILITY_CHOICES),
-                    help="orbital stability analysis of the code's solution (accepted and "
-                    "stored for a later feature; nothing runs it yet). Key: stability. "
+                    help="orbital stability analysis of the code's solution, as certify "
+                    "--stability: internal (within the method), external (RHF also against "
+                    "UHF), off. Key: stability. "
                     f"Default: {_config.DEFAULT_STABILITY}")
 
 
@@ -94,13 +99,16 @@ def pytest_configure(config: pytest.Config) -> None:
             plugin=getattr(opt, "scf_plugin", None), suites=getattr(opt, "scf_suite", None),
             tolerances=getattr(opt, "scf_tol", None), timeout=getattr(opt, "scf_timeout", None),
             convergence=getattr(opt, "scf_convergence", None),
-            stability=getattr(opt, "scf_stability", None))
+            stability=getattr(opt, "scf_stability", None),
+            cases_file=getattr(opt, "scf_cases_file", None),
+            base=config.invocation_params.dir)
         pyproject = _config.pyproject_for(config.rootpath, config.inipath)
         settings = _config.load_settings(pyproject, flags)
     except HarnessError as exc:
         raise pytest.UsageError(f"scf-harness: {exc}") from None
     if not settings.active:
-        unused = [f"--scf-{name}" for name in ("suite", "timeout") if name in flags]
+        unused = [f"--scf-{name.replace('_', '-')}" for name in ("suite", "cases_file", "timeout")
+                  if name in flags]
         if unused:
             raise pytest.UsageError(f"scf-harness: {', '.join(unused)} needs a plug-in "
                                     "(--scf-plugin, or plugin in [tool.scf-harness])")
@@ -117,8 +125,11 @@ def pytest_report_header(config: pytest.Config) -> str | None:
     if not settings.active:
         return None
     source = f" (settings from {settings.source})" if settings.source else ""
-    return (f"scf-harness: {settings.plugin} on suite {', '.join(settings.suites)}, "
-            f"timeout {settings.timeout:g} s{source}")
+    chosen = [f"suite {', '.join(settings.suites)}"] if settings.suites else []
+    if settings.cases_file is not None:
+        chosen.append(f"cases file {settings.cases_file}")
+    return (f"scf-harness: {settings.plugin} on {' and '.join(chosen)}, "
+            f"timeout {settings.timeout:g} s, stability {settings.stability}{source}")
 
 
 # --------------------------------------------------------------------------- collection
@@ -138,21 +149,24 @@ def pytest_collection_modifyitems(session: pytest.Session, config: pytest.Config
 
 
 class CaseSuite(pytest.Collector):
-    """The generated cases of the configured suites (catalogue order, no duplicates)."""
+    """The generated cases of the configured suites (catalogue order), then those of the
+    cases file (its order); no duplicates."""
 
     def collect(self) -> list["CaseItem"]:
-        from harness.cases import load_catalogue
+        from harness.cases import load_catalogue, load_suite_file
         from harness.plugins import load_plugin
 
         settings = settings_of(self.config)
         try:
             catalogue = load_catalogue()
+            chosen = [case for suite in settings.suites for case in catalogue.suite(suite)]
+            if settings.cases_file is not None:
+                chosen.extend(load_suite_file(settings.cases_file))
             cases, seen = [], set()
-            for suite in settings.suites:
-                for case in catalogue.suite(suite):
-                    if case.name not in seen:
-                        seen.add(case.name)
-                        cases.append(case)
+            for case in chosen:
+                if case.name not in seen:
+                    seen.add(case.name)
+                    cases.append(case)
             load_plugin(settings.plugin)  # a bad spec is a usage error, reported once
         except HarnessError as exc:
             raise pytest.UsageError(f"scf-harness: {exc}") from None
@@ -183,7 +197,8 @@ class CaseItem(pytest.Item):
         settings = settings_of(self.config)
         outcome = run_cases([self.case], settings.plugin,
                             tolerances=Tolerances(overrides=dict(settings.tolerances)),
-                            timeout=settings.timeout, convergence=settings.convergence)
+                            timeout=settings.timeout, convergence=settings.convergence,
+                            stability=settings.stability)
         if outcome.interrupted or not outcome.cases:
             raise KeyboardInterrupt
         result = outcome.cases[0]
@@ -275,7 +290,8 @@ def scf_check(request, scf_case):
     ``solution`` is a plug-in return value (Eh); ``case`` a Case, a case name or a
     Problem (bohr). The reference energy is the stored reference of a Case when it
     matches (pass ``reference=`` to give one; a Problem has none). Tolerances and
-    convergence come from ``--scf-tol`` / ``--scf-convergence`` or [tool.scf-harness].
+    convergence and the stability mode come from ``--scf-tol`` / ``--scf-convergence`` /
+    ``--scf-stability`` or [tool.scf-harness].
     Returns the CheckResults when no check fails; otherwise raises AssertionError whose
     first line is the first failing check's message, followed by the others.
     """
@@ -298,7 +314,8 @@ def scf_check(request, scf_case):
             if reference is None:
                 reference = _stored_reference(case)
         results = evaluate(problem, extract(solution), reference,
-                           Tolerances(overrides=dict(settings.tolerances)))
+                           Tolerances(overrides=dict(settings.tolerances)),
+                           stability=settings.stability)
         failures = [r for r in results if r.passed is False]
         if failures:
             lines = []

@@ -247,3 +247,46 @@ class TestBench:
         assert code == 2
         assert err.startswith(ERROR) and err.count("\n") == 1 and "Traceback" not in err
         assert fragment in err
+
+
+class TestCaseSelection:
+    """``--case`` with ``--cases-file``: names are looked up in the file, then in the
+    catalogue; the whole file runs only when no case is named."""
+
+    @pytest.fixture
+    def own(self, tmp_path):
+        (tmp_path / "h2.xyz").write_text("2\nH2\nH 0 0 0\nH 0 0 0.74\n", encoding="utf-8")
+        path = tmp_path / "mine.toml"
+        path.write_text("".join(
+            f'[[case]]\nname = "{name}"\ngeometry = "h2.xyz"\nbasis = "{basis}"\n'
+            'method = "rhf"\n\n' for name, basis in (("lab-h2-a", "sto-3g"),
+                                                     ("lab-h2-b", "6-31g"))),
+            encoding="utf-8")
+        return path
+
+    def names(self, *args, **kw):
+        from harness.cli import select_cases
+
+        return [c.name for c in select_cases(*args, **kw)[0]]
+
+    def test_the_file_alone_runs_all_its_cases(self, own):
+        assert self.names(None, None, own) == ["lab-h2-a", "lab-h2-b"]
+
+    def test_a_named_case_of_the_file_runs_alone(self, own):
+        assert self.names(None, ["lab-h2-b"], own) == ["lab-h2-b"]
+
+    def test_catalogue_names_still_work_beside_a_file(self, own):
+        assert self.names(None, ["h2-sto-3g-rhf", "lab-h2-a"], own) == ["h2-sto-3g-rhf",
+                                                                        "lab-h2-a"]
+
+    def test_a_suite_and_the_file_run_together(self, own):
+        from harness.cases import load_catalogue
+
+        smoke = [c.name for c in load_catalogue().suite("smoke")]
+        assert self.names(["smoke"], None, own) == smoke + ["lab-h2-a", "lab-h2-b"]
+
+    def test_certify_one_case_of_the_file(self, own, capsys):
+        code, out, err = run_main(capsys, "certify", "--cases-file", str(own),
+                                  "--case", "lab-h2-a", "--stability", "off")
+        assert code == 0, err
+        assert out.splitlines()[-1] == "1 passed, 0 failed"

@@ -24,6 +24,47 @@ def test_defaults_match_the_modules_they_mirror():
     assert config.DEFAULT_SUITE == cli.DEFAULT_SUITE
     assert config.DEFAULT_TIMEOUT == runner.DEFAULT_TIMEOUT
     assert config.DEFAULT_CONVERGENCE == problem.DEFAULT_CONVERGENCE
+    from harness.evaluate import STABILITY_MODES
+
+    assert config.STABILITY_CHOICES == STABILITY_MODES
+    assert config.DEFAULT_STABILITY == cli.build_parser().parse_args(["certify"]).stability
+
+
+def test_cases_file_key_is_relative_to_the_pyproject(tmp_path):
+    (tmp_path / "tests").mkdir()
+    mine = tmp_path / "tests" / "mine.toml"
+    mine.write_text("", encoding="utf-8")
+    s = config.load_settings(write(tmp_path, """
+[tool.scf-harness]
+plugin = "a:b"
+cases_file = "tests/mine.toml"
+"""), {})
+    assert s.cases_file == mine.resolve()
+    assert s.suites == ()  # a cases file alone runs only its cases
+    both = config.load_settings(write(tmp_path, """
+[tool.scf-harness]
+plugin = "a:b"
+cases_file = "tests/mine.toml"
+suite = "smoke"
+"""), {})
+    assert both.suites == ("smoke",) and both.cases_file == mine.resolve()
+
+
+def test_cases_file_flag_is_relative_to_where_pytest_started(tmp_path):
+    (tmp_path / "mine.toml").write_text("", encoding="utf-8")
+    flags = config.parse_flags(cases_file="mine.toml", base=tmp_path)
+    assert flags == {"cases_file": (tmp_path / "mine.toml").resolve()}
+    with pytest.raises(ConfigError, match=r"^--scf-cases-file: file not found: .*nope.toml$"):
+        config.parse_flags(cases_file="nope.toml", base=tmp_path)
+
+
+def test_reproduce_command_names_cases_file_and_stability(tmp_path):
+    s = Settings(plugin="mycode:solve", cases_file=tmp_path / "my cases.toml",
+                 stability="external")
+    assert s.reproduce_command("h2-mine") == (
+        f"scf-harness certify mycode:solve --cases-file '{tmp_path}/my cases.toml' "
+        "--case h2-mine --stability external")
+    assert Settings(plugin="m:f").reproduce_command("x") == "scf-harness certify m:f --case x"
 
 
 def test_table_is_read_and_validated(tmp_path):
@@ -74,6 +115,8 @@ timeout = 30
     ('timeout = true', "timeout: expected a number, got True"),
     ('convergence = 2', "convergence: expected a number in (0, 1), got 2"),
     ('stability = "sometimes"', "stability: expected one of internal, external, off"),
+    ('cases_file = "nope.toml"', "cases_file: file not found: "),
+    ('cases_file = 3', "cases_file: expected the path of a TOML suite file, got 3"),
     ('tolerances = { stationarty = 1e-5 }', "tolerances: unknown check 'stationarty'"),
     ('tolerances = { stationarity = -1 }', "tolerances: tolerance for stationarity must be "
                                            "positive and finite, got -1"),

@@ -270,3 +270,55 @@ def test_scf_check_uses_the_configured_tolerances(project):
     project.makepyfile(test_fixtures=FIXTURE_TESTS)
     result = project.runpytest("-k", "planted", "-p", "no:cacheprovider")
     result.assert_outcomes(passed=1, deselected=2)
+
+
+OWN_CASES = """
+[[case]]
+name = "lab-h2-sto-3g-rhf"
+geometry = "h2.xyz"
+basis = "sto-3g"
+method = "rhf"
+"""
+H2_XYZ = "2\nH2 at 0.74 angstrom\nH 0 0 0\nH 0 0 0.74\n"
+
+
+def test_cases_file_adds_the_labs_own_molecules(project):
+    """A cases file of the project's own (key relative to pyproject.toml) gives one item
+    per case; its reference is computed by pyscf on the fly. With the planted bug the
+    reproduce line names the file, so the command finds the case."""
+    project.mkdir("cases")
+    (project.path / "cases" / "mine.toml").write_text(OWN_CASES, encoding="utf-8")
+    (project.path / "cases" / "h2.xyz").write_text(H2_XYZ, encoding="utf-8")
+    project.makepyprojecttoml('[tool.scf-harness]\nplugin = "mycode:solve"\n'
+                              'cases_file = "cases/mine.toml"\n')
+    result = project.runpytest("-v", "-p", "no:cacheprovider")
+    result.assert_outcomes(passed=1)
+    assert "scf-harness::lab-h2-sto-3g-rhf PASSED" in "\n".join(lines_of(result))
+
+    failed = project.runpytest("--scf-plugin", PLANTED, "-p", "no:cacheprovider")
+    failed.assert_outcomes(failed=1)
+    section = failure_section(failed, "lab-h2-sto-3g-rhf")
+    mine = (project.path / "cases" / "mine.toml").resolve()
+    assert section[-1] == (f"reproduce: scf-harness certify {PLANTED} --cases-file {mine} "
+                           "--case lab-h2-sto-3g-rhf")
+
+
+STRETCHED = "h2-stretched-6-31g-uhf"
+SPIN_RESTRICTED = "harness.planted.states:never_breaks_spin_symmetry"
+
+
+@pytest.mark.parametrize("table, analysed", [("", True), ('stability = "off"', False)])
+def test_stability_setting_reaches_the_checks(project, table, analysed):
+    """A UHF code stuck on the spin-restricted saddle of stretched H2: the stability check
+    fails it under the default (internal) and is skipped with stability = off; the energy
+    comparison fails it either way."""
+    from harness.cases import load_catalogue
+
+    project.makepyprojecttoml(f"[tool.scf-harness]\n{table}\n")
+    result = project.runpytest("--scf-plugin", SPIN_RESTRICTED, "--scf-suite", "states",
+                               "-k", STRETCHED, "-p", "no:cacheprovider")
+    result.assert_outcomes(failed=1, deselected=len(load_catalogue().suite("states")) - 1)
+    head = failure_section(result, STRETCHED)
+    head = head[:head.index("")]
+    assert any(line.startswith("reference-energy: ") for line in head)
+    assert any(line.startswith("stability: ") for line in head) is analysed
