@@ -322,3 +322,19 @@ def test_stability_setting_reaches_the_checks(project, table, analysed):
     head = head[:head.index("")]
     assert any(line.startswith("reference-energy: ") for line in head)
     assert any(line.startswith("stability: ") for line in head) is analysed
+
+
+def test_items_run_under_xdist(project):
+    """The items are self-contained: ``-n 2`` (pytest-xdist) runs the suite in two worker
+    processes, with the same verdicts and failure reports as a serial run."""
+    pytest.importorskip("xdist")
+    good = project.runpytest_subprocess("--scf-plugin", "mycode:solve", "-n", "2",
+                                        "-p", "no:cacheprovider")
+    good.assert_outcomes(passed=len(SMOKE))
+    bad = project.runpytest_subprocess("--scf-plugin", PLANTED, "-n", "2",
+                                       "-p", "no:cacheprovider")
+    bad.assert_outcomes(failed=len(SMOKE))
+    text = "\n".join(lines_of(bad))
+    for name in SMOKE:
+        assert f"reproduce: scf-harness certify {PLANTED} --case {name}" in text
+    assert WATER_FIRST in text
