@@ -210,14 +210,17 @@ def _alive(pid: int) -> bool:
 class TestThroughTheRunner:
     SPEC = f"{Path(commands.__file__).resolve()}:{{}}"
 
-    def run(self, function, timeout=60.0):
+    def outcome(self, function, timeout=60.0):
         from harness.cases import load_catalogue
         from harness.runner import run_cases
         from harness.tolerances import Tolerances
 
         cases = [load_catalogue().case("h2-sto-3g-rhf")]
         return run_cases(cases, self.SPEC.format(function), tolerances=Tolerances(),
-                         timeout=timeout).cases[0]
+                         timeout=timeout)
+
+    def run(self, function, timeout=60.0):
+        return self.outcome(function, timeout).cases[0]
 
     def test_passes(self):
         result = self.run("lab_code")
@@ -238,48 +241,16 @@ class TestThroughTheRunner:
         assert "\n" not in result.error
         assert "(at " not in result.error  # no harness frame: the message says what failed
 
-    def test_timeout_leaves_nothing_running(self):
-        """The harness's per-case timeout stops the plug-in's process, which kills the
-        external code and removes its scratch folder: nothing is left behind."""
-        commands.SCRATCH.mkdir(parents=True, exist_ok=True)
-        for old in commands.SCRATCH.glob("*.pid"):
-            old.unlink()
-        result = self.run("sleeper", timeout=3.0)
-        assert result.error == "timed out after 3.0 s"
-        (pidfile,) = commands.SCRATCH.glob("h2-sto-3g-rhf-*.pid")
-        pid = int(pidfile.read_text())
-        deadline = time.monotonic() + 5
-        while _alive(pid) and time.monotonic() < deadline:
-            time.sleep(0.05)
-        assert not _alive(pid)
-        assert not pidfile.with_suffix("").exists()  # its scratch folder was removed
-        pidfile.unlink()
-
-    def test_interrupted_run_leaves_nothing_running(self):
-        """Ctrl-C while the external code runs: the run stops, the program is killed
-        and its scratch folder removed."""
-        import threading
-
-        from harness import runner
-
+    @staticmethod
+    def forget_old_pidfiles():
         commands.SCRATCH.mkdir(parents=True, exist_ok=True)
         for old in commands.SCRATCH.glob("*.pid"):
             old.unlink()
 
-        def interrupt_once_started():
-            deadline = time.monotonic() + 30
-            while not list(commands.SCRATCH.glob("*.pid")) and time.monotonic() < deadline:
-                time.sleep(0.05)
-            runner.request_interrupt()
-
-        threading.Thread(target=interrupt_once_started, daemon=True).start()
-        from harness.cases import load_catalogue
-        from harness.tolerances import Tolerances
-
-        outcome = runner.run_cases([load_catalogue().case("h2-sto-3g-rhf")],
-                                   self.SPEC.format("sleeper"), tolerances=Tolerances(),
-                                   timeout=60.0)
-        assert outcome.interrupted and outcome.cases == ()
+    @staticmethod
+    def assert_nothing_left():
+        """The sleeper's program is gone and so is its scratch folder (``<dir>.pid``
+        stands beside it)."""
         (pidfile,) = commands.SCRATCH.glob("h2-sto-3g-rhf-*.pid")
         pid = int(pidfile.read_text())
         deadline = time.monotonic() + 5
@@ -288,3 +259,31 @@ class TestThroughTheRunner:
         assert not _alive(pid)
         assert not pidfile.with_suffix("").exists()
         pidfile.unlink()
+
+    def test_timeout_leaves_nothing_running(self):
+        """The harness's per-case timeout stops the plug-in's process, which kills the
+        external code and removes its scratch folder: nothing is left behind."""
+        self.forget_old_pidfiles()
+        result = self.run("sleeper", timeout=3.0)
+        assert result.error == "timed out after 3.0 s"
+        self.assert_nothing_left()
+
+    def test_interrupted_run_leaves_nothing_running(self):
+        """Ctrl-C while the external code runs: the run stops, the program is killed
+        and its scratch folder removed."""
+        import threading
+
+        from harness import runner
+
+        self.forget_old_pidfiles()
+
+        def interrupt_once_started():
+            deadline = time.monotonic() + 30
+            while not list(commands.SCRATCH.glob("*.pid")) and time.monotonic() < deadline:
+                time.sleep(0.05)
+            runner.request_interrupt()
+
+        threading.Thread(target=interrupt_once_started, daemon=True).start()
+        outcome = self.outcome("sleeper", timeout=60.0)
+        assert outcome.interrupted and outcome.cases == ()
+        self.assert_nothing_left()
