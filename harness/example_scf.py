@@ -49,7 +49,8 @@ class Integrals:
     """AO integrals of one problem (Eh; pyscf AO order).
 
     s overlap S_μν, t kinetic T_μν, v nuclear attraction V_μν, eri (μν|λσ) as a full
-    (nao, nao, nao, nao) array, e_nuc the nuclear repulsion energy Σ_{A<B} Z_A Z_B / R_AB.
+    (nao, nao, nao, nao) array, e_nuc the nuclear repulsion energy Σ_{A<B} Z_A Z_B / R_AB,
+    shells the AO offsets of the shells (shell I holds AOs shells[I] … shells[I+1] − 1).
     """
 
     s: np.ndarray
@@ -57,6 +58,7 @@ class Integrals:
     v: np.ndarray
     eri: np.ndarray
     e_nuc: float
+    shells: tuple[int, ...]
 
 
 def compute_integrals(problem) -> Integrals:
@@ -72,7 +74,8 @@ def compute_integrals(problem) -> Integrals:
     eri = ao2mo.restore(1, mol.intor("int2e", aosym="s8"), nao)
     return Integrals(s=mol.intor("int1e_ovlp"), t=mol.intor("int1e_kin"),
                      v=mol.intor("int1e_nuc"), eri=np.ascontiguousarray(eri),
-                     e_nuc=float(mol.energy_nuc()))
+                     e_nuc=float(mol.energy_nuc()),
+                     shells=tuple(int(i) for i in mol.ao_loc_nr(cart=mol.cart)))
 
 
 def canonical_orthogonaliser(s: np.ndarray, threshold: float = LINEAR_DEPENDENCE) -> np.ndarray:
@@ -246,21 +249,34 @@ class LabSCF:
                              density(c, (occ >= 2).astype(float))])
         return density(c, occ)
 
-    def guess(self):
-        """Initial orbitals (ε, C): the generalised Wolfsberg–Helmholz guess.
+    def guess_orbitals(self):
+        """One set of orbitals (ε, C): the generalised Wolfsberg–Helmholz guess, in a form
+        that does not depend on how the molecule is oriented.
 
-        Diagonalise G with G_μμ = H_μμ and G_μν = ½ K (H_μμ + H_νν) S_μν (μ ≠ ν),
-        K = WOLFSBERG_HELMHOLZ. (The bare core Hamiltonian leads open shells such as OH
+        Diagonalise G with G_μν = ½ K (h_I + h_J) S_μν for μ in shell I, ν in another
+        shell J, and G = H within each shell, K = WOLFSBERG_HELMHOLZ; h_I = tr(S_II⁻¹ H_II)
+        / n_I is the shell's mean diagonal. Each block of G then turns with its shells
+        exactly as S and H do. (The textbook form uses H_μμ in place of h_I; when the
+        molecule turns, the p, d, … components mix, H_μμ changes, and an open shell can
+        converge to another state. The bare core Hamiltonian leads open shells such as OH
         and NH₂ into excited states; this guess reaches their ground states.)
-
-        UHF with n_α = n_β: rotate HOMO and LUMO by +45° (alpha) and −45° (beta), so that
-        a singlet can reach a broken-symmetry solution when that is lower (it returns to
-        the restricted solution otherwise).
         """
-        hd = np.diag(self.h)
+        shells = self.ints.shells
+        hd = np.empty(self.s.shape[0])
+        for a, b in zip(shells[:-1], shells[1:]):
+            hd[a:b] = np.trace(np.linalg.solve(self.s[a:b, a:b], self.h[a:b, a:b])) / (b - a)
         g = 0.5 * WOLFSBERG_HELMHOLZ * (hd[:, None] + hd[None, :]) * self.s
-        np.fill_diagonal(g, hd)
-        e, c = self.eigensolve(g)
+        for a, b in zip(shells[:-1], shells[1:]):
+            g[a:b, a:b] = self.h[a:b, a:b]
+        return self.eigensolve(g)
+
+    def guess(self):
+        """Initial orbitals (ε, C): :meth:`guess_orbitals`; for UHF with n_α = n_β the
+        HOMO and LUMO are rotated by +45° (alpha) and −45° (beta), so that a singlet can
+        reach a broken-symmetry solution when that is lower (it returns to the restricted
+        solution otherwise).
+        """
+        e, c = self.guess_orbitals()
         if self.method != "uhf":
             return e, c
         ca, cb = c.copy(), c.copy()

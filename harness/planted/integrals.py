@@ -12,6 +12,8 @@ Load one with the plug-in spec ``harness.planted.integrals:<name>``.
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 
 from harness.example_scf import LabSCF
@@ -69,8 +71,7 @@ def all_integrals_reported(problem) -> dict:
 class _KineticWithoutHalf(_Recording):
     def __init__(self, problem, *args, **kwargs):
         super().__init__(problem, *args, **kwargs)
-        self.ints = type(self.ints)(s=self.ints.s, t=2.0 * self.ints.t, v=self.ints.v,
-                                    eri=self.ints.eri, e_nuc=self.ints.e_nuc)
+        self.ints = dataclasses.replace(self.ints, t=2.0 * self.ints.t)
         self.h = self.core_hamiltonian()
 
 

@@ -84,8 +84,9 @@ def test_restricted_uhf_message_and_hint():
 
 
 def test_stable_higher_minimum_passes_stability_but_not_reference():
-    """The lab code on the ethynyl radical (ROHF) finds a real local minimum 0.0134 Eh up."""
-    results, hint = run(_index("lab_code_as_shipped", "c2h-6-31g-rohf"))
+    """The textbook-guess lab code on the ethynyl radical (ROHF) finds a real local
+    minimum 0.0134 Eh up."""
+    results, hint = run(_index("ao_diagonal_guess", "c2h-6-31g-rohf"))
     assert results["stability"].status is Status.PASSED
     assert 0 < results["stability"].value < 1e-2  # a shallow minimum, measured 2.8e-4
     assert hint == "your solution is the known state 1, 0.0134 Eh above the ground state " \
