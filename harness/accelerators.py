@@ -69,7 +69,10 @@ counted as described there).
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
+import signal
+import threading
 import time
 from typing import Any, Callable
 
@@ -78,11 +81,16 @@ import numpy as np
 from harness.checks.energy import fock_from_terms
 from harness.checks.orthonormal import LINEAR_DEPENDENCE, lowdin
 from harness.checks.stationarity import commutator, rohf_conditions
-from harness.errors import PluginLoadError
+from harness.errors import PluginLoadError, first_line
 from harness.problem import Problem
 
 #: Fock builds allowed per run (the same budget for every method).
 MAX_FOCK_BUILDS = 100
+
+#: Seconds one call of a user's accelerator (``reset`` or ``step``) may take before the
+#: run fails with "took longer than …" (:func:`time_limited`). A step is a small linear
+#: problem (a DIIS solve takes milliseconds), so a minute means the accelerator hangs.
+ACCELERATOR_CALL_LIMIT = 60.0
 
 #: Fock damping of the damping baseline: F_in ← (1 − w) F(P) + w F_in(previous), w = DAMPING.
 DAMPING = 0.5
@@ -419,11 +427,6 @@ def _fail(reason, builds, rows, start, orb=None, d=None) -> ScfRun:
                   orb, d)
 
 
-def _first_line(exc: BaseException) -> str:
-    text = str(exc).strip().splitlines()
-    return f"{type(exc).__name__}: {text[0]}" if text else type(exc).__name__
-
-
 def _checked_output(out, shape: tuple[int, ...], what: str) -> np.ndarray:
     """The accelerator's matrix as a float array of ``shape``; ValueError if unusable."""
     try:
@@ -473,7 +476,7 @@ def _run_scf(ham, accelerator, start, *, convergence, problem, max_fock_builds, 
     try:
         accelerator.reset(problem)
     except Exception as exc:  # the accelerator's own code
-        return _fail(f"reset raised {_first_line(exc)}", 0, rows, t0)
+        return _fail(f"reset raised {first_line(exc)}", 0, rows, t0)
     low = lowdin(ham.s)
     xc = canonical_orthogonaliser(ham.s)
     orb = start
@@ -500,7 +503,7 @@ def _run_scf(ham, accelerator, start, *, convergence, problem, max_fock_builds, 
         try:
             out = accelerator.step(it)
         except Exception as exc:  # the accelerator's own code
-            return _fail(f"step raised {_first_line(exc)} at Fock build {builds}", builds,
+            return _fail(f"step raised {first_line(exc)} at Fock build {builds}", builds,
                          rows, t0, orb, d)
         try:
             a = _checked_output(out, fw.shape, returns)
@@ -693,7 +696,7 @@ def _run_newton(ham: Hamiltonian, start: Orbitals, *, convergence: float,
     except _BudgetUsed:
         reason = f"budget of {max_fock_builds} Fock builds used up"
     except Exception as exc:  # pyscf's solver on a hard case
-        status, reason = "failed", f"pyscf newton raised {_first_line(exc)}"
+        status, reason = "failed", f"pyscf newton raised {first_line(exc)}"
     builds = int(np.ceil(count[0] - 1e-9))
     if not rows:
         return ScfRun("failed" if status == "failed" else "not converged",
@@ -758,6 +761,64 @@ def as_factory(obj) -> Callable[[], Any]:
 
     make()  # fail early, at load time
     return make
+
+
+class AcceleratorTimeout(Exception):
+    """A call of the accelerator took longer than its time limit."""
+
+
+@contextlib.contextmanager
+def _alarm(seconds: float, message: str):
+    """Raise AcceleratorTimeout(message) in this thread after ``seconds`` (SIGALRM; in
+    any other than the main thread no limit applies)."""
+    if not seconds or threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def ring(signum, frame):
+        raise AcceleratorTimeout(message)
+
+    before = signal.signal(signal.SIGALRM, ring)
+    signal.setitimer(signal.ITIMER_REAL, seconds)
+    try:
+        yield
+    finally:
+        signal.setitimer(signal.ITIMER_REAL, 0)
+        signal.signal(signal.SIGALRM, before)
+
+
+class _TimeLimited:
+    """An accelerator whose ``reset`` and ``step`` calls each get ``seconds``."""
+
+    def __init__(self, inner, seconds: float):
+        self._inner = inner
+        self._seconds = seconds
+        self.returns = getattr(inner, "returns", "fock")
+
+    def __getattr__(self, name):  # anything else the accelerator offers
+        if name.startswith("_"):
+            raise AttributeError(name)
+        return getattr(self._inner, name)
+
+    def _call(self, what: str, arg):
+        with _alarm(self._seconds, f"{what} took longer than {self._seconds:g} s"):
+            return getattr(self._inner, what)(arg)
+
+    def reset(self, problem):
+        return self._call("reset", problem)
+
+    def step(self, it):
+        return self._call("step", it)
+
+
+def time_limited(factory: Callable[[], Any], seconds: float | None = ACCELERATOR_CALL_LIMIT
+                 ) -> Callable[[], Any]:
+    """A factory of the same accelerators whose every ``reset``/``step`` call raises
+    AcceleratorTimeout after ``seconds`` (None or 0: no limit). The harness loop turns
+    that into a failed run; the bench, into a failed property."""
+    if not seconds:
+        return factory
+    return lambda: _TimeLimited(factory(), seconds)
 
 
 def load_accelerator(spec_or_object) -> tuple[str, Callable[[], Any]]:

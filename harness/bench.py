@@ -34,6 +34,7 @@ from typing import Any, Callable, Iterable, Sequence
 import numpy as np
 
 from harness import accelerators as acc
+from harness.errors import first_line
 from harness.tolerances import REFERENCE_ENERGY
 
 #: Starting guesses perturbed from the default one (the default guess is always run).
@@ -398,29 +399,46 @@ def accelerator_properties(factory, problem, ham: acc.Hamiltonian, start: acc.Or
     from harness.example_accelerator import CommutatorDIIS
 
     rec: list = []
-    acc.run_scf(ham, factory(), start, convergence=convergence, problem=problem, record=rec,
-                max_fock_builds=PROPERTY_HISTORY + 1)
+    try:
+        acc.run_scf(ham, factory(), start, convergence=convergence, problem=problem,
+                    record=rec, max_fock_builds=PROPERTY_HISTORY + 1)
+    except Exception:  # the accelerator's constructor; the properties below report it
+        pass
     tight = min(convergence, acc.FIXED_POINT_CONVERGENCE)
     ref_run = acc.run_scf(ham, CommutatorDIIS(), start, convergence=tight, problem=problem)
     out = []
     final = acc.converged_iterate(ham, ref_run, tight) if ref_run.converged else None
     if final is not None:
-        out.append(acc.fixed_point(factory, problem, ham, [it for it, _ in rec] + [final]))
+        out.append(_guarded("fixed-point", lambda: acc.fixed_point(
+            factory, problem, ham, [it for it, _ in rec] + [final])))
     else:
         out.append(acc.PropertyResult("fixed-point", None, float("nan"),
                                       f"n.a.: no state converged to {tight:.0e} to hand over "
                                       f"({ref_run.reason})"))
-    out.append(acc.determinism(factory, problem, ham, start, convergence))
+    out.append(_guarded("determinism", lambda: acc.determinism(factory, problem, ham, start,
+                                                               convergence)))
     rng = np.random.default_rng(PROPERTY_SEED)
     if acc.lowdin(ham.s).n_dropped == 0:
-        out.append(acc.invariance(factory, problem, ham, start,
-                                  random_orthonormal_basis(ham.s, rng), convergence,
-                                  "random orthonormal basis"))
-    out.append(rotation_invariance(factory, problem, convergence))
+        basis = random_orthonormal_basis(ham.s, rng)
+        out.append(_guarded("invariance", lambda: acc.invariance(
+            factory, problem, ham, start, basis, convergence, "random orthonormal basis")))
+    out.append(_guarded("rotation-invariance",
+                        lambda: rotation_invariance(factory, problem, convergence)))
     first = rec[0][0] if rec else final
     if first is not None:
-        out.append(acc.degenerate_subspace(factory, problem, ham, first))
+        out.append(_guarded("no-nan-degenerate",
+                            lambda: acc.degenerate_subspace(factory, problem, ham, first)))
     return out
+
+
+def _guarded(name: str, compute: Callable[[], acc.PropertyResult]) -> acc.PropertyResult:
+    """``compute()``, or a failed property naming what the accelerator raised (an
+    exception, a wrong return value, a call over its time limit)."""
+    try:
+        return compute()
+    except Exception as exc:  # the accelerator's own code
+        return acc.PropertyResult(name, False, float("nan"),
+                                  f"the accelerator raised {first_line(exc)}")
 
 
 # --------------------------------------------------------------------------- the bench
@@ -451,7 +469,8 @@ def run_bench(accelerator, *, cases, guesses: int = DEFAULT_GUESSES, seed: int =
               report_dir=None, baselines: Sequence[str] = DEFAULT_BASELINES,
               progress: Callable | None = None, references=None,
               write_references: bool = False, properties: bool = True,
-              max_fock_builds: int = acc.MAX_FOCK_BUILDS) -> BenchOutcome:
+              max_fock_builds: int = acc.MAX_FOCK_BUILDS,
+              call_limit: float | None = acc.ACCELERATOR_CALL_LIMIT) -> BenchOutcome:
     """Bench ``accelerator`` against ``baselines`` on ``cases`` (module docstring).
 
     accelerator: ``"MODULE:NAME"`` / ``"path.py:NAME"`` or an object (class or instance
@@ -461,12 +480,16 @@ def run_bench(accelerator, *, cases, guesses: int = DEFAULT_GUESSES, seed: int =
     (created; None: nothing written). progress: called as ``progress(done, total,
     record)`` after every run. references / write_references: passed to
     ``reference_for`` (directory of stored references; store computed ones).
+    call_limit: seconds each ``reset``/``step`` call of the accelerator may take
+    (:func:`harness.accelerators.time_limited`; None: no limit); a slower call fails
+    that run or property, and the bench goes on.
     Raises HarnessError (one line) for a bad accelerator or baseline name.
     """
     from harness.references import reference_for
 
     t0 = time.perf_counter()
     name, factory = acc.load_accelerator(accelerator)
+    factory = acc.time_limited(factory, call_limit)
     if name in baselines:
         name = f"{name} (yours)"
     cases = tuple(cases)

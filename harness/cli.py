@@ -268,6 +268,11 @@ def build_parser() -> argparse.ArgumentParser:
     ben.add_argument("--baselines", type=_baselines, default=None, metavar="A,B,...",
                      help="the baselines to run, comma-separated (default: all of "
                      f"{', '.join(_bench.DEFAULT_BASELINES)})")
+    ben.add_argument("--call-timeout", type=_positive_float,
+                     default=_bench.acc.ACCELERATOR_CALL_LIMIT, metavar="S",
+                     help="seconds one reset or step call of the accelerator may take; a "
+                     "slower call fails that run or property and the bench goes on "
+                     f"(default: {_bench.acc.ACCELERATOR_CALL_LIMIT:g})")
 
     refs = sub.add_parser("references", help="build or verify the stored pyscf references",
                           description="Build or verify the stored pyscf references.")
@@ -586,15 +591,16 @@ def _bench(args, console) -> int:
         raise UsageError(f"--suite: suite {args.suite!r} has no cases")
 
     def progress(done, total, record):
+        why = f" ({record.reason})" if record.status == "failed" and record.reason else ""
         console.print(f"[{done}/{total}] {record.case} guess {record.guess} "
-                      f"{record.method}: {record.status}, {record.fock_builds} Fock builds, "
-                      f"{record.state}", markup=False, highlight=False, soft_wrap=True)
+                      f"{record.method}: {record.status}{why}, {record.fock_builds} Fock "
+                      f"builds, {record.state}", markup=False, highlight=False, soft_wrap=True)
 
     options = {} if args.baselines is None else {"baselines": args.baselines}
     outcome = bench.run_bench(args.accelerator, cases=cases, guesses=args.guesses,
                               seed=args.seed, report_dir=args.report,
                               references=bench.bench_reference_dir(args.suite),
-                              progress=progress, **options)
+                              progress=progress, call_limit=args.call_timeout, **options)
     print("\n".join(bench.summary_lines(outcome)))
     return outcome.exit_status
 

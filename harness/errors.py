@@ -43,3 +43,10 @@ class ReferenceDataError(HarnessError):
 
 class ToleranceError(HarnessError):
     """A tolerance override names an unknown check or is not a positive number."""
+
+
+def first_line(exc: BaseException) -> str:
+    """``"<ExcType>: <first line of its message>"`` (or just the type), for one-line
+    reports of an exception raised by a user's code."""
+    text = str(exc).strip().splitlines()
+    return f"{type(exc).__name__}: {text[0]}" if text else type(exc).__name__

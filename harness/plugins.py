@@ -16,7 +16,7 @@ import sys
 from pathlib import Path
 from typing import Any, Callable
 
-from harness.errors import PluginLoadError
+from harness.errors import PluginLoadError, first_line
 
 FORMS = "MODULE:FUNCTION or path/to/file.py:FUNCTION"
 
@@ -38,11 +38,6 @@ def is_file_target(target: str) -> bool:
     return target.endswith(".py") or "/" in target or os.sep in target
 
 
-def _first_line(exc: BaseException) -> str:
-    text = str(exc).strip().splitlines()
-    return f"{type(exc).__name__}: {text[0]}" if text else type(exc).__name__
-
-
 def _put_first_on_path(folder: str) -> None:
     if folder in sys.path:
         sys.path.remove(folder)
@@ -60,10 +55,10 @@ def _import_module(spec: str, name: str):
             raise PluginLoadError(f"plug-in {spec!r}: module {missing!r} not found (searched "
                                   f"the current directory and sys.path)") from None
         raise PluginLoadError(f"plug-in {spec!r}: importing {name} failed: "
-                              f"{_first_line(exc)}") from None
+                              f"{first_line(exc)}") from None
     except (Exception, SystemExit) as exc:
         raise PluginLoadError(f"plug-in {spec!r}: importing {name} failed: "
-                              f"{_first_line(exc)}") from None
+                              f"{first_line(exc)}") from None
 
 
 def _module_name_for(path: Path) -> str:
@@ -100,7 +95,7 @@ def _load_file(spec: str, target: str):
     except (Exception, SystemExit) as exc:
         del sys.modules[name]
         raise PluginLoadError(f"plug-in {spec!r}: importing {target} failed: "
-                              f"{_first_line(exc)}") from None
+                              f"{first_line(exc)}") from None
     return module
 
 

@@ -6,6 +6,8 @@ come from pyscf's own SCF driver, not from this loop).
 
 from __future__ import annotations
 
+import time
+
 import numpy as np
 import pytest
 
@@ -110,6 +112,50 @@ def test_misbehaving_accelerator_fails_the_run(setup, what, words):
     run = acc.run_scf(ham, _Bad(what), start, convergence=problem.convergence, problem=problem)
     assert run.status == "failed"
     assert words in run.reason
+
+
+class _Hangs:
+    """Returns the Fock unchanged, except that its second step never ends."""
+
+    returns = "fock"
+
+    def reset(self, problem):
+        self.calls = 0
+
+    def step(self, it):
+        self.calls += 1
+        while self.calls == 2:
+            time.sleep(0.01)
+        return it.fock
+
+
+def test_a_hanging_step_fails_the_run_at_the_call_limit(setup):
+    """time_limited: a step over its limit fails the run with the reason, promptly."""
+    _, problem, ham, start = setup("water-sto-3g-rhf")
+    started = time.monotonic()
+    run = acc.run_scf(ham, acc.time_limited(_Hangs, 0.2)(), start,
+                      convergence=problem.convergence, problem=problem)
+    assert run.status == "failed"
+    assert run.reason == ("step raised AcceleratorTimeout: step took longer than 0.2 s at "
+                          "Fock build 2")
+    assert time.monotonic() - started < 30  # the step never returns by itself
+
+
+def test_time_limit_keeps_a_working_accelerator_and_its_attributes(setup):
+    """Within its limit the wrapped accelerator runs as it is (same sequence), keeps its
+    declared kind and other attributes, and no alarm is left behind."""
+    import signal
+
+    from harness.example_accelerator import CommutatorDIIS
+
+    _, problem, ham, start = setup("water-sto-3g-rhf")
+    plain = acc.run_scf(ham, CommutatorDIIS(), start, convergence=problem.convergence)
+    wrapped = acc.time_limited(CommutatorDIIS, 5.0)()
+    assert wrapped.returns == "fock" and wrapped.size == CommutatorDIIS().size
+    run = acc.run_scf(ham, wrapped, start, convergence=problem.convergence)
+    assert np.array_equal(run.history, plain.history)
+    assert signal.getitimer(signal.ITIMER_REAL) == (0.0, 0.0)
+    assert acc.time_limited(CommutatorDIIS, None) is CommutatorDIIS
 
 
 def test_declared_return_kind_is_checked(setup):

@@ -190,3 +190,34 @@ def test_ediis_adiis_baselines(catalogue):
     for name in ("pyscf-ediis", "pyscf-adiis"):
         assert runs[name].converged and runs[name].state == "ground state"
         assert runs[name].fock_builds > runs["pyscf-cdiis"].fock_builds
+
+
+class _RaisesLater:
+    """Fine for three steps, then raises (so the properties that replay it fail)."""
+
+    returns = "fock"
+
+    def reset(self, problem):
+        self.calls = 0
+
+    def step(self, it):
+        self.calls += 1
+        if self.calls > 3:
+            raise RuntimeError("boom")
+        return it.fock
+
+
+def test_an_accelerator_that_raises_fails_runs_and_properties_not_the_bench(catalogue):
+    """The bench goes on: the runs fail with the reason and each property the exception
+    broke is failed with it."""
+    outcome = run_bench(_RaisesLater, cases=[catalogue.case("water-sto-3g-rhf")], guesses=0,
+                        baselines=("roothaan",))
+    mine = [r for r in outcome.records if r.method == outcome.accelerator]
+    assert [r.status for r in mine] == ["failed"]
+    assert mine[0].reason == "step raised RuntimeError: boom at Fock build 4"
+    props = {p.name: p for p in outcome.properties}
+    for name in ("fixed-point", "no-nan-degenerate"):
+        assert props[name].passed is False
+        assert props[name].detail == "the accelerator raised RuntimeError: boom"
+    assert outcome.exit_status == 1
+

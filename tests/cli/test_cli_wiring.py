@@ -236,6 +236,25 @@ class TestBench:
         assert code == 1, out + err
         assert "fixed-point" in out
 
+    def test_hanging_accelerator_is_stopped_by_call_timeout(self, capsys, tmp_path):
+        """--call-timeout: a step that never returns fails its runs and properties;
+        the bench finishes and exits 1."""
+        (tmp_path / "stuck.py").write_text(
+            "import time\n\n\nclass Stuck:\n    def reset(self, problem):\n"
+            "        pass\n\n    def step(self, it):\n        while True:\n"
+            "            time.sleep(0.01)\n", encoding="utf-8")
+        code, out, err = run_main(capsys, "bench", f"{tmp_path / 'stuck.py'}:Stuck",
+                                  "--suite", "smoke", "--guesses", "0",
+                                  "--baselines", "roothaan", "--call-timeout", "0.2")
+        assert code == 1, out + err
+        assert "Traceback" not in out + err
+        assert ("[3/8] water-sto-3g-rhf guess 0 Stuck: failed (step raised "
+                "AcceleratorTimeout: step took longer than 0.2 s at Fock build 1), 1 Fock "
+                "builds, —") in out.splitlines()
+        assert ("  ✗ fixed-point: fails on 4/4 cases; h2-sto-3g-rhf: the accelerator raised "
+                "AcceleratorTimeout: step took longer than 0.2 s") in out.splitlines()
+        assert "bench failed" in out
+
     @pytest.mark.parametrize("args, fragment", [
         (["no_such_module_xyz:Thing"], "no_such_module_xyz"),
         ([ACCELERATOR, "--baselines", "roothaan,nosuch"], "unknown baseline 'nosuch'"),
