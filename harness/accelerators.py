@@ -20,9 +20,24 @@ An accelerator is an object with
   density with the shape of ``iterate.density`` instead;
 * ``name`` (optional): shown in the tables (default: the class name).
 
-``scf-harness bench MODULE:NAME`` accepts a class (instantiated once per run) or an
-instance (``reset`` is called before each run). The bundled example is
+``scf-harness bench MODULE:ACCELERATOR`` (:func:`load_accelerator`) accepts exactly two
+things: a *class*, instantiated with no arguments for every run (and once at load, to
+check it), or an *instance*, any other object with callable ``reset`` and ``step`` (used
+as it is; ``reset`` is called before each run). Nothing else is called: a function, a
+method, a module or a number is refused at load, uncalled. A load problem — the class
+lacks ``reset``/``step``, creating it raises, ``returns`` is not ``"fock"`` or
+``"density"``, reading an attribute raises — is a one-line
+:class:`harness.errors.PluginLoadError` naming the spec (a usage error: exit 2). The name
+shown is ``name`` (or the class name) without control characters, at most
+:data:`NAME_LENGTH` characters. The bundled example is
 :class:`harness.example_accelerator.CommutatorDIIS`.
+
+Whatever the accelerator's code raises during a run — any exception, ``SystemExit``
+(``sys.exit``), ``GeneratorExit`` or another ``BaseException`` — fails that run (or that
+property) with a one-line reason; only ``KeyboardInterrupt`` stops the bench. So does an
+unusable return value (:class:`ProtocolError`: not numeric, complex, wrong shape, NaN,
+non-symmetric) and a call over its time limit (:class:`AcceleratorTimeout`, which user
+code's ``except Exception`` does not catch).
 
 What the accelerator sees (:class:`Iterate`), per method, as a *working pair* (F, P),
 both with a leading component axis:
@@ -71,9 +86,12 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+import inspect
+import re
 import signal
 import threading
 import time
+import unicodedata
 from typing import Any, Callable
 
 import numpy as np
@@ -91,6 +109,12 @@ MAX_FOCK_BUILDS = 100
 #: run fails with "took longer than …" (:func:`time_limited`). A step is a small linear
 #: problem (a DIIS solve takes milliseconds), so a minute means the accelerator hangs.
 ACCELERATOR_CALL_LIMIT = 60.0
+#: Largest call limit accepted (s, about 11.6 days): the interval timer behind the limit
+#: cannot hold much longer ones (1e10 s overflows it), and no step should take days.
+MAX_CALL_LIMIT = 1e6
+
+#: Longest accelerator name shown (characters; a longer one is cut and ends in "…").
+NAME_LENGTH = 40
 
 #: Fock damping of the damping baseline: F_in ← (1 − w) F(P) + w F_in(previous), w = DAMPING.
 DAMPING = 0.5
@@ -427,22 +451,73 @@ def _fail(reason, builds, rows, start, orb=None, d=None) -> ScfRun:
                   orb, d)
 
 
-def _checked_output(out, shape: tuple[int, ...], what: str) -> np.ndarray:
-    """The accelerator's matrix as a float array of ``shape``; ValueError if unusable."""
+class ProtocolError(ValueError):
+    """The accelerator broke the protocol (an unusable return value or declaration); the
+    message says how, e.g. "returned a fock of shape (6, 6), expected (1, 7, 7)"."""
+
+
+def _as_matrix(out, shape: tuple[int, ...], what: str) -> np.ndarray:
+    """The accelerator's matrix as a real float array of ``shape`` (``(n, n)`` accepted for
+    one component); ProtocolError if it is not numeric, complex or of another shape."""
     try:
-        a = np.array(out, dtype=np.float64)
+        a = np.asarray(out)
+        complex_ = np.iscomplexobj(a)
+        if not complex_:
+            a = np.array(a, dtype=np.float64)
+    except KeyboardInterrupt:
+        raise
     except (TypeError, ValueError):
-        raise ValueError(f"returned {type(out).__name__}, not a numeric {what} array") from None
+        raise ProtocolError(f"returned {type(out).__name__}, not a numeric {what} "
+                            f"array") from None
+    except BaseException as exc:  # the object's own __array__, or a number beyond float
+        raise ProtocolError(f"returned {type(out).__name__}, not a numeric {what} array "
+                            f"({first_line(exc)})") from None
+    if complex_:
+        raise ProtocolError(f"returned a complex {what}")
     if a.shape == shape[1:] and shape[0] == 1:
         a = a[None]
     if a.shape != shape:
-        raise ValueError(f"returned a {what} of shape {a.shape}, expected {shape}")
+        raise ProtocolError(f"returned a {what} of shape {a.shape}, expected {shape}")
+    return a
+
+
+def _checked_output(out, shape: tuple[int, ...], what: str) -> np.ndarray:
+    """The accelerator's matrix as a finite symmetric float array of ``shape``
+    (symmetrised: ½(A + Aᵀ)); ProtocolError (a ValueError) if unusable."""
+    a = _as_matrix(out, shape, what)
     if not np.all(np.isfinite(a)):
-        raise ValueError(f"returned a {what} with NaN or inf")
+        raise ProtocolError(f"returned a {what} with NaN or inf")
     asym = np.abs(a - np.swapaxes(a, 1, 2)).max()
     if asym > SYMMETRY_TOLERANCE * max(1.0, np.abs(a).max()):
-        raise ValueError(f"returned a non-symmetric {what} (max|A − Aᵀ| = {asym:.1e})")
+        raise ProtocolError(f"returned a non-symmetric {what} (max|A − Aᵀ| = {asym:.1e})")
     return 0.5 * (a + np.swapaxes(a, 1, 2))
+
+
+def _short(value) -> str:
+    """``value`` for a one-line message: ``=repr`` of a plain scalar or string (cut at
+    NAME_LENGTH characters), else `` of type T``."""
+    if value is None or type(value) in (str, bool, int, float):
+        try:
+            text = repr(value)
+        except ValueError:  # an int too long to print
+            text = "a huge int"
+        return "=" + (text if len(text) <= NAME_LENGTH else text[:NAME_LENGTH - 1] + "…")
+    return f" of type {type(value).__name__}"
+
+
+def declared_returns(accelerator) -> str:
+    """``accelerator.returns`` ("fock" when absent); ProtocolError if it is not one of
+    RETURNS (the exact string) or reading it raises."""
+    try:
+        returns = getattr(accelerator, "returns", "fock")
+    except KeyboardInterrupt:
+        raise
+    except BaseException as exc:  # a property of the user's code
+        raise ProtocolError(f"reading its returns attribute raised {first_line(exc)}") from None
+    if not (isinstance(returns, str) and returns in RETURNS):
+        raise ProtocolError(f"declares returns{_short(returns)}, expected 'fock' or "
+                            f"'density'")
+    return returns
 
 
 def _threads(ham: Hamiltonian):
@@ -459,7 +534,8 @@ def run_scf(ham: Hamiltonian, accelerator, start: Orbitals, *, convergence: floa
 
     ``accelerator.reset(problem)`` is called first. ``record``, if a list, receives every
     (Iterate, returned array) pair, for the determinism property. Never raises for what
-    the accelerator does: exceptions, NaNs and wrong shapes make a "failed" run.
+    the accelerator does: whatever it raises (except KeyboardInterrupt), NaNs and wrong
+    shapes make a "failed" run.
     """
     with _threads(ham):
         return _run_scf(ham, accelerator, start, convergence=convergence, problem=problem,
@@ -469,13 +545,15 @@ def run_scf(ham: Hamiltonian, accelerator, start: Orbitals, *, convergence: floa
 def _run_scf(ham, accelerator, start, *, convergence, problem, max_fock_builds, record):
     t0 = time.perf_counter()
     rows: list[tuple[float, float, float]] = []
-    returns = getattr(accelerator, "returns", "fock")
-    if returns not in RETURNS:
-        return _fail(f"accelerator declares returns={returns!r}, expected 'fock' or "
-                     f"'density'", 0, rows, t0)
+    try:
+        returns = declared_returns(accelerator)
+    except ProtocolError as exc:
+        return _fail(f"accelerator {exc}", 0, rows, t0)
     try:
         accelerator.reset(problem)
-    except Exception as exc:  # the accelerator's own code
+    except KeyboardInterrupt:
+        raise
+    except BaseException as exc:  # the accelerator's own code, sys.exit included
         return _fail(f"reset raised {first_line(exc)}", 0, rows, t0)
     low = lowdin(ham.s)
     xc = canonical_orthogonaliser(ham.s)
@@ -502,12 +580,14 @@ def _run_scf(ham, accelerator, start, *, convergence, problem, max_fock_builds, 
                      x=_frozen(low.x), convergence=convergence)
         try:
             out = accelerator.step(it)
-        except Exception as exc:  # the accelerator's own code
+        except KeyboardInterrupt:
+            raise
+        except BaseException as exc:  # the accelerator's own code, sys.exit included
             return _fail(f"step raised {first_line(exc)} at Fock build {builds}", builds,
                          rows, t0, orb, d)
         try:
             a = _checked_output(out, fw.shape, returns)
-        except ValueError as exc:
+        except ProtocolError as exc:
             return _fail(f"accelerator {exc} at Fock build {builds}", builds, rows, t0, orb, d)
         if record is not None:
             record.append((it, a))
@@ -519,6 +599,25 @@ def _run_scf(ham, accelerator, start, *, convergence, problem, max_fock_builds, 
     return ScfRun("not converged", f"measure {last[2]:.1e} > {convergence:.0e} after "
                   f"{max_fock_builds} Fock builds", max_fock_builds, last[1], last[2],
                   time.perf_counter() - t0, np.array(rows), orb, d)
+
+
+def run_fresh(factory: Callable[[], Any], ham: Hamiltonian, start: Orbitals, *,
+              convergence: float, problem: Problem | None = None,
+              max_fock_builds: int = MAX_FOCK_BUILDS, record: list | None = None) -> ScfRun:
+    """:func:`run_scf` with a new accelerator from ``factory()``. Creating it is part of
+    the run: if that raises (anything but KeyboardInterrupt) or makes an object that
+    breaks the protocol, the run is "failed" with the reason."""
+    t0 = time.perf_counter()
+    try:
+        accelerator = factory()
+    except KeyboardInterrupt:
+        raise
+    except ProtocolError as exc:
+        return _fail(f"accelerator {exc}", 0, [], t0)
+    except BaseException as exc:  # the accelerator's constructor
+        return _fail(f"creating the accelerator raised {first_line(exc)}", 0, [], t0)
+    return run_scf(ham, accelerator, start, convergence=convergence, problem=problem,
+                   max_fock_builds=max_fock_builds, record=record)
 
 
 # --------------------------------------------------------------------------- baselines
@@ -728,54 +827,137 @@ BASELINE_NAMES = tuple(LOOP_BASELINES) + NATIVE_BASELINES
 
 # --------------------------------------------------------------------------- loading
 
+#: ANSI escape sequences (colours, cursor moves), removed from a displayed name.
+_ANSI_ESCAPE = re.compile(r"\x1b\[[0-?]*[ -/]*[@-~]|\x1b.?")
+
+
+def display_name(text: str) -> str:
+    """``text`` fit for one line of a table or a plot legend: ANSI escapes and control
+    characters removed (line breaks and tabs become spaces), runs of spaces collapsed, at
+    most NAME_LENGTH characters (a longer one is cut and ends in "…")."""
+    text = _ANSI_ESCAPE.sub("", text)
+    text = "".join(" " if ch.isspace() else ch for ch in text
+                   if ch.isspace() or unicodedata.category(ch)[0] != "C")
+    text = " ".join(text.split())
+    return text if len(text) <= NAME_LENGTH else text[:NAME_LENGTH - 1] + "…"
+
+
+def _read(obj, attr: str):
+    """``getattr(obj, attr, None)``; ProtocolError if reading it raises (a ``__getattr__``
+    or property of the user's code)."""
+    try:
+        return getattr(obj, attr, None)
+    except KeyboardInterrupt:
+        raise
+    except BaseException as exc:
+        raise ProtocolError(f"reading its {attr} attribute raised {first_line(exc)}") from None
+
 
 def accelerator_name(obj) -> str:
-    """``obj.name`` if it has one, else its class name."""
-    name = getattr(obj, "name", None)
-    if isinstance(name, str) and name:
-        return name
-    return obj.__name__ if isinstance(obj, type) else type(obj).__name__
+    """The name shown for ``obj``: its ``name`` if that is a string with something left
+    after :func:`display_name`, else its class name (of ``obj`` itself for a class).
+    ProtocolError if reading ``name`` raises."""
+    name = _read(obj, "name")
+    name = display_name(name) if isinstance(name, str) else ""
+    cls = obj if isinstance(obj, type) else type(obj)
+    return name or display_name(cls.__name__) or "accelerator"
 
 
-def as_factory(obj) -> Callable[[], Any]:
-    """A zero-argument factory of accelerators from a class, a zero-argument factory
-    function or an instance (reused: ``reset`` is called before every run). Raises
-    PluginLoadError (one line) if the objects made lack ``reset`` or ``step``."""
-    if isinstance(obj, type):
-        factory = obj
-    elif hasattr(obj, "step") and hasattr(obj, "reset"):
-        return lambda: obj
-    elif callable(obj):
-        factory = obj
-    else:
-        raise PluginLoadError(f"accelerator {accelerator_name(obj)!r} has no step/reset "
-                              f"methods")
-
-    def make():
-        acc = factory()
-        missing = [m for m in ("reset", "step") if not callable(getattr(acc, m, None))]
-        if missing:
-            raise PluginLoadError(f"accelerator {accelerator_name(acc)!r} lacks "
-                                  f"{' and '.join(missing)} (see harness.accelerators)")
-        return acc
-
-    make()  # fail early, at load time
-    return make
+def _missing(obj) -> list[str]:
+    """Which of ``reset`` and ``step`` ``obj`` lacks as callables."""
+    return [m for m in ("reset", "step") if not callable(_read(obj, m))]
 
 
-class AcceleratorTimeout(Exception):
-    """A call of the accelerator took longer than its time limit."""
+def check_accelerator(obj):
+    """``obj`` if it follows the protocol (callable ``reset`` and ``step``, ``returns``
+    "fock", "density" or absent); else ProtocolError saying what is wrong."""
+    missing = _missing(obj)
+    if missing:
+        raise ProtocolError(f"{type(obj).__name__} object lacks {' and '.join(missing)} "
+                            f"(see harness.accelerators)")
+    declared_returns(obj)
+    return obj
+
+
+def _what(obj) -> str:
+    """What ``obj`` is, in a few words ("a function", "a module", "an object of type float")."""
+    if inspect.ismodule(obj):
+        return "a module"
+    if inspect.ismethod(obj):
+        return "a method"
+    if inspect.isroutine(obj):
+        return "a function"
+    return f"an object of type {type(obj).__name__}"
+
+
+def as_factory(obj, label: str | None = None) -> Callable[[], Any]:
+    """A zero-argument factory of accelerators from a class or an instance (the rule of
+    the module docstring): for a class, each call makes a new instance with ``obj()``
+    (made once here, to check it); for any other object with callable ``reset`` and
+    ``step``, each call returns ``obj`` itself. Nothing else is called.
+
+    Raises PluginLoadError (one line, naming ``label``, default the name) for anything
+    else (a function, a method, a module, a number), a class that lacks ``reset`` or
+    ``step``, a constructor that raises, or an object that breaks the protocol
+    (:func:`check_accelerator`). Later calls raise what the constructor raises, or
+    ProtocolError (:func:`run_fresh` makes either a failed run).
+    """
+    if label is None:
+        try:
+            label = accelerator_name(obj)
+        except ProtocolError:
+            label = type(obj).__name__
+
+    def refused(why: str) -> PluginLoadError:
+        return PluginLoadError(f"accelerator {label!r}: {why}")
+
+    try:
+        if isinstance(obj, type):
+            missing = _missing(obj)
+            if missing:
+                raise refused(f"class {obj.__name__} lacks {' and '.join(missing)} (see "
+                              f"harness.accelerators)")
+
+            def make():
+                return check_accelerator(obj())
+
+            try:
+                make()  # fail early, at load time
+            except (KeyboardInterrupt, ProtocolError):
+                raise
+            except BaseException as exc:  # the accelerator's constructor
+                raise refused(f"creating it raised {first_line(exc)}") from None
+            return make
+        missing = _missing(obj)
+        if len(missing) == 2:
+            raise refused(f"it is {_what(obj)}, not an accelerator: give a class or an "
+                          f"instance with reset and step methods (see harness.accelerators)")
+        check_accelerator(obj)
+    except ProtocolError as exc:
+        raise refused(str(exc)) from None
+    return lambda: obj
+
+
+class AcceleratorTimeout(BaseException):
+    """A call of the accelerator took longer than its time limit.
+
+    A BaseException (like KeyboardInterrupt), so that the accelerator's own
+    ``except Exception`` cannot swallow it; the harness catches it around every call and
+    fails the run or property."""
 
 
 @contextlib.contextmanager
 def _alarm(seconds: float, message: str):
     """Raise AcceleratorTimeout(message) in this thread after ``seconds`` (SIGALRM; in
-    any other than the main thread no limit applies)."""
+    any other than the main thread no limit applies). If the code inside swallows it and
+    returns, it is raised again on leaving."""
     if not seconds or threading.current_thread() is not threading.main_thread():
         yield
         return
+    rang = []
 
     def ring(signum, frame):
+        rang.append(True)
         raise AcceleratorTimeout(message)
 
     before = signal.signal(signal.SIGALRM, ring)
@@ -785,15 +967,17 @@ def _alarm(seconds: float, message: str):
     finally:
         signal.setitimer(signal.ITIMER_REAL, 0)
         signal.signal(signal.SIGALRM, before)
+    if rang:  # the call caught it (``except BaseException``) and went on
+        raise AcceleratorTimeout(message)
 
 
 class _TimeLimited:
-    """An accelerator whose ``reset`` and ``step`` calls each get ``seconds``."""
+    """An accelerator whose ``reset`` and ``step`` calls each get ``seconds``; every other
+    attribute (``returns``, ``name``, ...) is the accelerator's own."""
 
     def __init__(self, inner, seconds: float):
         self._inner = inner
         self._seconds = seconds
-        self.returns = getattr(inner, "returns", "fock")
 
     def __getattr__(self, name):  # anything else the accelerator offers
         if name.startswith("_"):
@@ -813,24 +997,39 @@ class _TimeLimited:
 
 def time_limited(factory: Callable[[], Any], seconds: float | None = ACCELERATOR_CALL_LIMIT
                  ) -> Callable[[], Any]:
-    """A factory of the same accelerators whose every ``reset``/``step`` call raises
-    AcceleratorTimeout after ``seconds`` (None or 0: no limit). The harness loop turns
-    that into a failed run; the bench, into a failed property."""
+    """A factory of the same accelerators whose every ``reset``/``step`` call (and the
+    ``factory()`` call itself) raises AcceleratorTimeout after ``seconds`` (None or 0: no
+    limit; ValueError beyond MAX_CALL_LIMIT). The harness loop turns that into a failed
+    run; the bench, into a failed property."""
     if not seconds:
         return factory
-    return lambda: _TimeLimited(factory(), seconds)
+    if not 0 < seconds <= MAX_CALL_LIMIT:
+        raise ValueError(f"call limit {seconds:g} s is not in (0, {MAX_CALL_LIMIT:g}] s")
+
+    def make():
+        with _alarm(seconds, f"creating it took longer than {seconds:g} s"):
+            inner = factory()
+        return _TimeLimited(inner, seconds)
+
+    return make
 
 
 def load_accelerator(spec_or_object) -> tuple[str, Callable[[], Any]]:
-    """(name, factory) from ``MODULE:NAME`` / ``path.py:NAME`` or an object (class or
-    instance). Raises PluginLoadError (one line) for a bad spec or object."""
-    obj = spec_or_object
+    """(name shown, factory) from ``MODULE:ACCELERATOR`` / ``path.py:ACCELERATOR`` or an
+    object, by the rule of the module docstring (:func:`as_factory`; the name:
+    :func:`accelerator_name`). Raises PluginLoadError (one line naming the spec) for a
+    bad spec or object."""
+    obj, label = spec_or_object, None
     if isinstance(spec_or_object, str):
         from harness.plugins import load_object
 
         obj = load_object(spec_or_object, kind="accelerator")
-    factory = as_factory(obj)
-    return accelerator_name(obj), factory
+        label = spec_or_object
+    try:
+        name = accelerator_name(obj)
+    except ProtocolError as exc:
+        raise PluginLoadError(f"accelerator {label or type(obj).__name__!r}: {exc}") from None
+    return name, as_factory(obj, label or name)
 
 
 # --------------------------------------------------------------------------- properties
@@ -881,7 +1080,7 @@ def fixed_point(factory, problem: Problem, ham: Hamiltonian, history: list) -> P
     there), the accelerator returns it unchanged: max|A − F| (Fock) or max|A − P|
     (density) ≤ FIXED_POINT_TOLERANCE, both with a fresh accelerator and after history."""
     acc = factory()
-    kind = getattr(acc, "returns", "fock")
+    kind = declared_returns(acc)
     final = history[-1]
     worst = 0.0
     for prefix in ([], history[:-1]):
@@ -899,13 +1098,18 @@ def fixed_point(factory, problem: Problem, ham: Hamiltonian, history: list) -> P
 def determinism(factory, problem: Problem, ham: Hamiltonian, start: Orbitals,
                 convergence: float) -> PropertyResult:
     """Two runs from the same inputs give bitwise the same sequence of states
-    (energies and measures) and of returned matrices."""
+    (energies and measures) and of returned matrices. A failed run (the accelerator
+    raised or returned something unusable) fails the property with its reason."""
     recs, runs = [], []
     for _ in range(2):
         rec: list = []
-        runs.append(run_scf(ham, factory(), start, convergence=convergence, problem=problem,
-                            record=rec))
+        runs.append(run_fresh(factory, ham, start, convergence=convergence, problem=problem,
+                              record=rec))
         recs.append(rec)
+    failed = [r for r in runs if r.status == "failed"]
+    if failed:
+        return PropertyResult("determinism", False, float("nan"),
+                              f"a run failed: {failed[0].reason}")
     same_hist = (runs[0].history.shape == runs[1].history.shape
                  and np.array_equal(runs[0].history, runs[1].history))
     same_out = len(recs[0]) == len(recs[1]) and all(
@@ -925,22 +1129,28 @@ def invariance(factory, problem: Problem, ham: Hamiltonian, start: Orbitals,
     """The same problem in the basis φ T (``ham.transformed(t)``, start orbitals
     T⁻¹C) converges in the same number of Fock builds (± INVARIANCE_BUILDS) to the same
     energy (± INVARIANCE_ENERGY Eh)."""
-    a = run_scf(ham, factory(), start, convergence=convergence, problem=problem)
+    a = run_fresh(factory, ham, start, convergence=convergence, problem=problem)
     ham_t = ham.transformed(t)
     tinv = np.linalg.solve(t, np.eye(t.shape[0]))
     start_t = Orbitals(np.einsum("pq,kqi->kpi", tinv, start.c), start.occ)
-    b = run_scf(ham_t, factory(), start_t, convergence=convergence, problem=problem)
+    b = run_fresh(factory, ham_t, start_t, convergence=convergence, problem=problem)
     return compare_runs("invariance", label, a, b)
 
 
 def compare_runs(name: str, label: str, a: ScfRun, b: ScfRun) -> PropertyResult:
     """Invariance verdict for two runs of the same problem: both converged, Fock builds
     within INVARIANCE_BUILDS and energies within INVARIANCE_ENERGY Eh. One converged and
-    the other not fails; neither converged is not applicable (passed None)."""
+    the other not fails; so does a failed run (the accelerator raised or returned
+    something unusable: its reason is given); neither converged (the budget ran out) is
+    not applicable (passed None)."""
     builds = abs(a.fock_builds - b.fock_builds)
     de = abs(a.energy - b.energy)
     text = (f"{label}: {a.fock_builds} vs {b.fock_builds} Fock builds "
             f"({a.status} / {b.status}), |ΔE| = {de:.1e} Eh")
+    failed = [r for r in (a, b) if r.status == "failed"]
+    if failed:
+        return PropertyResult(name, False, float(builds),
+                              f"{label}: a run failed: {failed[0].reason}")
     if not (a.converged or b.converged):
         return PropertyResult(name, None, float(builds), "n.a.: neither run converged; " + text)
     ok = a.converged and b.converged and builds <= INVARIANCE_BUILDS and de <= INVARIANCE_ENERGY
@@ -950,13 +1160,14 @@ def compare_runs(name: str, label: str, a: ScfRun, b: ScfRun) -> PropertyResult:
 def degenerate_subspace(factory, problem: Problem, ham: Hamiltonian, it: Iterate,
                         repeats: int = 4) -> PropertyResult:
     """Handed the same iterate ``repeats`` times (linearly dependent error vectors, a
-    singular DIIS system), the accelerator returns only finite matrices."""
+    singular DIIS system), the accelerator returns only finite matrices (converted as the
+    loop converts them: ProtocolError if not numeric, complex or of the wrong shape)."""
     acc = factory()
+    kind = declared_returns(acc)
     acc.reset(problem)
-    kind = getattr(acc, "returns", "fock")
     bad = 0
     for k in range(repeats):
-        out = np.array(acc.step(it.replace(iteration=it.iteration + k)), dtype=float)
+        out = _as_matrix(acc.step(it.replace(iteration=it.iteration + k)), it.fock.shape, kind)
         bad += int(not np.all(np.isfinite(out)))
     return PropertyResult("no-nan-degenerate", bad == 0, float(bad),
                           f"{bad} of {repeats} returned {kind} matrices non-finite for "

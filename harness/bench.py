@@ -327,6 +327,9 @@ def summary_lines(outcome: BenchOutcome) -> list[str]:
             if bad:
                 lines.append(f"  ✗ {name}: fails on {len(bad)}/{len(mine)} cases; "
                              f"{bad[0].case}: {bad[0].detail}")
+            elif na == len(mine):
+                lines.append(f"  – {name}: not applicable on {na}/{len(mine)} cases; "
+                             f"{mine[0].case}: {mine[0].detail}")
             else:
                 extra = f" ({na} n.a.)" if na else ""
                 lines.append(f"  ✓ {name}: holds on {len(mine) - na}/{len(mine)} cases{extra}")
@@ -373,8 +376,8 @@ def rotation_invariance(factory, problem, convergence: float,
     runs = []
     for p in (problem, rot):
         ham = acc.hamiltonian_for(p)
-        runs.append(acc.run_scf(ham, factory(), bare_core_guess(ham), convergence=convergence,
-                                problem=p))
+        runs.append(acc.run_fresh(factory, ham, bare_core_guess(ham),
+                                  convergence=convergence, problem=p))
     return acc.compare_runs("rotation-invariance", "rotated molecule", *runs)
 
 
@@ -399,11 +402,8 @@ def accelerator_properties(factory, problem, ham: acc.Hamiltonian, start: acc.Or
     from harness.example_accelerator import CommutatorDIIS
 
     rec: list = []
-    try:
-        acc.run_scf(ham, factory(), start, convergence=convergence, problem=problem,
-                    record=rec, max_fock_builds=PROPERTY_HISTORY + 1)
-    except Exception:  # the accelerator's constructor; the properties below report it
-        pass
+    acc.run_fresh(factory, ham, start, convergence=convergence, problem=problem, record=rec,
+                  max_fock_builds=PROPERTY_HISTORY + 1)
     tight = min(convergence, acc.FIXED_POINT_CONVERGENCE)
     ref_run = acc.run_scf(ham, CommutatorDIIS(), start, convergence=tight, problem=problem)
     out = []
@@ -432,11 +432,16 @@ def accelerator_properties(factory, problem, ham: acc.Hamiltonian, start: acc.Or
 
 
 def _guarded(name: str, compute: Callable[[], acc.PropertyResult]) -> acc.PropertyResult:
-    """``compute()``, or a failed property naming what the accelerator raised (an
-    exception, a wrong return value, a call over its time limit)."""
+    """``compute()``, or a failed property saying what went wrong: what the accelerator
+    raised (any exception, ``sys.exit``, a call over its time limit — everything but
+    KeyboardInterrupt) or what was wrong with what it returned (ProtocolError)."""
     try:
         return compute()
-    except Exception as exc:  # the accelerator's own code
+    except KeyboardInterrupt:
+        raise
+    except acc.ProtocolError as exc:
+        return acc.PropertyResult(name, False, float("nan"), str(exc))
+    except BaseException as exc:  # the accelerator's own code
         return acc.PropertyResult(name, False, float("nan"),
                                   f"the accelerator raised {first_line(exc)}")
 
@@ -447,8 +452,8 @@ def _guarded(name: str, compute: Callable[[], acc.PropertyResult]) -> acc.Proper
 def _method_runners(accelerator_name: str, factory, baselines: Sequence[str], cap: int):
     """(name, run(ham, start, problem) -> ScfRun) for the accelerator and each baseline."""
     def loop(make):
-        return lambda ham, start, problem: acc.run_scf(
-            ham, make(), start, convergence=problem.convergence, problem=problem,
+        return lambda ham, start, problem: acc.run_fresh(
+            make, ham, start, convergence=problem.convergence, problem=problem,
             max_fock_builds=cap)
 
     runners = [(accelerator_name, loop(factory))]
@@ -470,26 +475,35 @@ def run_bench(accelerator, *, cases, guesses: int = DEFAULT_GUESSES, seed: int =
               progress: Callable | None = None, references=None,
               write_references: bool = False, properties: bool = True,
               max_fock_builds: int = acc.MAX_FOCK_BUILDS,
-              call_limit: float | None = acc.ACCELERATOR_CALL_LIMIT) -> BenchOutcome:
+              call_limit: float | None = acc.ACCELERATOR_CALL_LIMIT,
+              plots: bool = True) -> BenchOutcome:
     """Bench ``accelerator`` against ``baselines`` on ``cases`` (module docstring).
 
     accelerator: ``"MODULE:NAME"`` / ``"path.py:NAME"`` or an object (class or instance
     following the protocol of :mod:`harness.accelerators`). cases: ``Case`` objects.
-    guesses: perturbed starting guesses per case (plus the default guess). report_dir:
-    folder for ``bench.jsonl`` (incremental), ``bench.json``, PNGs and ``index.html``
-    (created; None: nothing written). progress: called as ``progress(done, total,
-    record)`` after every run. references / write_references: passed to
-    ``reference_for`` (directory of stored references; store computed ones).
+    guesses: perturbed starting guesses per case (plus the default guess). baselines:
+    names, each run once (a repeated name is dropped). report_dir: folder for
+    ``bench.jsonl`` (incremental) and ``bench.json``, and with ``plots`` the PNGs and
+    ``index.html`` (:func:`write_report`, after ``bench.json``, so that a plotting
+    failure cannot lose it); created; None: nothing written. progress: called as
+    ``progress(done, total, record)`` after every run. references / write_references:
+    passed to ``reference_for`` (directory of stored references; store computed ones).
     call_limit: seconds each ``reset``/``step`` call of the accelerator may take
-    (:func:`harness.accelerators.time_limited`; None: no limit); a slower call fails
-    that run or property, and the bench goes on.
-    Raises HarnessError (one line) for a bad accelerator or baseline name.
+    (:func:`harness.accelerators.time_limited`; None: no limit; at most
+    ``MAX_CALL_LIMIT``); a slower call fails that run or property, and the bench goes on.
+    Raises HarnessError (one line), before any run, for a bad accelerator, baseline
+    name, call limit or report folder (:func:`check_report_dir`).
     """
+    from harness.errors import HarnessError
     from harness.references import reference_for
 
     t0 = time.perf_counter()
+    if call_limit and not 0 < call_limit <= acc.MAX_CALL_LIMIT:
+        raise HarnessError(f"expected seconds in (0, {acc.MAX_CALL_LIMIT:g}], got "
+                           f"{call_limit!r}", field="call_limit")
     name, factory = acc.load_accelerator(accelerator)
     factory = acc.time_limited(factory, call_limit)
+    baselines = tuple(dict.fromkeys(baselines))
     if name in baselines:
         name = f"{name} (yours)"
     cases = tuple(cases)
@@ -498,6 +512,7 @@ def run_bench(accelerator, *, cases, guesses: int = DEFAULT_GUESSES, seed: int =
     out_dir = Path(report_dir) if report_dir is not None else None
     jsonl = None
     if out_dir is not None:
+        check_report_dir(out_dir, [c.name for c in cases])
         out_dir.mkdir(parents=True, exist_ok=True)
         jsonl = out_dir / JSONL_NAME
         jsonl.write_text("", encoding="utf-8")
@@ -539,15 +554,47 @@ def run_bench(accelerator, *, cases, guesses: int = DEFAULT_GUESSES, seed: int =
                            properties=tuple(props), seconds=time.perf_counter() - t0,
                            convergence={c.name: c.problem().convergence for c in cases})
     if out_dir is not None:
-        files = [str(jsonl)]
-        images = write_plots(outcome, out_dir)
-        files += [str(p) for p in images]
-        files.append(str(write_html(outcome, out_dir, images)))
         path = out_dir / JSON_NAME
-        outcome = dataclasses.replace(outcome, files=tuple(files + [str(path)]))
         path.write_text(json.dumps(outcome.to_json(), indent=1, ensure_ascii=False) + "\n",
                         encoding="utf-8")
+        outcome = dataclasses.replace(outcome, files=(str(jsonl), str(path)))
+        if plots:
+            outcome = write_report(outcome, out_dir)
     return outcome
+
+
+def report_names(cases: Iterable[str]) -> list[str]:
+    """The files a report folder receives for these case names (see :func:`run_bench`)."""
+    return ([JSONL_NAME, JSON_NAME, HTML_NAME, "fock-builds.png"]
+            + [f"convergence-{_safe(c)}.png" for c in cases])
+
+
+def check_report_dir(directory, cases: Iterable[str]) -> Path:
+    """``directory`` as a Path if a report can be written there: it is a folder or does
+    not exist yet, and none of :func:`report_names` is there as anything but a regular
+    file (it is replaced). Raises HarnessError (one line) otherwise."""
+    from harness.errors import HarnessError
+
+    directory = Path(directory)
+    if directory.exists() and not directory.is_dir():
+        raise HarnessError(f"{directory} is not a folder (it is a file)", field="report folder")
+    for name in report_names(cases):
+        path = directory / name
+        if path.exists() and not path.is_file():
+            what = "a folder" if path.is_dir() else "not a regular file"
+            raise HarnessError(f"{path} is {what}; remove it or give another folder",
+                               field="report folder")
+    return directory
+
+
+def write_report(outcome: BenchOutcome, directory) -> BenchOutcome:
+    """The plots (:func:`write_plots`) and ``index.html`` (:func:`write_html`) of
+    ``outcome`` in ``directory``; returns ``outcome`` with them added to its files."""
+    directory = Path(directory)
+    images = write_plots(outcome, directory)
+    html_path = write_html(outcome, directory, images)
+    return dataclasses.replace(outcome, files=tuple(outcome.files) + tuple(
+        str(p) for p in images) + (str(html_path),))
 
 
 # --------------------------------------------------------------------------- plots

@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 
 from harness.errors import CaseError
-from harness.problem import DEFAULT_CONVERGENCE, METHODS, Problem
+from harness.problem import DEFAULT_CONVERGENCE, METHODS, Problem, closest_pair
 from harness.units import ANGSTROM_IN_BOHR
 
 #: Environment variable naming a reference directory to use instead of the bundled one.
@@ -29,6 +29,11 @@ REFERENCES_ENV = "SCF_HARNESS_REFERENCES"
 
 #: Case names become file names (``references/data/<name>.json``): keep them plain.
 NAME_PATTERN = re.compile(r"^[a-z0-9][a-z0-9+._-]*$")
+#: Longest case name (characters): it becomes a file name and a column of the tables.
+MAX_NAME_LENGTH = 80
+#: Nuclei in a geometry file closer than this (bohr) are one atom typed twice: no bond
+#: is shorter than 1.3 bohr (H₂ has 1.4, H₂⁺ 2.0).
+CLOSEST_NUCLEI = 0.1
 
 #: Keys of a ``[[case]]`` table: (type, default). ``...`` marks a required key.
 CASE_KEYS: dict[str, tuple[type | tuple[type, ...], Any]] = {
@@ -70,6 +75,12 @@ def _element_number(symbol: str) -> int | None:
     return z if z >= 1 else None
 
 
+def _short(text: str, limit: int = 30) -> str:
+    """``repr(text)``, cut to ``limit`` characters with an ellipsis (binary junk in a
+    geometry file must not fill the error line)."""
+    return repr(text) if len(text) <= limit else repr(text[:limit]) + "…"
+
+
 def read_xyz(path) -> tuple[tuple[int, ...], np.ndarray, str]:
     """Read an XYZ file: ``(atomic numbers, coordinates in bohr (natm, 3), comment)``.
 
@@ -82,7 +93,9 @@ def read_xyz(path) -> tuple[tuple[int, ...], np.ndarray, str]:
     path = Path(path)
     where = str(path)
     try:
-        text = path.read_text(encoding="utf-8")
+        # undecodable bytes (a Latin-1 comment line) become U+FFFD; in an atom line
+        # they then fail as an unknown symbol or a bad number, naming the line
+        text = path.read_text(encoding="utf-8", errors="replace")
     except FileNotFoundError:
         raise CaseError("geometry file not found", case=where) from None
     except (OSError, UnicodeDecodeError) as exc:
@@ -94,8 +107,8 @@ def read_xyz(path) -> tuple[tuple[int, ...], np.ndarray, str]:
     try:
         count = int(lines[0].strip())
     except ValueError:
-        raise CaseError(f"expected the number of atoms, got {lines[0].strip()!r}", case=where,
-                        field="line 1") from None
+        raise CaseError(f"expected the number of atoms, got {_short(lines[0].strip())}",
+                        case=where, field="line 1") from None
     if count < 1:
         raise CaseError(f"the number of atoms must be positive, got {count}", case=where,
                         field="line 1")
@@ -127,14 +140,14 @@ def read_xyz(path) -> tuple[tuple[int, ...], np.ndarray, str]:
                             field=f"line {i}")
         z = _element_number(fields[0])
         if z is None:
-            raise CaseError(f"unknown element symbol {fields[0]!r}", case=where,
+            raise CaseError(f"unknown element symbol {_short(fields[0])}", case=where,
                             field=f"line {i}")
         xyz = []
         for value in fields[1:4]:
             try:
                 x = float(value)
             except ValueError:
-                raise CaseError(f"coordinate {value!r} is not a number", case=where,
+                raise CaseError(f"coordinate {_short(value)} is not a number", case=where,
                                 field=f"line {i}") from None
             if not np.isfinite(x):
                 raise CaseError(f"coordinate {value!r} is not finite", case=where,
@@ -143,6 +156,11 @@ def read_xyz(path) -> tuple[tuple[int, ...], np.ndarray, str]:
         numbers.append(z)
         coords.append(xyz)
     coordinates = np.array(coords, dtype=np.float64)
+    i, j, r = closest_pair(coordinates)
+    if r < CLOSEST_NUCLEI:
+        raise CaseError(f"atoms {i + 1} and {j + 1} are {r:.3g} bohr apart, closer than "
+                        f"{CLOSEST_NUCLEI} bohr (one atom given twice?)", case=where,
+                        field=f"lines {i + 3} and {j + 3}")
     coordinates.setflags(write=False)
     return tuple(numbers), coordinates, comment
 
@@ -281,6 +299,9 @@ def _case_from_table(table: Any, index: int, base: Path, where: str,
     if not NAME_PATTERN.match(name):
         fail("name", f"{name!r} must be lower-case letters, digits and + . _ - "
                      f"(it becomes a file name)")
+    if len(name) > MAX_NAME_LENGTH:
+        fail("name", f"{len(name)} characters, at most {MAX_NAME_LENGTH} (it becomes a file "
+                     f"name)")
     method = values["method"].lower()
     if method not in METHODS:
         fail("method", f"must be one of {', '.join(METHODS)}, got {values['method']!r}")
@@ -291,7 +312,10 @@ def _case_from_table(table: Any, index: int, base: Path, where: str,
     geometry = (base / values["geometry"])
     if not geometry.is_file():
         fail("geometry", f"file not found: {geometry}")
-    numbers, coordinates, comment = read_xyz(geometry)
+    try:
+        numbers, coordinates, comment = read_xyz(geometry)
+    except CaseError as exc:
+        fail("geometry", str(exc))
     n_electrons = sum(numbers) - values["charge"]
     if n_electrons < 1:
         fail("charge", f"charge {values['charge']} leaves {n_electrons} electrons")
@@ -355,6 +379,24 @@ def load_suite_file(path) -> tuple[Case, ...]:
     return _read_cases(path, require_suites=False)
 
 
+def load_user_suite(path, catalogue: "Catalogue | None" = None) -> tuple[Case, ...]:
+    """:func:`load_suite_file`, refusing a case named like a catalogue case (its stored
+    reference would be confused with, or written over, the catalogue's)."""
+    cases = load_suite_file(path)
+    names = set((catalogue or load_catalogue()).names)
+    for case in cases:
+        if case.name in names:
+            raise CaseError("is the name of a catalogue case; give yours another name",
+                            case=f"{path}: case '{case.name}'", field="name")
+    return cases
+
+
+def _expect_name(kind: str, name) -> None:
+    if not isinstance(name, str):
+        raise CaseError(f"expected a {kind} name (a string), got {type(name).__name__} "
+                        f"{name!r}"[:120], field=kind)
+
+
 def _unknown(kind: str, name: str, known) -> CaseError:
     known = list(known)
     close = difflib.get_close_matches(name, known, n=3, cutoff=0.5)
@@ -384,12 +426,14 @@ class Catalogue:
 
     def suite(self, name: str) -> tuple[Case, ...]:
         """The cases of suite ``name``; unknown names raise CaseError listing the known."""
+        _expect_name("suite", name)
         if name not in self.suites:
             raise _unknown("suite", name, self.suites)
         return tuple(c for c in self.cases if name in c.suites)
 
     def case(self, name: str) -> Case:
         """The case called ``name``; unknown names raise CaseError with the closest ones."""
+        _expect_name("case", name)
         for c in self.cases:
             if c.name == name:
                 return c

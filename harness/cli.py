@@ -52,6 +52,19 @@ def _positive_float(text: str) -> float:
     return x
 
 
+def _output_file(text: str) -> Path:
+    """An argparse type: a path to write a file to. It must not be empty and, if
+    something is there already, must be a regular file (a folder, device or pipe would be
+    replaced by the rename that makes the write atomic)."""
+    if not text.strip():
+        raise argparse.ArgumentTypeError("expected a file path, got ''")
+    path = Path(text)
+    if path.exists() and not path.is_file():
+        what = "a folder" if path.is_dir() else "not a regular file"
+        raise argparse.ArgumentTypeError(f"{text} is {what}; give the path of a file")
+    return path
+
+
 def _convergence(text: str) -> float:
     try:
         x = float(text)
@@ -111,13 +124,14 @@ def _add_checking(group) -> None:
                        "method), external (RHF also against UHF) or off (default: internal)")
 
 
-def _add_selection(parser: argparse.ArgumentParser, default_text: str):
+def _add_selection(parser: argparse.ArgumentParser, default_text: str, *,
+                   cases_file: bool = False):
     group = parser.add_argument_group("which cases")
     group.add_argument("--suite", action="append", dest="suites", default=None, metavar="NAME",
                        help=f"a suite of the catalogue (repeatable; default: {default_text})")
+    where = "the catalogue or --cases-file" if cases_file else "the catalogue"
     group.add_argument("--case", action="append", dest="case_names", default=None,
-                       metavar="NAME", help="a single case of the catalogue (or of "
-                       "--cases-file, where there is one) (repeatable)")
+                       metavar="NAME", help=f"a single case of {where} (repeatable)")
     return group
 
 
@@ -141,7 +155,8 @@ def build_parser() -> argparse.ArgumentParser:
                       f"a Problem (bohr) and returns the solution mapping (Eh) "
                       f"(default: {DEFAULT_PLUGIN}, the bundled example SCF code; not "
                       "together with --command)")
-    which = _add_selection(cert, f"{DEFAULT_SUITE}, unless --case or --cases-file is given")
+    which = _add_selection(cert, f"{DEFAULT_SUITE}, unless --case or --cases-file is given",
+                           cases_file=True)
     which.add_argument("--cases-file", type=Path, metavar="FILE",
                       help="a TOML suite file of your own ([[case]] tables as in the catalogue; "
                       "geometry paths relative to the file); all its cases run, or, with "
@@ -170,14 +185,14 @@ def build_parser() -> argparse.ArgumentParser:
                      help="keep the scratch folders (default: remove them after reading "
                      "the solution)")
     out = cert.add_argument_group("output and references")
-    out.add_argument("--json", type=Path, metavar="FILE",
+    out.add_argument("--json", type=_output_file, metavar="FILE",
                      help="write the results as JSON to FILE (results are also appended to "
                      f"FILE{PARTIAL_SUFFIX} while running; it is removed at the end)")
     out.add_argument("--references", type=Path, metavar="DIR",
                      help=REFERENCES_HELP)
     out.add_argument("--write-references", action="store_true",
                      help="store references computed during the run (default: do not)")
-    out.add_argument("--certificate", type=Path, metavar="FILE",
+    out.add_argument("--certificate", type=_output_file, metavar="FILE",
                      help="write a certificate of the verdicts to FILE (JSON) with the "
                      "solution arrays beside it in FILE's stem + .solutions.npz (default: "
                      "none)")
@@ -217,9 +232,9 @@ def build_parser() -> argparse.ArgumentParser:
                      f"with X = S^-1/2, dimensionless (default: {DEFAULT_CONVERGENCE:g})")
     _add_checking(how)
     cout = chk.add_argument_group("output and references")
-    cout.add_argument("--json", type=Path, metavar="FILE",
+    cout.add_argument("--json", type=_output_file, metavar="FILE",
                       help="write the result as JSON to FILE (default: none)")
-    cout.add_argument("--certificate", type=Path, metavar="FILE",
+    cout.add_argument("--certificate", type=_output_file, metavar="FILE",
                       help="write a certificate of the verdict to FILE (default: none)")
     cout.add_argument("--references", type=Path, metavar="DIR", help=REFERENCES_HELP +
                       "; a case without a matching stored reference gets one computed")
@@ -238,7 +253,7 @@ def build_parser() -> argparse.ArgumentParser:
                      "verdict and value (default: no; computes missing references)")
     ver.add_argument("--references", type=Path, metavar="DIR",
                      help=REFERENCES_HELP + "; used with --recompute")
-    ver.add_argument("--markdown", type=Path, metavar="OUT",
+    ver.add_argument("--markdown", type=_output_file, metavar="OUT",
                      help="also write a Markdown summary for a reviewer to OUT (default: "
                      "none)")
 
@@ -260,18 +275,19 @@ def build_parser() -> argparse.ArgumentParser:
     ben.add_argument("--guesses", type=_nonnegative_int, default=_bench.DEFAULT_GUESSES,
                      metavar="N", help="perturbed starting guesses per case, besides the "
                      f"default guess (default: {_bench.DEFAULT_GUESSES})")
-    ben.add_argument("--seed", type=int, default=0, metavar="S",
-                     help="seed of the perturbed guesses (default: 0)")
+    ben.add_argument("--seed", type=_nonnegative_int, default=0, metavar="S",
+                     help="seed of the perturbed guesses, an integer >= 0 (default: 0)")
     ben.add_argument("--report", type=Path, metavar="DIR",
                      help="write bench.jsonl, bench.json, plots and index.html to DIR "
                      "(default: none)")
     ben.add_argument("--baselines", type=_baselines, default=None, metavar="A,B,...",
-                     help="the baselines to run, comma-separated (default: all of "
-                     f"{', '.join(_bench.DEFAULT_BASELINES)})")
+                     help="the baselines to run, comma-separated, each once (default: all "
+                     f"of {', '.join(_bench.DEFAULT_BASELINES)})")
     ben.add_argument("--call-timeout", type=_positive_float,
                      default=_bench.acc.ACCELERATOR_CALL_LIMIT, metavar="S",
-                     help="seconds one reset or step call of the accelerator may take; a "
-                     "slower call fails that run or property and the bench goes on "
+                     help="seconds one reset or step call of the accelerator may take, at "
+                     f"most {_bench.acc.MAX_CALL_LIMIT:g}; a slower call fails that run or "
+                     "property and the bench goes on "
                      f"(default: {_bench.acc.ACCELERATOR_CALL_LIMIT:g})")
 
     refs = sub.add_parser("references", help="build or verify the stored pyscf references",
@@ -297,7 +313,8 @@ def build_parser() -> argparse.ArgumentParser:
     cases = sub.add_parser("cases", help="list the catalogue",
                            description="List the catalogue's cases (name, method, basis, "
                            "number of AOs, suites, note).")
-    cases.add_argument("--suite", metavar="NAME", help="only this suite (default: all cases)")
+    cases.add_argument("--suite", action="append", dest="suites", default=None, metavar="NAME",
+                       help="only the cases of this suite (repeatable; default: all cases)")
 
     selftest = sub.add_parser("selftest", help="run the built-in planted-bug plug-ins and "
                               "check that each is caught by the checks meant to catch it",
@@ -307,7 +324,7 @@ def build_parser() -> argparse.ArgumentParser:
                               "errors.")
     selftest.add_argument("--only", metavar="SUBSTRING",
                           help="only the entries of the module SUBSTRING (core, hints, "
-                          "conventions, integrals), or else those whose 'module:function @ "
+                          "conventions, integrals, states, orientation), or else those whose 'module:function @ "
                           "case' contains SUBSTRING, e.g. 'water' (default: all entries)")
     return parser
 
@@ -324,7 +341,7 @@ def select_cases(suites: Sequence[str] | None, case_names: Sequence[str] | None,
     adds all its cases, unless case names are given: then each name is looked up in
     the file first, then in the catalogue, and only the named cases (and suites) run.
     """
-    from harness.cases import load_catalogue, load_suite_file
+    from harness.cases import load_catalogue, load_user_suite
 
     chosen = []
     suite_names = list(suites or [])
@@ -335,8 +352,9 @@ def select_cases(suites: Sequence[str] | None, case_names: Sequence[str] | None,
     own = {}
     if cases_file is not None:
         if not cases_file.is_file():
-            raise UsageError(f"--cases-file: file not found: {cases_file}")
-        own = {case.name: case for case in load_suite_file(cases_file)}
+            what = "a folder, not a file" if cases_file.is_dir() else "file not found"
+            raise UsageError(f"--cases-file: {what}: {cases_file}")
+        own = {case.name: case for case in load_user_suite(cases_file)}
     catalogue = load_catalogue() if (suite_names or case_names) else None
     for name in suite_names:
         chosen.extend(catalogue.suite(name))
@@ -386,6 +404,29 @@ def _signals_as_interrupt():
             signal.signal(sig, before)
 
 
+def _distinct_outputs(args) -> None:
+    """--json, its partial-results file, --certificate and the certificate's solutions
+    file must be different files (one would silently replace another)."""
+    from harness.certificate import sidecar_path
+
+    named = []
+    if getattr(args, "json", None) is not None:
+        named.append(("--json", args.json))
+        if args.command == "certify":
+            named.append((f"--json's {PARTIAL_SUFFIX} file", Path(str(args.json) + PARTIAL_SUFFIX)))
+    if getattr(args, "certificate", None) is not None:
+        named += [("--certificate", args.certificate),
+                  ("--certificate's solutions file", sidecar_path(args.certificate))]
+    seen: dict[Path, str] = {}
+    for option, path in named:
+        key = path.resolve()
+        if key in seen:
+            raise UsageError(f"{seen[key]} and {option} name the same file: {path}")
+        if path.exists() and not path.is_file():
+            raise UsageError(f"{option}: {path} is not a regular file")
+        seen[key] = option
+
+
 def _tolerances(args):
     from harness.tolerances import Tolerances, parse_override
 
@@ -410,14 +451,16 @@ def _plugin(args):
 
 
 def _write_certificate(path: Path, outcome, *, tolerances, plugin: str, console,
-                       quiet: bool) -> None:
+                       quiet: bool, ao_convention: str | None, stability: str) -> None:
     """Write the certificate of the cases whose problem could be built (the others
-    have no inputs to certify)."""
+    have no inputs to certify), recording the evaluation options (--ao-convention,
+    --stability) that a recompute must use again."""
     from harness.certificate import sidecar_path, write_certificate
 
     results = [r for r in outcome.cases if r.name in outcome.problems]
     write_certificate(path, results, problems=outcome.problems, solutions=outcome.solutions,
-                      references=outcome.references, tolerances=tolerances, plugin=plugin)
+                      references=outcome.references, tolerances=tolerances, plugin=plugin,
+                      ao_convention=ao_convention, stability=stability)
     if not quiet:
         console.print(f"certificate: {path} (solutions in {sidecar_path(path).name})",
                       markup=False, soft_wrap=True)
@@ -425,20 +468,20 @@ def _write_certificate(path: Path, outcome, *, tolerances, plugin: str, console,
 
 def _certify(args, console) -> int:
     from harness import report
-    from harness.runner import run_cases
+    from harness.runner import check_plugin, run_cases
 
     plugin, label = _plugin(args)
     tolerances = _tolerances(args)
     cases, suite_names = select_cases(args.suites, args.case_names, args.cases_file)
     if not cases:
         raise UsageError("no cases selected")
-    if isinstance(plugin, str):
-        from harness.plugins import load_plugin
-        load_plugin(plugin)
     if (args.references is not None and not args.references.is_dir()
             and not args.write_references):
         raise UsageError(f"--references: not a folder: {args.references}")
 
+    _distinct_outputs(args)
+    # loads the plug-in in a child process: what its import does cannot reach this one
+    check_plugin(plugin, timeout=args.timeout)
     convergence = args.convergence if args.convergence is not None else DEFAULT_CONVERGENCE
     partial = None
     if args.json is not None:
@@ -459,7 +502,7 @@ def _certify(args, console) -> int:
                             stability=args.stability, timeout=args.timeout,
                             jobs=args.jobs, reference_dir=args.references,
                             write_references=args.write_references, results_path=partial,
-                            on_result=on_result)
+                            on_result=on_result, plugin_checked=True)
         if not args.quiet and outcome.cases:
             console.print()
         report.render(outcome, console, quiet=args.quiet)
@@ -476,7 +519,8 @@ def _certify(args, console) -> int:
                 partial.unlink(missing_ok=True)
         if args.certificate is not None:
             _write_certificate(args.certificate, outcome, tolerances=tolerances, plugin=label,
-                               console=console, quiet=args.quiet)
+                               console=console, quiet=args.quiet,
+                               ao_convention=args.ao_convention, stability=args.stability)
     return 0 if outcome.passed else 1
 
 
@@ -493,10 +537,13 @@ def _check_result(args, console) -> int:
 
     started = time.perf_counter()
     tolerances = _tolerances(args)
+    _distinct_outputs(args)
     if not args.file.is_file():
-        raise UsageError(f"{args.file}: file not found")
+        raise UsageError(f"{args.file}: " + ("a folder, not a file" if args.file.is_dir()
+                                             else "file not found"))
     if args.energy_file is not None and not args.energy_file.is_file():
-        raise UsageError(f"--energy-file: {args.energy_file}: file not found")
+        raise UsageError(f"--energy-file: {args.energy_file}: " + (
+            "a folder, not a file" if args.energy_file.is_dir() else "file not found"))
     if args.references is not None and not args.references.is_dir():
         raise UsageError(f"--references: not a folder: {args.references}")
     case = result_case(geometry=args.geometry, basis=args.basis, method=args.method,
@@ -544,7 +591,8 @@ def _check_result(args, console) -> int:
         report.write_json(args.json, data)
     if args.certificate is not None:
         _write_certificate(args.certificate, outcome, tolerances=tolerances, plugin=label,
-                           console=console, quiet=args.quiet)
+                           console=console, quiet=args.quiet,
+                           ao_convention=args.ao_convention, stability=args.stability)
     return 0 if outcome.passed else 1
 
 
@@ -554,25 +602,26 @@ def _energy_of(reference) -> float | None:
 
 
 def _verify_certificate(args, console) -> int:
-    """``verify-certificate``: integrity (and, with --recompute, reproduction)."""
-    import json
-
-    from harness.certificate import summary_markdown, verify_certificate
+    """``verify-certificate``: integrity (and, with --recompute, reproduction); each
+    problem printed once, the list cut after MAX_LISTED_PROBLEMS."""
+    from harness.certificate import (CertificateReadError, load_certificate,
+                                     summary_markdown, verify_certificate)
 
     path = args.certificate
+    if path.is_dir():
+        raise UsageError(f"{path}: is a directory, not a certificate file")
     if not path.is_file():
         raise UsageError(f"{path}: file not found")
     result = verify_certificate(path, recompute=args.recompute,
                                 reference_dir=args.references)
-    console.print(result.summary(), markup=False, soft_wrap=True)
-    for issue in result.issues:
-        console.print(f"  {issue}", markup=False, soft_wrap=True)
+    for line in result.report_lines():
+        console.print(line, markup=False, soft_wrap=True)
     if args.markdown is not None:
         try:
-            cert = json.loads(path.read_text(encoding="utf-8"))
-        except (OSError, UnicodeDecodeError, json.JSONDecodeError):
+            cert = load_certificate(path)
+        except CertificateReadError:
             cert = None
-        if isinstance(cert, dict):
+        if cert is not None:
             args.markdown.parent.mkdir(parents=True, exist_ok=True)
             args.markdown.write_text(summary_markdown(cert), encoding="utf-8")
             console.print(f"summary: {args.markdown}", markup=False, soft_wrap=True)
@@ -586,6 +635,9 @@ def _bench(args, console) -> int:
     """``bench``: the accelerator against the baselines (harness.bench)."""
     from harness import bench
 
+    if args.call_timeout > bench.acc.MAX_CALL_LIMIT:
+        raise UsageError(f"argument --call-timeout: expected at most "
+                         f"{bench.acc.MAX_CALL_LIMIT:g} s, got {args.call_timeout:g}")
     cases = bench.bench_suite(args.suite)
     if not cases:
         raise UsageError(f"--suite: suite {args.suite!r} has no cases")
@@ -600,8 +652,17 @@ def _bench(args, console) -> int:
     outcome = bench.run_bench(args.accelerator, cases=cases, guesses=args.guesses,
                               seed=args.seed, report_dir=args.report,
                               references=bench.bench_reference_dir(args.suite),
-                              progress=progress, call_limit=args.call_timeout, **options)
-    print("\n".join(bench.summary_lines(outcome)))
+                              progress=progress, call_limit=args.call_timeout, plots=False,
+                              **options)
+    print("\n".join(bench.summary_lines(outcome)), flush=True)
+    if args.report is not None:  # after the summary and bench.json: a failure loses neither
+        try:
+            bench.write_report(outcome, args.report)
+        except Exception as exc:
+            from harness.errors import first_line
+
+            raise UsageError(f"--report: the plots and {bench.HTML_NAME} could not be "
+                             f"written ({first_line(exc)}); {bench.JSON_NAME} was") from None
     return outcome.exit_status
 
 
@@ -612,6 +673,11 @@ def _references(args, console) -> int:
         raise UsageError("references needs an action: build or verify")
     cases, _ = select_cases(args.suites, args.case_names, default_suite=None)
     directory = args.references
+    if args.action == "verify" and directory is not None and not directory.is_dir():
+        raise UsageError(f"--references: not a folder: {directory}")
+    if args.action == "build" and directory is not None and directory.exists() \
+            and not directory.is_dir():
+        raise UsageError(f"--references: not a folder: {directory}")
     if args.action == "build":
         for name, what in references.build(cases, directory, force=args.force):
             console.print(f"{name}: {what}", markup=False, soft_wrap=True)
@@ -640,7 +706,7 @@ def _cases(args, console) -> int:
     from harness.cases import load_catalogue
 
     catalogue = load_catalogue()
-    cases = catalogue.suite(args.suite) if args.suite else catalogue.cases
+    cases, _ = select_cases(args.suites, None, default_suite=None)
     table = Table(box=box.SIMPLE_HEAD, pad_edge=False, show_edge=False)
     for column in ("case", "method", "basis", "nao", "suites", "note"):
         table.add_column(column, no_wrap=column != "note",

@@ -47,6 +47,13 @@ class ToleranceError(HarnessError):
 
 def first_line(exc: BaseException) -> str:
     """``"<ExcType>: <first line of its message>"`` (or just the type), for one-line
-    reports of an exception raised by a user's code."""
-    text = str(exc).strip().splitlines()
+    reports of an exception raised by a user's code. A message that cannot be made
+    into text (its ``__str__`` raises or returns a non-string) reads
+    ``"<ExcType>: <unprintable message>"``."""
+    try:
+        text = str(exc).strip().splitlines()
+    except KeyboardInterrupt:
+        raise
+    except BaseException:  # the user's __str__
+        return f"{type(exc).__name__}: <unprintable message>"
     return f"{type(exc).__name__}: {text[0]}" if text else type(exc).__name__

@@ -125,8 +125,11 @@ def evaluate_case(problem: Problem, extracted: dict, reference=None,
     if stability not in STABILITY_MODES:
         raise HarnessError(f"must be one of {', '.join(STABILITY_MODES)}, got {stability!r}",
                            field="stability")
-    checks, analysis = _evaluate(problem, extracted, reference, tolerances, integrals,
-                                 ao_convention, stability)
+    # A solution with overflowing or NaN entries is judged by the checks (they fail it);
+    # numpy's RuntimeWarnings about the same values would only clutter the terminal.
+    with np.errstate(all="ignore"):
+        checks, analysis = _evaluate(problem, extracted, reference, tolerances, integrals,
+                                     ao_convention, stability)
     return Verdict(checks=checks, analysis=analysis)
 
 

@@ -27,10 +27,17 @@ shell line (``shlex.split``), by absolute paths: ``{problem}``, ``{geometry}``,
 (``<dir>/solution.npz``, or the ``solution=`` name given). Without ``{solution}`` in
 the template, the code writes ``solution.npz``, ``solution.json``, ``solution.h5``,
 ``solution.hdf5`` or ``solution.molden`` (+ ``solution.json`` for the energy) in its
-working directory, and exactly one of them is read. Words that contain a ``/`` and
-name an existing file relative to the directory the harness was started from are made
-absolute (the command runs in the scratch directory). A solution path that resolves
-outside the scratch directory (``..``, a symbolic link) is refused.
+working directory, and exactly one of them is read.
+
+A word (not a placeholder, not an option starting with ``-``) that names an existing
+file or directory relative to the directory the harness was started from is made
+absolute, since the command runs in the scratch directory: ``python run_mine.py
+{problem}`` runs ``run_mine.py`` of the start directory. The names of the files in
+the scratch directory (``problem.json``, ``solution.npz``, ...; SCRATCH_NAMES) stay
+relative. The program (the first word) is made absolute only when it is a file in
+the start directory; a bare name such as ``python`` is otherwise looked up on
+``PATH``. A solution path that resolves outside the scratch directory (``..``, a
+symbolic link) is refused.
 
 Failures raise :class:`ExternalCodeError` with one line: ``exited with status 3``,
 ``killed by signal SIGSEGV``, ``timed out after 5 s``, ``cannot start ...``,
@@ -72,6 +79,10 @@ DEFAULT_SOLUTION = "solution.npz"
 #: ``solution.json`` then holds the energy).
 SOLUTION_CANDIDATES = ("solution.molden", "solution.npz", "solution.json", "solution.h5",
                        "solution.hdf5")
+#: Files of the scratch directory a command may name relatively (they are never made
+#: absolute against the start directory).
+SCRATCH_NAMES = (PROBLEM_FILE, GEOMETRY_FILE, BASIS_FILE, AO_ORDER_FILE, INITIAL_DENSITY_FILE,
+                 STDOUT_FILE, STDERR_FILE) + SOLUTION_CANDIDATES
 #: Placeholders a template may use.
 PLACEHOLDERS = ("problem", "solution", "geometry", "basis", "ao_order", "dir")
 #: Longest stderr excerpt put into an error message (characters).
@@ -80,6 +91,11 @@ MESSAGE_TAIL = 200
 KEPT_TAIL = 4000
 
 _PLACEHOLDER = re.compile(r"\{([A-Za-z_][A-Za-z0-9_]*)\}")
+
+
+class CommandSetupError(HarnessError):
+    """The command plug-in cannot be set up: a bad template (``--command``), scratch
+    directory (``--scratch``), timeout or solution name. Raised at construction."""
 
 
 class ExternalCodeError(HarnessError):
@@ -299,8 +315,10 @@ class CommandPlugin:
 
     Calling it with a ``Problem`` (bohr) returns the solution mapping (Eh), or raises
     :class:`ExternalCodeError`. It pickles (plain attributes), so it can be sent to
-    the harness's child process. Raises ``HarnessError`` at construction for a bad
-    template.
+    the harness's child process. Raises :class:`CommandSetupError` (a
+    ``HarnessError``) at construction for a bad template (empty, no program, unknown
+    placeholder), a ``scratch_root`` that is not a directory or cannot be created, a
+    non-positive timeout or a solution name outside the scratch directory.
     """
 
     def __init__(self, template: str, *, scratch_root=None, keep: bool = False,
@@ -309,35 +327,49 @@ class CommandPlugin:
         try:
             words = shlex.split(self.template)
         except ValueError as exc:
-            raise HarnessError(f"cannot split the command {self.template!r}: {exc}",
-                               field="--command") from None
+            raise CommandSetupError(f"cannot split the command {self.template!r}: {exc}",
+                                    field="--command") from None
         if not words:
-            raise HarnessError("the command is empty", field="--command")
+            raise CommandSetupError("the command is empty", field="--command")
+        if not words[0].strip():
+            raise CommandSetupError(f"the command {self.template!r} names no program (its "
+                                    f"first word is empty)", field="--command")
         unknown = sorted({m.group(1) for w in words for m in _PLACEHOLDER.finditer(w)}
                          - set(PLACEHOLDERS))
         if unknown:
-            raise HarnessError(f"unknown placeholder {{{unknown[0]}}} (known: "
-                               f"{', '.join('{' + p + '}' for p in PLACEHOLDERS)})",
-                               field="--command")
+            raise CommandSetupError(f"unknown placeholder {{{unknown[0]}}} (known: "
+                                    f"{', '.join('{' + p + '}' for p in PLACEHOLDERS)})",
+                                    field="--command")
         if timeout is not None and not timeout > 0:
-            raise HarnessError(f"timeout must be positive, got {timeout!r}", field="timeout")
-        self.base_dir = os.getcwd()
-        self.words = [self._absolute(w) for w in words]
+            raise CommandSetupError(f"timeout must be positive, got {timeout!r}",
+                                    field="timeout")
         self.names_solution = any("{solution}" in w for w in words) or solution is not None
         self.solution = solution if solution is not None else DEFAULT_SOLUTION
         if Path(self.solution).is_absolute() or ".." in Path(self.solution).parts:
-            raise HarnessError(f"the solution file {self.solution!r} must be a plain name "
-                               f"inside the scratch directory", field="solution")
-        self.scratch_root = str(scratch_root) if scratch_root is not None else None
+            raise CommandSetupError(f"the solution file {self.solution!r} must be a plain "
+                                    f"name inside the scratch directory", field="solution")
+        self.base_dir = os.getcwd()
+        self.words = [self._absolute(w, program=(k == 0)) for k, w in enumerate(words)]
+        self.scratch_root = _scratch_root(scratch_root) if scratch_root is not None else None
         self.keep = bool(keep)
         self.timeout = float(timeout) if timeout is not None else None
 
-    def _absolute(self, word: str) -> str:
-        if "/" not in word or word.startswith("/") or _PLACEHOLDER.search(word) \
+    def _absolute(self, word: str, *, program: bool = False) -> str:
+        """``word`` made absolute when it names an existing file or directory relative
+        to the start directory (the program: a file only, else PATH finds it). The
+        names of the files in the scratch directory (SCRATCH_NAMES, the solution name)
+        stay relative: they name the files the command finds in its working directory."""
+        if not word or word.startswith("/") or _PLACEHOLDER.search(word) \
                 or word.startswith("-"):
             return word
+        if os.path.normpath(word) in SCRATCH_NAMES + (os.path.normpath(self.solution),):
+            return word
         candidate = Path(self.base_dir, word)
-        return str(candidate.resolve()) if candidate.exists() else word
+        try:
+            found = candidate.is_file() if program else candidate.exists()
+        except OSError:  # e.g. a word too long to be a file name
+            return word
+        return str(candidate.resolve()) if found else word
 
     def __repr__(self) -> str:
         return f"CommandPlugin({self.template!r})"
@@ -348,9 +380,15 @@ class CommandPlugin:
         return [_PLACEHOLDER.sub(lambda m: values[m.group(1)], w) for w in self.words]
 
     def __call__(self, problem) -> dict[str, Any]:
-        if self.scratch_root is not None:
-            Path(self.scratch_root).mkdir(parents=True, exist_ok=True)
-        scratch = Path(tempfile.mkdtemp(prefix=f"{problem.name}-", dir=self.scratch_root))
+        try:
+            if self.scratch_root is not None:
+                Path(self.scratch_root).mkdir(parents=True, exist_ok=True)
+            scratch = Path(tempfile.mkdtemp(prefix=f"{problem.name}-", dir=self.scratch_root))
+        except OSError as exc:  # removed or made read-only since construction
+            raise ExternalCodeError(f"cannot make a scratch directory in "
+                                    f"{self.scratch_root or tempfile.gettempdir()}: "
+                                    f"{exc.strerror or type(exc).__name__}",
+                                    case=problem.name) from None
         try:
             return self._run(problem, scratch.resolve())
         finally:
@@ -422,6 +460,23 @@ class CommandPlugin:
             raise fail(f"wrote several solution files ({', '.join(p.name for p in present)}): "
                        f"write one", 0)
         return present[0]
+
+
+def _scratch_root(root) -> str:
+    """``root`` as a string, made if missing; :class:`CommandSetupError` (field
+    ``--scratch``) if it exists and is not a directory, or cannot be made."""
+    path = Path(root)
+    if path.exists() and not path.is_dir():
+        raise CommandSetupError(f"{root} exists and is not a directory", field="--scratch")
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise CommandSetupError(f"cannot create the directory {root} "
+                                f"({exc.strerror or type(exc).__name__})",
+                                field="--scratch") from None
+    if not os.access(path, os.W_OK | os.X_OK):
+        raise CommandSetupError(f"cannot write in the directory {root}", field="--scratch")
+    return str(root)
 
 
 def _kill_group(proc: subprocess.Popen) -> None:

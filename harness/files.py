@@ -16,8 +16,9 @@ chosen by the file's suffix:
     ``"format": "scf-harness-solution/1"`` and ``"units": {"energy": "hartree",
     "length": "bohr"}``; anything else in ``units`` is refused.
 ``.h5`` / ``.hdf5``
-    One dataset per key at the file's root (scalars may also be root attributes).
-    Needs the optional package h5py.
+    One dataset per key at the file's root (scalars may also be root attributes),
+    stored in the file itself: soft and external links, external storage and virtual
+    datasets are refused. Needs the optional package h5py.
 ``.molden``
     Orbitals, occupations and orbital energies from a Molden file (read with pyscf's
     Molden reader, which puts the AOs in pyscf's order and handles the [5D]/[7F]/[6D]/
@@ -36,6 +37,7 @@ from __future__ import annotations
 import json
 import math
 import re
+import sys
 import zipfile
 import zlib
 from pathlib import Path
@@ -65,6 +67,10 @@ MOLDEN_OVERLAP_TOLERANCE = 1e-6
 #: |Tr(Pσ S) − Nσ| allowed right after reading a Molden file (electrons). Coefficients
 #: are printed with ≥ 10 digits; a wrong AO normalisation convention is off by ≥ 1e-2.
 MOLDEN_ELECTRON_COUNT_TOLERANCE = 1e-6
+
+#: Most digits an integer in a JSON solution may have: one more and it exceeds the
+#: largest float64 (1.8e308, 309 digits), so it cannot be a number the harness reads.
+MAX_JSON_INT_DIGITS = len(str(int(sys.float_info.max)))
 
 SCALAR_KEYS = ("energy", "converged", "iterations")
 _SPHERICAL_TAGS = ("[5D]", "[5D7F]", "[5D10F]", "[7F]", "[9G]")
@@ -125,6 +131,8 @@ def _check_nonempty(path: Path, name: str) -> None:
     except OSError as exc:
         raise SolutionFileError(f"cannot read ({exc.strerror or type(exc).__name__})",
                                 file=name) from None
+    if path.is_dir():
+        raise SolutionFileError("is a directory", file=name)
     if not path.is_file():
         raise SolutionFileError("is not a regular file", file=name)
     if size == 0:
@@ -197,23 +205,50 @@ def read_npz(path) -> dict[str, Any]:
 # --------------------------------------------------------------------------- .json
 
 
+class _HugeInteger:
+    """Stands for an integer in a JSON file with more than MAX_JSON_INT_DIGITS digits
+    (or beyond the float64 range): kept as its digit count, never converted."""
+
+    def __init__(self, digits: int):
+        self.digits = digits
+
+    def __repr__(self) -> str:
+        return f"<an integer of {self.digits} digits>"
+
+
+def _json_int(text: str):
+    """``parse_int`` for :func:`json.loads`: an int, or :class:`_HugeInteger` when the
+    value cannot be a float64 (Python also refuses to convert very long digit strings)."""
+    digits = len(text.lstrip("-"))
+    if digits <= MAX_JSON_INT_DIGITS:
+        value = int(text)
+        if abs(value) <= sys.float_info.max:
+            return value
+    return _HugeInteger(digits)
+
+
+def _out_of_range(value) -> str:
+    return f"is an integer of {value.digits} digits, beyond the float range"
+
+
 def _first_bad_leaf(value, where: str = ""):
-    """(path, description) of the first leaf of a nested list that is not a number."""
+    """(path, predicate) of the first leaf of a nested list that is not a number."""
     if isinstance(value, list):
         for i, item in enumerate(value):
             bad = _first_bad_leaf(item, f"{where}[{i}]")
             if bad:
                 return bad
         return None
+    if isinstance(value, _HugeInteger):
+        return where, _out_of_range(value)
     if isinstance(value, bool) or not isinstance(value, (int, float)):
-        kind = "null" if value is None else type(value).__name__
-        if isinstance(value, dict):
-            kind = "object"
-        return where, kind
+        return where, f"is {_json_kind(value)}, not a number"
     return None
 
 
 def _json_value(name: str, key: str, value):
+    if isinstance(value, _HugeInteger):
+        raise SolutionFileError(_out_of_range(value), file=name, key=key)
     if key in ("converged",):
         if not isinstance(value, bool):
             raise SolutionFileError(f"must be true or false, got {_json_kind(value)}",
@@ -236,8 +271,7 @@ def _json_value(name: str, key: str, value):
                                 f"{_json_kind(value)}", file=name, key=key)
     bad = _first_bad_leaf(value)
     if bad:
-        raise SolutionFileError(f"element {bad[0] or '(top)'} is {_article(bad[1])}, not a "
-                                f"number", file=name, key=key)
+        raise SolutionFileError(f"element {bad[0] or '(top)'} {bad[1]}", file=name, key=key)
     try:
         arr = np.array(value, dtype=np.float64)
     except ValueError:
@@ -259,6 +293,9 @@ def _json_history(name: str, value):
                                     f"[energy, error]", file=name, key=HISTORY_KEY)
         for field in ("energy", "error"):
             x = record.get(field)
+            if isinstance(x, _HugeInteger):
+                raise SolutionFileError(f"record {k}: {field!r} {_out_of_range(x)}",
+                                        file=name, key=HISTORY_KEY)
             if x is not None and (isinstance(x, bool) or not isinstance(x, (int, float))):
                 raise SolutionFileError(f"record {k}: {field!r} is {_json_kind(x)}, not a "
                                         f"number", file=name, key=HISTORY_KEY)
@@ -285,7 +322,7 @@ def _json_object(path: Path, name: str) -> dict:
         raise SolutionFileError(f"is {size} bytes, more than the limit {MAX_JSON_BYTES}",
                                 file=name)
     try:
-        data = json.loads(path.read_bytes().decode("utf-8"))
+        data = json.loads(path.read_bytes().decode("utf-8"), parse_int=_json_int)
     except UnicodeDecodeError:
         raise SolutionFileError("is not UTF-8 text", file=name) from None
     except json.JSONDecodeError as exc:
@@ -293,6 +330,9 @@ def _json_object(path: Path, name: str) -> dict:
                                 f"{exc.msg})", file=name) from None
     except RecursionError:
         raise SolutionFileError("not valid JSON (nested too deeply)", file=name) from None
+    except (ValueError, OverflowError) as exc:  # anything else the decoder refuses
+        raise SolutionFileError(f"not a readable JSON file ({str(exc).splitlines()[0][:80]})",
+                                file=name) from None
     if not isinstance(data, dict):
         raise SolutionFileError(f"must hold a JSON object, got {_json_kind(data)}", file=name)
     tag = data.get("format")
@@ -332,7 +372,11 @@ def read_json(path, *, require=True) -> dict[str, Any]:
 
 
 def read_h5(path) -> dict[str, Any]:
-    """Read an HDF5 solution: one root dataset per key (scalars: dataset or attribute)."""
+    """Read an HDF5 solution: one root dataset per key (scalars: dataset or attribute).
+
+    Only data stored in this file are read: a key that is a soft or external link, or
+    a dataset with external storage or a virtual layout, is refused unread.
+    """
     path = Path(path)
     name = path.name
     _check_nonempty(path, name)
@@ -349,10 +393,15 @@ def read_h5(path) -> dict[str, Any]:
     with handle:
         found = list(handle.keys()) + list(handle.attrs.keys())
         for key in KNOWN_KEYS:
-            if key in handle:
+            link = handle.get(key, getlink=True)
+            if link is not None:
+                _h5_own_link(h5py, name, key, link)
                 obj = handle[key]
                 if not isinstance(obj, h5py.Dataset):
-                    raise SolutionFileError("is a group, not a dataset", file=name, key=key)
+                    kind = "a group" if isinstance(obj, h5py.Group) else \
+                        f"a {type(obj).__name__.lower()}"
+                    raise SolutionFileError(f"is {kind}, not a dataset", file=name, key=key)
+                _h5_own_data(name, key, obj)
                 if obj.dtype.kind not in "biufc":
                     raise SolutionFileError(f"has dtype {obj.dtype}, not a number",
                                             file=name, key=key)
@@ -371,6 +420,31 @@ def read_h5(path) -> dict[str, Any]:
                 out[key] = _numeric(name, key, np.asarray(handle.attrs[key]))
     _check_required(name, out, found)
     return out
+
+
+def _h5_own_link(h5py, name: str, key: str, link) -> None:
+    """Refuse a key that is a soft, external or user-defined link: only a dataset
+    stored in the file itself is read (a link may point outside the file)."""
+    if isinstance(link, h5py.HardLink):
+        return
+    if isinstance(link, h5py.SoftLink):
+        what = f"a soft link to {link.path!r}"
+    elif isinstance(link, h5py.ExternalLink):
+        what = f"an external link to {link.filename}:{link.path}"
+    else:
+        what = f"a link ({type(link).__name__})"
+    raise SolutionFileError(f"is {what}, not a dataset (links are refused)", file=name,
+                            key=key)
+
+
+def _h5_own_data(name: str, key: str, obj) -> None:
+    """Refuse a dataset whose data live in other files (external storage, virtual)."""
+    if obj.external:
+        raise SolutionFileError("keeps its data in an external file, not in this one "
+                                "(refused)", file=name, key=key)
+    if obj.is_virtual:
+        raise SolutionFileError("is a virtual dataset mapped from other files (refused)",
+                                file=name, key=key)
 
 
 # --------------------------------------------------------------------------- Molden
@@ -477,9 +551,10 @@ def read_molden(path, problem, *, energy_file=None) -> dict[str, Any]:
 
     out: dict[str, Any] = {"coefficients": c, "occupations": occ, "orbital_energies": eps}
     energy_path = Path(energy_file) if energy_file is not None else path.with_suffix(".json")
-    if not energy_path.is_file():
+    if not (energy_path.exists() or energy_path.is_symlink()):
         raise SolutionFileError(f"needs its energy in a JSON file: {energy_path.name} not "
-                                f"found (give energy_file=...)", file=name, key="energy")
+                                f"found (give the energy file: --energy-file, or "
+                                f"energy_file= from Python)", file=name, key="energy")
     extra = read_json(energy_path, require=False)
     for key in ("coefficients", "occupations"):
         if key in extra:

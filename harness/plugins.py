@@ -19,17 +19,28 @@ from typing import Any, Callable
 from harness.errors import PluginLoadError, first_line
 
 FORMS = "MODULE:FUNCTION or path/to/file.py:FUNCTION"
+#: What a spec of each kind names after the colon (the word in messages, and in FORMS).
+NAMED = {"plug-in": "function", "accelerator": "accelerator"}
 
 
-def split_spec(spec: str) -> tuple[str, str]:
-    """Split ``"target:function"`` at its last colon; raise PluginLoadError if malformed."""
+def forms(kind: str = "plug-in") -> str:
+    """The spec forms of ``kind``, as messages show them (``FORMS`` for plug-ins)."""
+    word = NAMED.get(kind, "function").upper()
+    return f"MODULE:{word} or path/to/file.py:{word}"
+
+
+def split_spec(spec: str, kind: str = "plug-in") -> tuple[str, str]:
+    """Split ``"target:function"`` at its last colon; raise PluginLoadError if malformed.
+    ``kind`` words the error ("plug-in", "accelerator")."""
     target, sep, attr = str(spec).rpartition(":")
+    expected = forms(kind)
     if not sep:
-        raise PluginLoadError(f"plug-in {spec!r}: no colon; expected {FORMS}")
+        raise PluginLoadError(f"{kind} {spec!r}: no colon; expected {expected}")
     if not target.strip():
-        raise PluginLoadError(f"plug-in {spec!r}: nothing before the colon; expected {FORMS}")
+        raise PluginLoadError(f"{kind} {spec!r}: nothing before the colon; expected {expected}")
     if not attr.strip():
-        raise PluginLoadError(f"plug-in {spec!r}: no function after the colon; expected {FORMS}")
+        raise PluginLoadError(f"{kind} {spec!r}: no {NAMED.get(kind, 'function')} after the "
+                              f"colon; expected {expected}")
     return target.strip(), attr.strip()
 
 
@@ -44,7 +55,7 @@ def _put_first_on_path(folder: str) -> None:
     sys.path.insert(0, folder)
 
 
-def _import_module(spec: str, name: str):
+def _import_module(spec: str, name: str, kind: str = "plug-in"):
     _put_first_on_path(os.getcwd())
     importlib.invalidate_caches()
     try:
@@ -52,12 +63,12 @@ def _import_module(spec: str, name: str):
     except ModuleNotFoundError as exc:
         missing = exc.name or ""
         if missing == name or name.startswith(missing + "."):
-            raise PluginLoadError(f"plug-in {spec!r}: module {missing!r} not found (searched "
+            raise PluginLoadError(f"{kind} {spec!r}: module {missing!r} not found (searched "
                                   f"the current directory and sys.path)") from None
-        raise PluginLoadError(f"plug-in {spec!r}: importing {name} failed: "
+        raise PluginLoadError(f"{kind} {spec!r}: importing {name} failed: "
                               f"{first_line(exc)}") from None
     except (Exception, SystemExit) as exc:
-        raise PluginLoadError(f"plug-in {spec!r}: importing {name} failed: "
+        raise PluginLoadError(f"{kind} {spec!r}: importing {name} failed: "
                               f"{first_line(exc)}") from None
 
 
@@ -75,10 +86,10 @@ def _same_file(module, path: Path) -> bool:
     return origin is not None and Path(origin).resolve() == path
 
 
-def _load_file(spec: str, target: str):
+def _load_file(spec: str, target: str, kind: str = "plug-in"):
     path = Path(target).expanduser()
     if not path.is_file():
-        raise PluginLoadError(f"plug-in {spec!r}: file not found: {target}")
+        raise PluginLoadError(f"{kind} {spec!r}: file not found: {target}")
     path = path.resolve()
     name = _module_name_for(path)
     if name in sys.modules:
@@ -87,32 +98,41 @@ def _load_file(spec: str, target: str):
     importlib.invalidate_caches()
     module_spec = importlib.util.spec_from_file_location(name, path)
     if module_spec is None or module_spec.loader is None:
-        raise PluginLoadError(f"plug-in {spec!r}: cannot load {target} as a Python module")
+        raise PluginLoadError(f"{kind} {spec!r}: cannot load {target} as a Python module")
     module = importlib.util.module_from_spec(module_spec)
     sys.modules[name] = module
     try:
         module_spec.loader.exec_module(module)
     except (Exception, SystemExit) as exc:
         del sys.modules[name]
-        raise PluginLoadError(f"plug-in {spec!r}: importing {target} failed: "
+        raise PluginLoadError(f"{kind} {spec!r}: importing {target} failed: "
                               f"{first_line(exc)}") from None
     return module
+
+
+_MISSING = object()
 
 
 def load_object(spec: str, kind: str = "plug-in") -> Any:
     """Import the module or file of ``spec`` and return the (possibly dotted) attribute it
     names. ``kind`` words the error ("plug-in", "accelerator"). Raises
     :class:`PluginLoadError` (one line)."""
-    target, attr = split_spec(spec)
+    target, attr = split_spec(spec, kind)
     if is_file_target(target):
-        module = _load_file(spec, target)
+        module = _load_file(spec, target, kind)
     else:
-        module = _import_module(spec, target)
+        module = _import_module(spec, target, kind)
     obj: Any = module
     for part in attr.split("."):
-        if not hasattr(obj, part):
+        try:
+            obj = getattr(obj, part, _MISSING)
+        except KeyboardInterrupt:
+            raise
+        except BaseException as exc:  # a __getattr__ or property of the user's code
+            raise PluginLoadError(f"{kind} {spec!r}: reading {attr} from {target} raised "
+                                  f"{first_line(exc)}") from None
+        if obj is _MISSING:
             raise PluginLoadError(f"{kind} {spec!r}: {target} has no attribute {attr!r}")
-        obj = getattr(obj, part)
     return obj
 
 

@@ -31,6 +31,41 @@ def _frozen_array(values, dtype, shape_name: str, case: str) -> np.ndarray:
     return arr
 
 
+#: Largest |charge| accepted (a molecule's charge; larger values are typing errors).
+MAX_CHARGE = 1000
+#: Nuclei closer than this (bohr) coincide: pyscf cannot build such a molecule. (Files
+#: are held to a far larger bound, ``harness.cases.CLOSEST_NUCLEI``; programs may build
+#: nearly coincident nuclei on purpose, e.g. to make a basis nearly linearly dependent.)
+COINCIDENT_NUCLEI = 1e-6
+#: Largest |coordinate| accepted (bohr): far beyond any molecule, small enough that
+#: distances and the nuclear repulsion stay finite in floating point.
+MAX_COORDINATE = 1.0e4
+
+
+def closest_pair(coordinates: np.ndarray) -> tuple[int, int, float]:
+    """(i, j, R_ij) of the two nuclei closest to each other (i < j; bohr in, bohr out);
+    (0, 0, inf) for a single atom."""
+    if len(coordinates) < 2:
+        return 0, 0, float("inf")
+    diff = coordinates[:, None, :] - coordinates[None, :, :]
+    dist = np.sqrt((diff ** 2).sum(-1)) + np.diag(np.full(len(coordinates), np.inf))
+    i, j = sorted(int(k) for k in np.unravel_index(int(np.argmin(dist)), dist.shape))
+    return i, j, float(dist[i, j])
+
+
+def _check_geometry(coordinates: np.ndarray, name: str) -> None:
+    """One-line CaseError for coordinates out of range or coinciding nuclei
+    (coordinates in bohr, shape (natm, 3))."""
+    big = float(np.abs(coordinates).max())
+    if big > MAX_COORDINATE:
+        raise CaseError(f"|x| = {big:.3g} bohr exceeds {MAX_COORDINATE:g} bohr (far beyond "
+                        f"any molecule)", case=name, field="coordinates")
+    i, j, r = closest_pair(coordinates)
+    if r < COINCIDENT_NUCLEI:
+        raise CaseError(f"atoms {i + 1} and {j + 1} coincide ({r:.3g} bohr apart)",
+                        case=name, field="coordinates")
+
+
 def build_mole(numbers, coordinates, *, charge: int, multiplicity: int, basis: str,
                cartesian: bool):
     """Build the pyscf ``Mole`` for a case: coordinates in bohr, symmetry off, quiet.
@@ -132,6 +167,12 @@ class Problem:
             raise CaseError(f"must be a number in (0, 1), got {convergence!r}", case=name,
                             field="convergence")
         basis = str(basis).strip().lower()
+        if not basis:
+            raise CaseError("must name a basis pyscf knows, got ''", case=name, field="basis")
+        if abs(int(charge)) > MAX_CHARGE:
+            raise CaseError(f"must lie in −{MAX_CHARGE}..{MAX_CHARGE}, got {charge}",
+                            case=name, field="charge")
+        _check_geometry(coordinates, name)
         try:
             mol = build_mole(numbers, coordinates, charge=int(charge),
                              multiplicity=int(multiplicity), basis=basis,
@@ -140,6 +181,14 @@ class Problem:
             raise CaseError(f"pyscf cannot build {basis!r} for this molecule "
                             f"({type(exc).__name__}: {exc})".splitlines()[0],
                             case=name, field="basis") from None
+        if n_electrons > 2 * mol.nao:
+            raise CaseError(f"charge {charge} gives {n_electrons} electrons; {basis} holds at "
+                            f"most {2 * mol.nao} ({mol.nao} functions)", case=name,
+                            field="charge")
+        if (n_electrons + spin) // 2 > mol.nao:
+            raise CaseError(f"multiplicity {multiplicity} needs {(n_electrons + spin) // 2} "
+                            f"alpha orbitals; {basis} has {mol.nao} functions", case=name,
+                            field="multiplicity")
         if initial_density is not None:
             initial_density = _frozen_array(initial_density, np.float64, "initial_density", name)
         return cls(name=name, numbers=numbers, coordinates=coordinates, charge=int(charge),

@@ -36,7 +36,7 @@ from typing import Any
 import pytest
 
 from harness import config as _config
-from harness.errors import HarnessError
+from harness.errors import CaseError, HarnessError
 
 #: Node id (and name) of the collector that holds the generated case items.
 SUITE_NODE = "scf-harness"
@@ -153,21 +153,22 @@ class CaseSuite(pytest.Collector):
     cases file (its order); no duplicates."""
 
     def collect(self) -> list["CaseItem"]:
-        from harness.cases import load_catalogue, load_suite_file
-        from harness.plugins import load_plugin
+        from harness.cases import load_catalogue, load_user_suite
+        from harness.runner import check_plugin
 
         settings = settings_of(self.config)
         try:
             catalogue = load_catalogue()
             chosen = [case for suite in settings.suites for case in catalogue.suite(suite)]
             if settings.cases_file is not None:
-                chosen.extend(load_suite_file(settings.cases_file))
+                chosen.extend(load_user_suite(settings.cases_file, catalogue))
             cases, seen = [], set()
             for case in chosen:
                 if case.name not in seen:
                     seen.add(case.name)
                     cases.append(case)
-            load_plugin(settings.plugin)  # a bad spec is a usage error, reported once
+            # a bad spec is a usage error, reported once; loaded in a child process
+            check_plugin(settings.plugin, timeout=settings.timeout)
         except HarnessError as exc:
             raise pytest.UsageError(f"scf-harness: {exc}") from None
         return [CaseItem.from_parent(self, name=case.name, case=case) for case in cases]
@@ -198,7 +199,7 @@ class CaseItem(pytest.Item):
         outcome = run_cases([self.case], settings.plugin,
                             tolerances=Tolerances(overrides=dict(settings.tolerances)),
                             timeout=settings.timeout, convergence=settings.convergence,
-                            stability=settings.stability)
+                            stability=settings.stability, plugin_checked=True)
         if outcome.interrupted or not outcome.cases:
             raise KeyboardInterrupt
         result = outcome.cases[0]
@@ -276,9 +277,14 @@ def scf_reference(scf_case):
 
     def reference(case):
         __tracebackhide__ = True
+        from harness.cases import Case
         from harness.references import load_reference
 
-        return load_reference(scf_case(case) if isinstance(case, str) else case)
+        case = scf_case(case) if isinstance(case, str) else case
+        if not isinstance(case, Case):
+            raise CaseError(f"expected a Case or a case name, got {type(case).__name__}",
+                            field="scf_reference")
+        return load_reference(case)
 
     return reference
 
@@ -304,8 +310,16 @@ def scf_check(request, scf_case):
         from harness.solution import extract
         from harness.tolerances import Tolerances
 
+        from harness.cases import Case
+
         if isinstance(case, str):
             case = scf_case(case)
+        if not isinstance(case, (Case, Problem)):
+            raise CaseError(f"expected a Case, a case name or a Problem, got "
+                            f"{type(case).__name__}", field="scf_check")
+        if reference is not None and not hasattr(reference, "energy"):
+            raise CaseError(f"reference: expected a Reference (from scf_reference), got "
+                            f"{type(reference).__name__}", field="scf_check")
         if isinstance(case, Problem):
             problem = case
         else:
@@ -313,7 +327,11 @@ def scf_check(request, scf_case):
                        else case.problem(convergence=settings.convergence))
             if reference is None:
                 reference = _stored_reference(case)
-        results = evaluate(problem, extract(solution), reference,
+        try:
+            extracted = extract(solution)
+        except (TypeError, HarnessError) as exc:
+            raise AssertionError(f"the solution is not readable: {exc}") from None
+        results = evaluate(problem, extracted, reference,
                            Tolerances(overrides=dict(settings.tolerances)),
                            stability=settings.stability)
         failures = [r for r in results if r.passed is False]

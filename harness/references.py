@@ -594,7 +594,8 @@ def load_reference(case: Case, directory=None) -> Reference:
 def reference_for(case: Case, directory=None, *, write: bool = False
                   ) -> tuple[Reference, str]:
     """The reference of ``case`` and where it came from: ``"stored"`` when a stored file
-    matches the input hash, else ``"computed"`` (written to ``directory`` if ``write``)."""
+    matches the input hash, else computed now: ``"written"`` when ``write`` stored it in
+    ``directory``, ``"computed"`` otherwise."""
     try:
         return load_reference(case, directory), "stored"
     except ReferenceDataError:
@@ -602,6 +603,7 @@ def reference_for(case: Case, directory=None, *, write: bool = False
     ref = compute_reference(case)
     if write:
         write_reference(ref, directory)
+        return ref, "written"
     return ref, "computed"
 
 

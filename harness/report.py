@@ -9,6 +9,7 @@ All energies in hartree (Eh), lengths in bohr, times in seconds.
 from __future__ import annotations
 
 import json
+import math
 import os
 import platform
 import sys
@@ -111,6 +112,8 @@ def progress_line(result: CaseResult, console: Console | None = None) -> Text:
     line.append(f" {result.name}  {took}")
     if result.reference_source == "computed":
         line.append("  (reference computed with pyscf now, not stored)", style="dim")
+    elif result.reference_source == "written":
+        line.append("  (reference computed with pyscf now and stored)", style="dim")
     why = first_failure(result)
     if why is not None:
         line.append(f"  {why}", style="red")
@@ -272,11 +275,24 @@ def to_json(outcome, *, plugin: str, suite_names: Sequence[str],
     }
 
 
+def strict_json(value):
+    """``value`` with every NaN or infinite float replaced by None (JSON has no NaN; the
+    check messages keep the numbers as text)."""
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, Mapping):
+        return {k: strict_json(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [strict_json(v) for v in value]
+    return value
+
+
 def write_json(path, data: Mapping[str, Any]) -> Path:
-    """Write ``data`` as JSON to ``path`` atomically (a temporary file, then a rename)."""
+    """Write ``data`` as strict JSON (:func:`strict_json`) to ``path`` atomically (a
+    temporary file, then a rename)."""
     def write(tmp: str) -> None:
         with open(tmp, "w", encoding="utf-8") as fh:
-            json.dump(data, fh, indent=2)
+            json.dump(strict_json(data), fh, indent=2, allow_nan=False)
             fh.write("\n")
             fh.flush()
             os.fsync(fh.fileno())

@@ -136,7 +136,7 @@ class CaseResult:
     reference_energy: float | None = None
     plugin_seconds: float | None = None
     check_seconds: float | None = None
-    reference_source: str | None = None  #: "stored" or "computed"
+    reference_source: str | None = None  #: "stored", "computed" or "written" (computed, stored)
     analysis: dict = dataclasses.field(default_factory=dict, compare=False)
 
     @property

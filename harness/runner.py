@@ -9,6 +9,12 @@ pickled), calls it on the case's
 sends it back, or sends a one-line error naming the plug-in's own innermost frame.
 A timeout (seconds), a crash (a signal, an exit), a garbage return value or an
 exception fails that case only; the run goes on. The checks run in this process.
+
+Before any case, a spec string is loaded once in a short-lived child of the same kind
+(``check_plugin``), so that a bad spec fails the run early, in one line, while the
+harness process itself never imports the plug-in: what a module does at import
+(``os._exit``, ``os.chdir``, sleeping past the timeout, raising KeyboardInterrupt)
+cannot reach the harness.
 """
 
 from __future__ import annotations
@@ -121,17 +127,65 @@ def plugin_frame(tb) -> traceback.FrameSummary | None:
     return own[-1] if own else frames[0]
 
 
+#: Stands in for the message of an exception whose ``__str__`` raises.
+UNPRINTABLE = "<unprintable message>"
+
+
+def _type_name(obj) -> str:
+    """``type(obj).__name__``, or a placeholder if even that fails (a hostile metaclass)."""
+    try:
+        name = type(obj).__name__
+        return str.__str__(name) if isinstance(name, str) else "<unnamed type>"
+    except BaseException:
+        return "<unnamed type>"
+
+
+def _first_line(exc: BaseException) -> str:
+    """``"<ExcType>: <first line of str(exc)>"`` (or just the type when the message is
+    empty; ``"<ExcType>: <unprintable message>"`` when ``str(exc)`` raises). Never raises."""
+    try:
+        lines = str.__str__(str(exc)).strip().splitlines()
+    except BaseException:
+        return f"{_type_name(exc)}: {UNPRINTABLE}"
+    return f"{_type_name(exc)}: {lines[0]}" if lines else _type_name(exc)
+
+
+def _message(exc: BaseException) -> str:
+    """``str(exc)``, or ``"<ExcType>: <unprintable message>"`` when that raises. Never raises."""
+    try:
+        return str.__str__(str(exc))
+    except BaseException:
+        return f"{_type_name(exc)}: {UNPRINTABLE}"
+
+
 def describe_exception(exc: BaseException, tb=None) -> str:
-    """``"<ExcType>: <message> (at <file>:<line> in <function>)"``, one line.
+    """``"<ExcType>: <message> (at <file>:<line> in <function>)"``, one line. Never raises:
+    an exception whose ``__str__`` raises reads ``"<ExcType>: <unprintable message>"``.
 
     No location for an exception whose class sets ``names_its_source`` (an external
     code's failure: the frame would be the harness's, the message says what failed)."""
-    lines = str(exc).strip().splitlines()
-    text = f"{type(exc).__name__}: {lines[0]}" if lines else type(exc).__name__
-    frame = plugin_frame(tb if tb is not None else exc.__traceback__)
-    if frame is not None and not getattr(exc, "names_its_source", False):
-        text += f" (at {frame.filename}:{frame.lineno} in {frame.name})"
+    text = _first_line(exc)
+    try:
+        frame = plugin_frame(tb if tb is not None else exc.__traceback__)
+        if frame is not None and not getattr(exc, "names_its_source", False):
+            text += f" (at {frame.filename}:{frame.lineno} in {frame.name})"
+    except BaseException:  # a frame or attribute the plug-in made unreadable: no location
+        pass
     return text
+
+
+def _send(conn, message: dict, fallback: str) -> None:
+    """Send ``message``; if it cannot be pickled, send ``{"error": fallback + why}``
+    instead; if the harness is gone, nothing. Never raises (no traceback from a child)."""
+    try:
+        conn.send(message)
+        return
+    except BaseException as exc:  # a value that cannot be pickled, or a closed pipe
+        why = _first_line(exc)
+    try:
+        conn.send({"error": f"{fallback}: {why}", "seconds": message.get("seconds")})
+    except BaseException:
+        pass
 
 
 def _die_with_harness(conn) -> None:
@@ -174,32 +228,87 @@ def _stop_on_sigterm(signum, frame):
     raise _Stopped
 
 
-def _child_main(conn, plugin_spec, path: list[str], cwd: str, problem,
-                jobs: int = 1) -> None:
-    """Entry point of the child process: call the plug-in once, send one message.
-
-    ``plugin_spec`` is a spec string (imported here) or the plug-in callable itself."""
+def _enter(conn, path: list[str], cwd: str) -> None:
+    """Common start of every child: Ctrl-C is the parent's, end with the harness, work in
+    the harness's ``cwd`` with its ``sys.path``."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C
-    if jobs > 1:
-        _share_cores(jobs)
     _die_with_harness(conn)
-    try:
-        import faulthandler
-        faulthandler.enable()  # a crashing plug-in prints where it crashed on stderr
-    except Exception:  # pragma: no cover - stderr unusable
-        pass
     try:
         os.chdir(cwd)
     except OSError:
         pass
     sys.path[:] = path
+
+
+def _load_failure(spec: str, exc: BaseException) -> str:
+    """The one-line reason loading ``spec`` failed: a PluginLoadError's own text, or
+    ``"plug-in '<spec>': importing it raised <ExcType>: <message>"`` for anything else
+    (KeyboardInterrupt, an exception whose ``__str__`` raised). Never raises."""
+    if isinstance(exc, PluginLoadError):
+        return _message(exc)
+    return f"plug-in {spec!r}: importing it raised {_first_line(exc)}"
+
+
+def _load(spec: str):
+    """``(function, None)`` or ``(None, one-line reason)`` for a spec string."""
+    try:
+        return load_plugin(spec), None
+    except BaseException as exc:  # KeyboardInterrupt or SystemExit at import too
+        return None, _load_failure(spec, exc)
+
+
+def _quiet_into(output: str) -> None:
+    """Send this process's stdout and stderr (file descriptors 1 and 2) to ``output``."""
+    try:
+        fd = os.open(output, os.O_WRONLY | os.O_APPEND)
+    except OSError:
+        fd = os.open(os.devnull, os.O_WRONLY)
+    for target in (1, 2):
+        try:
+            os.dup2(fd, target)
+        except OSError:  # pragma: no cover - no such descriptor
+            pass
+    os.close(fd)
+
+
+def _load_check_main(conn, plugin_spec: str, path: list[str], cwd: str, output: str) -> None:
+    """Entry point of the load-check child: load ``plugin_spec`` as a case child would,
+    send ``{"ok": True}`` or ``{"error": one line}``, and end at once (no exit handlers,
+    no waiting for threads the module started). What the import prints goes to the file
+    ``output`` (shown only when loading fails, so a successful import prints only once,
+    in the case child)."""
+    _quiet_into(output)
+    _enter(conn, path, cwd)
+    _, error = _load(plugin_spec)
+    _send(conn, {"ok": True} if error is None else {"error": error},
+          f"plug-in {plugin_spec!r}: cannot report the load check")
+    os._exit(0)
+
+
+def _child_main(conn, plugin_spec, path: list[str], cwd: str, problem,
+                jobs: int = 1) -> None:
+    """Entry point of the child process: call the plug-in once, send one message.
+
+    ``plugin_spec`` is a spec string (imported here) or the plug-in callable itself.
+    Whatever the plug-in raises, returns or makes unprintable, the child sends one
+    one-line message and prints no traceback of its own."""
+    if jobs > 1:
+        _share_cores(jobs)
+    try:
+        import faulthandler
+        faulthandler.enable()  # a crashing plug-in prints where it crashed on stderr
+    except Exception:  # pragma: no cover - stderr unusable
+        pass
+    _enter(conn, path, cwd)
     from harness.solution import extract
 
-    try:
-        function = load_plugin(plugin_spec) if isinstance(plugin_spec, str) else plugin_spec
-    except Exception as exc:
-        conn.send({"error": str(exc)})
-        return
+    if isinstance(plugin_spec, str):
+        function, error = _load(plugin_spec)
+        if error is not None:
+            _send(conn, {"error": error}, "cannot send the load error")
+            return
+    else:
+        function = plugin_spec
     start = time.perf_counter()
     # Only while the plug-in runs: before and after, SIGTERM ends the child quietly.
     signal.signal(signal.SIGTERM, _stop_on_sigterm)
@@ -211,18 +320,15 @@ def _child_main(conn, plugin_spec, path: list[str], cwd: str, problem,
         raw, error = None, exc
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
     if error is not None:
-        conn.send({"error": describe_exception(error)})
+        _send(conn, {"error": describe_exception(error)}, "cannot send the plug-in's error")
         return
     seconds = time.perf_counter() - start
     try:
         message = {"solution": extract(raw), "seconds": seconds}
-    except Exception as exc:
-        message = {"error": f"unreadable return value: {exc}", "seconds": seconds}
-    try:
-        conn.send(message)
-    except Exception as exc:  # e.g. a value extract let through that cannot be pickled
-        conn.send({"error": f"cannot send the plug-in's result: {type(exc).__name__}: {exc}",
-                   "seconds": seconds})
+    except BaseException as exc:  # the returned object's own methods may raise anything
+        message = {"error": f"unreadable return value: {_message(exc)}", "seconds": seconds}
+    # e.g. a value extract let through that cannot be pickled
+    _send(conn, message, "cannot send the plug-in's result")
 
 
 # -------------------------------------------------------------------------- parent side
@@ -330,11 +436,113 @@ def judge_solution(case, problem, extracted: dict, tolerances, *, reference=None
                         **common)
 
 
-def _check_plugin(plugin) -> None:
-    """Fail early, in one line: a spec that cannot be loaded, or a callable that cannot
-    be sent to the child process (it must pickle)."""
+def _ended(exitcode: int | None) -> str:
+    """``"exit code N"`` or ``"signal NAME"`` for a child's ``exitcode``."""
+    if exitcode is None:
+        return "no exit code"
+    if exitcode < 0:
+        try:
+            return f"signal {signal.Signals(-exitcode).name}"
+        except ValueError:
+            return f"signal {-exitcode}"
+    return f"exit code {exitcode}"
+
+
+def _end_process(proc, grace: float) -> None:
+    """SIGTERM, ``grace`` seconds, SIGKILL (at once when ``grace`` is 0); then reap ``proc``."""
+    if proc.is_alive():
+        if grace > 0:
+            proc.terminate()
+            proc.join(grace)
+        if proc.is_alive():
+            proc.kill()
+    proc.join()
+    try:
+        proc.close()
+    except ValueError:  # pragma: no cover - still running (cannot happen after join)
+        pass
+
+
+def _await_load_check(proc, conn, spec: str, timeout: float) -> str | None:
+    """The load-check child's verdict: None (loaded) or the one-line reason it did not."""
+    deadline = time.monotonic() + timeout
+    while True:
+        if _interrupt.is_set():
+            raise KeyboardInterrupt
+        left = deadline - time.monotonic()
+        ready = multiprocessing.connection.wait([conn, proc.sentinel],
+                                                timeout=max(0.0, min(INTERRUPT_POLL, left)))
+        if conn in ready or conn.poll():
+            try:
+                reply = conn.recv()
+            except (EOFError, OSError):  # the child ended without a reply
+                reply = None
+            if isinstance(reply, dict):
+                return None if reply.get("ok") is True else str(reply.get("error"))
+            if reply is not None:
+                return f"plug-in {spec!r}: the load check sent an unexpected reply"
+        elif proc.sentinel not in ready:
+            if left <= 0:
+                return f"plug-in {spec!r}: importing it took longer than {timeout:g} s"
+            continue
+        proc.join(TERMINATE_GRACE)
+        return f"plug-in {spec!r}: importing it ended the process ({_ended(proc.exitcode)})"
+
+
+def _check_spec(spec: str, path: list[str], cwd: str, timeout: float) -> None:
+    """Load ``spec`` once in a short-lived child (the case children's context, sys.path
+    and cwd), within ``timeout`` seconds; raise PluginLoadError (one line) if it cannot
+    be loaded, takes too long, raises a BaseException or ends the process at import.
+    The harness process never imports the plug-in. What a failing import printed is
+    shown on stderr before the error is raised."""
+    import tempfile
+
+    ctx = _context()
+    fd, output = tempfile.mkstemp(prefix="scf-harness-load-check-", suffix=".txt")
+    os.close(fd)
+    reader, writer = ctx.Pipe(duplex=True)  # duplex: the child sees our end close
+    proc = ctx.Process(target=_load_check_main, name="scf-harness:load-check",
+                       args=(writer, spec, path, cwd, output), daemon=True)
+    try:
+        proc.start()
+        writer.close()
+        error = _await_load_check(proc, reader, spec, timeout)
+    finally:
+        writer.close()
+        if proc.pid is not None:  # started (an interrupt may land inside start)
+            _end_process(proc, TERMINATE_GRACE)
+        reader.close()
+        try:
+            printed = Path(output).read_text(encoding="utf-8", errors="replace")
+        except OSError:
+            printed = ""
+        try:
+            os.unlink(output)
+        except OSError:
+            pass
+    if error is not None:
+        if printed:
+            sys.stderr.write(printed if printed.endswith("\n") else printed + "\n")
+            sys.stderr.flush()
+        lines = [line for line in error.splitlines() if line.strip()]
+        raise PluginLoadError(lines[0] if lines else f"plug-in {spec!r}: cannot be loaded")
+
+
+def check_plugin(plugin, *, timeout: float = DEFAULT_TIMEOUT) -> None:
+    """Fail early, in one line (PluginLoadError), on a plug-in that cannot run.
+
+    A spec string is loaded in a short-lived child process exactly as each case child
+    loads it (same multiprocessing context, ``sys.path`` and current directory), within
+    ``timeout`` seconds: the harness process itself never imports the plug-in, so what
+    the module does at import (``os._exit``, ``os.chdir``, sleeping, raising
+    KeyboardInterrupt, printing) cannot touch the run. A callable must pickle (it is
+    sent to each child as it is). Ctrl-C while waiting raises KeyboardInterrupt."""
+    _check_plugin(plugin, list(sys.path), os.getcwd(), timeout)
+
+
+def _check_plugin(plugin, path: list[str], cwd: str, timeout: float) -> None:
     if isinstance(plugin, str):
-        load_plugin(plugin)
+        _check_spec(plugin, path, cwd, timeout)
         return
     if not callable(plugin):
         raise PluginLoadError(f"plug-in {plugin!r}: not callable "
@@ -358,19 +566,8 @@ def _append_jsonl(path: Path | None, result: CaseResult) -> None:
 
 
 def _stop(run: _Running, *, grace: float) -> None:
-    proc = run.process
-    if proc.is_alive():
-        if grace > 0:
-            proc.terminate()
-            proc.join(grace)
-        if proc.is_alive():
-            proc.kill()
-    proc.join()
+    _end_process(run.process, grace)
     run.conn.close()
-    try:
-        proc.close()
-    except ValueError:  # pragma: no cover - still running (cannot happen after join)
-        pass
 
 
 def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | None = None,
@@ -378,7 +575,8 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
               timeout: float = DEFAULT_TIMEOUT, jobs: int = 1, reference_dir=None,
               write_references: bool = False, results_path=None,
               on_start: Callable[[str], None] | None = None,
-              on_result: Callable[[CaseResult], None] | None = None) -> RunOutcome:
+              on_result: Callable[[CaseResult], None] | None = None,
+              plugin_checked: bool = False) -> RunOutcome:
     """Run ``plugin_spec`` on each case in a child process and check the results here.
 
     ``plugin_spec`` is a ``MODULE:FUNCTION`` / ``path.py:FUNCTION`` string (re-imported
@@ -400,17 +598,26 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     the references (for ``harness.certificate``).
 
     Raises ``PluginLoadError`` before running anything if the spec cannot be loaded
-    (or the callable does not pickle).
+    (or the callable does not pickle): :func:`check_plugin`, in a child process, with
+    ``timeout`` as its time limit; ``plugin_checked=True`` skips it (the caller ran
+    :func:`check_plugin` already). Ctrl-C during that check returns an empty,
+    interrupted outcome.
     """
     options = {"ao_convention": ao_convention, "stability": stability}
     cases = list(cases)
     _interrupt.clear()
     jobs = max(1, int(jobs))
-    _check_plugin(plugin_spec)  # fail early, in one line, on a bad spec
     path_now = list(sys.path)
     cwd = os.getcwd()
-    results_file = Path(results_path) if results_path is not None else None
     started = time.perf_counter()
+    if not plugin_checked:
+        try:  # fail early, in one line, on a bad spec (loaded in a child, not here)
+            _check_plugin(plugin_spec, path_now, cwd, timeout)
+        except KeyboardInterrupt:
+            _interrupt.clear()
+            return RunOutcome(cases=(), interrupted=True,
+                              seconds=time.perf_counter() - started)
+    results_file = Path(results_path) if results_path is not None else None
     finished: dict[int, CaseResult] = {}
     running: list[_Running] = []
     problems: dict[str, Any] = {}

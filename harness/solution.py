@@ -33,6 +33,21 @@ class Malformed:
     reason: str
 
 
+#: dtype kinds read as numbers: bool, signed and unsigned integer, float (complex is
+#: read as its real part when the imaginary part is zero). Others (datetime,
+#: timedelta, object, str, bytes, void) are refused for every numeric key.
+NUMERIC_KINDS = "biuf"
+
+
+def _dtype_problem(arr: np.ndarray) -> str | None:
+    """Why an array's dtype is not numeric (None if it is)."""
+    if arr.dtype == object:
+        return "is a ragged or non-numeric array"
+    if arr.dtype.kind not in NUMERIC_KINDS + "c":
+        return f"has non-numeric dtype {arr.dtype}"
+    return None
+
+
 def _read_array(key: str, value: Any):
     if isinstance(value, (str, bytes)):
         return Malformed(f"is a {type(value).__name__}, not a numeric array")
@@ -40,17 +55,52 @@ def _read_array(key: str, value: Any):
         arr = np.asarray(value)
     except Exception as exc:  # ragged lists, odd objects
         return Malformed(f"cannot be read as an array ({type(exc).__name__})")
-    if arr.dtype == object:
-        return Malformed("is a ragged or non-numeric array")
+    problem = _dtype_problem(arr)
+    if problem is not None:
+        return Malformed(problem)
     if arr.dtype.kind == "c":
         if np.any(np.abs(arr.imag) > 0):
             return Malformed("is complex; the harness handles real orbitals only")
         arr = arr.real
-    if arr.dtype.kind not in "biuf":
-        return Malformed(f"has non-numeric dtype {arr.dtype}")
     if arr.size > MAX_ARRAY_ELEMENTS:
         return Malformed(f"has {arr.size} elements, more than the limit {MAX_ARRAY_ELEMENTS}")
     return np.array(arr, dtype=np.float64)
+
+
+def _read_number(value: Any):
+    """One real number as a float, or :class:`Malformed`: the shared reader of every
+    numeric scalar (``energy``, the ``history`` fields).
+
+    A bool, a string (even ``"-1.1167"``: a string is not a number), a non-numeric
+    dtype (datetime, timedelta, object, str, void), a complex number with a non-zero
+    imaginary part, more than one element, or an int beyond the float range is refused.
+    """
+    if isinstance(value, (bool, np.bool_)):
+        return Malformed("must be a number, got bool")
+    if isinstance(value, (str, bytes)):
+        return Malformed(f"must be a number, got {type(value).__name__}")
+    if isinstance(value, int):  # Python ints are unbounded, floats are not
+        try:
+            return float(value)
+        except OverflowError:
+            return Malformed(f"must be a number within the float range, got an int of "
+                             f"{value.bit_length()} bits")
+    try:
+        arr = np.asarray(value)
+    except Exception:
+        return Malformed(f"must be a number, got {type(value).__name__}")
+    if arr.dtype == object:
+        return Malformed(f"must be a number, got {type(value).__name__}")
+    if arr.dtype.kind == "b":
+        return Malformed("must be a number, got bool")
+    if arr.dtype.kind == "c" and np.any(arr.imag != 0):
+        return Malformed(f"must be a real number, got {arr.dtype}")
+    read = _read_array("", arr)
+    if isinstance(read, Malformed):
+        return read
+    if read.size != 1:
+        return Malformed(f"must be a single number, got shape {read.shape}")
+    return float(read.reshape(()))
 
 
 def _read_scalar(key: str, value: Any):
@@ -59,19 +109,12 @@ def _read_scalar(key: str, value: Any):
             return bool(value)
         return Malformed(f"must be a bool, got {type(value).__name__}")
     if key == "iterations":
-        if isinstance(value, (int, np.integer)) and not isinstance(value, bool):
+        if isinstance(value, (int, np.integer)) and not isinstance(value, (bool, np.bool_)):
+            if value < 0:
+                return Malformed(f"must be a count (an int ≥ 0), got {int(value)}")
             return int(value)
         return Malformed(f"must be an int, got {type(value).__name__}")
-    # energy
-    if isinstance(value, (bool, np.bool_)):
-        return Malformed("must be a number, got bool")
-    try:
-        arr = np.asarray(value, dtype=np.float64)
-    except (TypeError, ValueError):
-        return Malformed(f"must be a number, got {type(value).__name__}")
-    if arr.size != 1:
-        return Malformed(f"must be a single number, got shape {arr.shape}")
-    return float(arr.reshape(()))
+    return _read_number(value)  # energy
 
 
 def _read_history(value: Any):
@@ -90,10 +133,10 @@ def _read_history(value: Any):
             if x is None:
                 row.append(float("nan"))
                 continue
-            try:
-                row.append(float(x))
-            except (TypeError, ValueError):
-                return Malformed(f"record {k}: '{field}' is not a number")
+            number = _read_number(x)
+            if isinstance(number, Malformed):
+                return Malformed(f"record {k}: '{field}' {number.reason}")
+            row.append(number)
         rows.append(row)
     return np.array(rows, dtype=np.float64).reshape(len(rows), 2)
 

@@ -398,13 +398,15 @@ def molecules(*, cases: Sequence[Case] | None = None, min_atoms: int = 1,
 
 
 def charge_multiplicity(numbers, *, max_charge: int = MAX_CHARGE,
-                        max_multiplicity: int = MAX_MULTIPLICITY
-                        ) -> st.SearchStrategy[tuple[int, int]]:
+                        max_multiplicity: int = MAX_MULTIPLICITY,
+                        nao: int | None = None) -> st.SearchStrategy[tuple[int, int]]:
     """(charge, multiplicity) pairs possible for nuclei with atomic numbers ``numbers``.
 
     charge in [−max_charge, max_charge] leaving at least one electron; N = ΣZ − charge;
-    multiplicity 2S + 1 ≤ min(max_multiplicity, N + 1) with N − 2S even. Shrinks toward
-    the neutral molecule in its lowest multiplicity (1 for even N, 2 for odd N).
+    multiplicity 2S + 1 ≤ min(max_multiplicity, N + 1) with N − 2S even. With ``nao``
+    (the number of basis functions) the basis must hold the electrons: N ≤ 2·nao and
+    n_α = (N + 2S)/2 ≤ nao. Shrinks toward the neutral molecule in its lowest
+    multiplicity (1 for even N, 2 for odd N).
     """
     try:
         z = [int(x) for x in numbers]
@@ -414,14 +416,20 @@ def charge_multiplicity(numbers, *, max_charge: int = MAX_CHARGE,
         raise InvalidArgument(f"numbers={numbers!r} must be atomic numbers in 1..118")
     _check_int("max_charge", max_charge, 0)
     _check_int("max_multiplicity", max_multiplicity, 1)
+    if nao is not None:
+        _check_int("nao", nao, 1)
     total = sum(z)
 
     def lowest(n: int) -> int:
         return 1 if n % 2 == 0 else 2
 
+    def highest(n: int) -> int:  # largest 2S + 1 for n electrons
+        top = min(max_multiplicity, n + 1)
+        return top if nao is None else min(top, 2 * nao - n + 1)
+
     # neutral first, then +1, −1, +2, ...: sampled_from shrinks toward the first entry
     charges = sorted((c for c in range(-max_charge, min(max_charge, total - 1) + 1)
-                      if lowest(total - c) <= min(max_multiplicity, total - c + 1)),
+                      if lowest(total - c) <= highest(total - c)),
                      key=lambda c: (abs(c), -c))
     if not charges:
         raise InvalidArgument(f"no charge in [-{max_charge}, {max_charge}] allows a "
@@ -431,7 +439,7 @@ def charge_multiplicity(numbers, *, max_charge: int = MAX_CHARGE,
     def pairs(draw):
         charge = draw(st.sampled_from(charges))
         n = total - charge
-        top = min(max_multiplicity, n + 1)
+        top = highest(n)
         multiplicity = lowest(n) + 2 * draw(st.integers(0, (top - lowest(n)) // 2))
         return charge, multiplicity
 

@@ -181,6 +181,8 @@ def _positive(name: str, value) -> float:
                           if n in FIXED or n in DERIVED or n in STATE_CHECK_NAMES)
         raise ToleranceError(f"unknown check {name!r} (known: {known})", field="--tol")
     try:
+        if isinstance(value, bool):  # True would silently become 1.0
+            raise TypeError
         x = float(value)
     except (TypeError, ValueError):
         raise ToleranceError(f"tolerance for {name} must be a number, got {value!r}",
@@ -202,6 +204,9 @@ class Tolerances:
     factor: float = CONVERGENCE_FACTOR
 
     def __post_init__(self):
+        if not isinstance(self.overrides, Mapping):
+            raise ToleranceError(f"overrides must map check names to tolerances, got "
+                                 f"{type(self.overrides).__name__}", field="overrides")
         checked = {name: _positive(name, value) for name, value in dict(self.overrides).items()}
         object.__setattr__(self, "overrides", checked)
 

@@ -8,7 +8,8 @@ exit3 (stderr line, then status 3), segv (SIGSEGV), sleep (60 s; --pidfile F wri
 no file), escape (solution.npz is a symbolic link to a file outside the scratch
 directory), object (an .npz with a pickled object array), text (a text file named
 .npz), two (both solution.npz and solution.json), noisy (300 characters of stderr on
-one line, then status 1), chatty (many stderr lines, then status 1).
+one line, then status 1), chatty (many stderr lines, then status 1), dir (--out is
+made a directory, not a file).
 """
 
 from __future__ import annotations
@@ -42,6 +43,9 @@ def main(argv) -> int:
             Path(argv[argv.index("--pidfile") + 1]).write_text(str(os.getpid()))
         print("bad_code: sleeping", file=sys.stderr, flush=True)
         time.sleep(60)
+        return 0
+    if mode == "dir":
+        out.mkdir()
         return 0
     if mode == "nothing":
         print("bad_code: done, wrote nothing")

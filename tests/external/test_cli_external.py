@@ -54,6 +54,7 @@ pytestmark = pytest.mark.skipif(not _wired(), reason="certify --command, check-r
 
 def cli(*args: str, cwd: Path, timeout: float = 180) -> subprocess.CompletedProcess:
     env = dict(os.environ)
+    env["PATH"] = os.pathsep.join(p for p in (str(Path(PY).parent), env.get("PATH")) if p)
     env["PYTHONPATH"] = os.pathsep.join(p for p in (str(REPO), env.get("PYTHONPATH")) if p)
     env["NO_COLOR"] = "1"
     return subprocess.run([PY, "-m", "harness", *args], cwd=cwd, env=env, capture_output=True,
@@ -100,6 +101,45 @@ class TestCertifyCommand:
                               "{problem}, {solution}, {geometry}, {basis}, {ao_order}, {dir})\n")
 
 
+    def test_readme_example_relative_script(self, tmp_path):
+        """README's own example, "python run_mine.py {problem}", run from the script's
+        folder: the script is found (relative to where the harness started), writes
+        solution.npz in its working directory (the scratch folder), and the case passes."""
+        sf.write_npz(tmp_path / "prepared.npz", sf.solved(H2))
+        (tmp_path / "run_mine.py").write_text(
+            "import json, shutil, sys\n"
+            "assert json.load(open(sys.argv[1]))['name'] == 'h2-sto-3g-rhf'\n"
+            f"shutil.copy({str(tmp_path / 'prepared.npz')!r}, 'solution.npz')\n")
+        run = cli("certify", "--command", "python run_mine.py {problem}", "--case", H2,
+                  cwd=tmp_path)
+        assert run.returncode == 0, run.stdout + run.stderr
+        assert "1 passed, 0 failed" in run.stdout
+        assert not (tmp_path / "solution.npz").exists()
+
+    @pytest.mark.parametrize("template", ['""', "'' {problem}"])
+    def test_command_without_program(self, tmp_path, template):
+        run = cli("certify", "--command", template, "--case", H2, cwd=tmp_path)
+        assert run.returncode == 2
+        assert run.stderr == (f"{ERROR}--command: the command {template!r} names no program "
+                              f"(its first word is empty)\n")
+
+    def test_scratch_is_a_file(self, tmp_path):
+        (tmp_path / "somefile").write_text("x")
+        run = cli("certify", "--command", lab_command(), "--case", H2, "--scratch", "somefile",
+                  cwd=tmp_path)
+        assert run.returncode == 2
+        assert run.stderr == (f"{ERROR}--scratch: {(tmp_path / 'somefile').resolve()} exists "
+                              f"and is not a directory\n")
+
+    def test_scratch_cannot_be_created(self, tmp_path):
+        (tmp_path / "somefile").write_text("x")
+        run = cli("certify", "--command", lab_command(), "--case", H2, "--scratch",
+                  "somefile/sub", cwd=tmp_path)
+        assert run.returncode == 2
+        assert run.stderr == (f"{ERROR}--scratch: cannot create the directory "
+                              f"{(tmp_path / 'somefile' / 'sub').resolve()} (Not a directory)\n")
+
+
 class TestCheckResult:
     def water_xyz(self):
         from harness.cases import load_catalogue
@@ -130,6 +170,18 @@ class TestCheckResult:
                   "--method", "rhf", cwd=tmp_path)
         assert run.returncode == 1
         assert "s.npz: not a readable .npz archive, truncated or corrupt (BadZipFile)" in run.stdout
+
+    def test_molden_without_energy_file(self, tmp_path):
+        """The missing energy file is named with the CLI's option, not only the Python
+        keyword."""
+        p = sf.problem("water-sto-3g-rhf")
+        sf.write_molden(tmp_path / "orb.molden", p.to_pyscf(), sf.solved("water-sto-3g-rhf"),
+                        energy=False)
+        run = cli("check-result", "orb.molden", "--geometry", self.water_xyz(), "--basis",
+                  "sto-3g", "--method", "rhf", cwd=tmp_path)
+        assert run.returncode == 1
+        assert ("orb.molden: energy: needs its energy in a JSON file: orb.json not found (give "
+                "the energy file: --energy-file, or energy_file= from Python)") in run.stdout
 
     def test_missing_file_is_a_usage_error(self, tmp_path):
         run = cli("check-result", "none.npz", "--geometry", self.water_xyz(), "--basis",

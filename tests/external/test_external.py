@@ -22,8 +22,8 @@ import solution_files as sf  # noqa: E402
 
 from harness.errors import HarnessError  # noqa: E402
 from harness.evaluate import evaluate  # noqa: E402
-from harness.external import (PROBLEM_FORMAT, CommandPlugin, ExternalCodeError,  # noqa: E402
-                              stderr_excerpt, write_inputs)
+from harness.external import (PROBLEM_FORMAT, CommandPlugin, CommandSetupError,  # noqa: E402
+                              ExternalCodeError, stderr_excerpt, write_inputs)
 from harness.solution import extract  # noqa: E402
 
 PY = sys.executable
@@ -132,6 +132,101 @@ class TestCommandPlugin:
                                f"--out {{solution}}")
         assert plugin.words[1] == str(sf.BAD_CODE)
         assert failed_checks("h2-sto-3g-rhf", plugin(sf.problem("h2-sto-3g-rhf"))) == []
+
+    @staticmethod
+    def start_dir_with_script(tmp_path, monkeypatch):
+        """A start directory holding run_mine.py (which checks that the problem.json it
+        is given relatively is the scratch directory's, then copies a prepared h2
+        solution to the path in its second argument); ``python`` on PATH is this venv's."""
+        start = tmp_path / "start"
+        start.mkdir()
+        prepared = sf.write_npz(start / "prepared.npz", sf.solved("h2-sto-3g-rhf"))
+        (start / "run_mine.py").write_text(
+            "import json, shutil, sys\n"
+            "doc = json.load(open(sys.argv[1]))\n"
+            "assert doc['name'] == 'h2-sto-3g-rhf', doc['name']\n"
+            f"shutil.copy({str(prepared)!r}, sys.argv[2])\n")
+        monkeypatch.chdir(start)
+        monkeypatch.setenv("PATH", os.pathsep.join([str(Path(PY).parent),
+                                                    os.environ.get("PATH", "")]))
+        return start
+
+    def test_bare_script_name_relative_to_start_dir(self, tmp_path, monkeypatch):
+        """"python run_mine.py {problem} {solution}" run from the script's directory: the
+        script is found although the command runs in the scratch directory; "python"
+        stays a bare name looked up on PATH."""
+        start = self.start_dir_with_script(tmp_path, monkeypatch)
+        plugin = CommandPlugin("python run_mine.py {problem} {solution}")
+        assert plugin.words[:2] == ["python", str(start / "run_mine.py")]
+        assert failed_checks("h2-sto-3g-rhf", plugin(sf.problem("h2-sto-3g-rhf"))) == []
+
+    def test_scratch_file_names_stay_relative(self, tmp_path, monkeypatch):
+        """problem.json and solution.npz in the template name the scratch directory's
+        files even when files of those names lie in the start directory."""
+        start = self.start_dir_with_script(tmp_path, monkeypatch)
+        (start / "problem.json").write_text('{"name": "another-case"}')
+        (start / "solution.npz").write_bytes(b"an old result")
+        plugin = CommandPlugin("python run_mine.py problem.json solution.npz")
+        assert plugin.words == ["python", str(start / "run_mine.py"), "problem.json",
+                                "solution.npz"]
+        assert failed_checks("h2-sto-3g-rhf", plugin(sf.problem("h2-sto-3g-rhf"))) == []
+        assert (start / "solution.npz").read_bytes() == b"an old result"
+
+    def test_program_in_start_dir_and_on_path(self, tmp_path, monkeypatch):
+        """A bare program name that is a file in the start directory runs that file; one
+        that is only a directory there (or absent) is looked up on PATH."""
+        start = self.start_dir_with_script(tmp_path, monkeypatch)
+        program = start / "my_scf"
+        program.write_text(f"#!{PY}\n" + (start / "run_mine.py").read_text())
+        program.chmod(0o755)
+        plugin = CommandPlugin("my_scf {problem} {solution}")
+        assert plugin.words[0] == str(program)
+        assert failed_checks("h2-sto-3g-rhf", plugin(sf.problem("h2-sto-3g-rhf"))) == []
+        (start / "python").mkdir()
+        assert CommandPlugin("python run_mine.py").words[0] == "python"
+        assert CommandPlugin("other_scf run_mine.py").words[0] == "other_scf"
+
+    @pytest.mark.parametrize("template", ['"" {problem}', "'  ' {problem}"])
+    def test_empty_program(self, template):
+        """A template whose first word is empty is refused at construction (before,
+        every case failed with "cannot start ''")."""
+        with pytest.raises(CommandSetupError) as err:
+            CommandPlugin(template)
+        assert str(err.value) == (f"--command: the command {template!r} names no program "
+                                  f"(its first word is empty)")
+        assert isinstance(err.value, HarnessError) and err.value.field == "--command"
+
+    def test_blank_command(self):
+        with pytest.raises(CommandSetupError) as err:
+            CommandPlugin("   ")
+        assert str(err.value) == "--command: the command is empty"
+
+    def test_scratch_root_not_a_directory(self, tmp_path):
+        """A scratch root that is a file, or lies under one, is refused at construction."""
+        (tmp_path / "somefile").write_text("x")
+        with pytest.raises(CommandSetupError) as err:
+            CommandPlugin(LAB, scratch_root=tmp_path / "somefile")
+        assert str(err.value) == f"--scratch: {tmp_path / 'somefile'} exists and is not a directory"
+        with pytest.raises(CommandSetupError) as err:
+            CommandPlugin(LAB, scratch_root=tmp_path / "somefile" / "sub")
+        assert str(err.value) == (f"--scratch: cannot create the directory "
+                                  f"{tmp_path / 'somefile' / 'sub'} (Not a directory)")
+        assert err.value.field == "--scratch"
+
+    def test_scratch_root_made_at_construction(self, tmp_path):
+        CommandPlugin(LAB, scratch_root=tmp_path / "a" / "b")
+        assert (tmp_path / "a" / "b").is_dir()
+
+    def test_scratch_root_gone_later(self, tmp_path):
+        """A scratch root replaced by a file after construction fails the case in one
+        line, not with a FileExistsError traceback."""
+        plugin = CommandPlugin(LAB, scratch_root=tmp_path / "s")
+        (tmp_path / "s").rmdir()
+        (tmp_path / "s").write_text("x")
+        with pytest.raises(ExternalCodeError) as err:
+            plugin(sf.problem("h2-sto-3g-rhf"))
+        assert str(err.value) == (f"cannot make a scratch directory in {tmp_path / 's'}: "
+                                  f"File exists | stderr: (empty)")
 
     def test_pickles(self):
         """The plug-in survives the trip to the runner's child process (multiprocessing

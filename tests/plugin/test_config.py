@@ -186,3 +186,11 @@ def test_reproduce_command_is_accepted_by_the_cli():
     args = build_parser().parse_args(shlex.split(s.reproduce_command("h2-sto-3g-rhf"))[1:])
     assert (args.plugin, args.case_names, args.tol, args.convergence, args.timeout) == (
         "m:f", ["h2-sto-3g-rhf"], ["stationarity=1e-05"], 1e-7, 30.0)
+
+
+def test_a_boolean_tolerance_is_refused(tmp_path):
+    """true in TOML is not a number: it must not become a tolerance of 1.0."""
+    path = write(tmp_path, "[tool.scf-harness]\ntolerances = { stationarity = true }\n")
+    with pytest.raises(ConfigError, match="tolerances: tolerance for stationarity must be a "
+                                          "number, got True"):
+        config.load_settings(path, {})

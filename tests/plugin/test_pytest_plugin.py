@@ -338,3 +338,52 @@ def test_items_run_under_xdist(project):
     for name in SMOKE:
         assert f"reproduce: scf-harness certify {PLANTED} --case {name}" in text
     assert WATER_FIRST in text
+
+
+def test_a_cases_file_case_named_like_a_catalogue_case_is_a_usage_error(project):
+    """It would shadow the catalogue case (and share its stored reference)."""
+    (project.path / "h2.xyz").write_text(H2_XYZ, encoding="utf-8")
+    (project.path / "mine.toml").write_text(OWN_CASES.replace("lab-h2-sto-3g-rhf",
+                                                              "h2-sto-3g-rhf"), encoding="utf-8")
+    result = project.runpytest("--scf-plugin", "mycode:solve", "--scf-cases-file", "mine.toml",
+                               "-p", "no:cacheprovider")
+    assert result.ret == pytest.ExitCode.USAGE_ERROR
+    assert (f"ERROR: scf-harness: {project.path / 'mine.toml'}: case 'h2-sto-3g-rhf': name: is "
+            "the name of a catalogue case; give yours another name") in "\n".join(result.errlines)
+
+
+MISUSE_TESTS = '''
+import pytest
+
+from harness.errors import CaseError
+
+
+def test_case_by_number(scf_case):
+    with pytest.raises(CaseError, match=r"^case: expected a case name \\(a string\\), got int 5$"):
+        scf_case(5)
+
+
+def test_reference_of_a_number(scf_reference):
+    with pytest.raises(CaseError, match=r"^scf_reference: expected a Case or a case name, "
+                                        r"got int$"):
+        scf_reference(3)
+
+
+def test_check_against_a_number(scf_check):
+    with pytest.raises(CaseError, match=r"^scf_check: expected a Case, a case name or a "
+                                        r"Problem, got int$"):
+        scf_check({}, 7)
+    with pytest.raises(CaseError, match=r"^scf_check: reference: expected a Reference "
+                                        r"\\(from scf_reference\\), got float$"):
+        scf_check({}, "h2-sto-3g-rhf", reference=-1.0)
+
+
+def test_check_of_nothing(scf_check):
+    with pytest.raises(AssertionError, match=r"^the solution is not readable: "):
+        scf_check(None, "h2-sto-3g-rhf")
+'''
+
+
+def test_fixtures_misused_give_one_clear_line(project):
+    project.makepyfile(test_misuse=MISUSE_TESTS)
+    project.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=4)

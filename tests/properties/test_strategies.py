@@ -183,11 +183,32 @@ def test_shrinks_to_the_smallest_basis():
 # --------------------------------------------------------------------------- charge, spin
 
 
+def nao_of(case) -> int:
+    return case.mole().nao
+
+
+def test_charge_multiplicity_respects_the_basis():
+    """H2 in STO-3G (2 functions): at most 4 electrons, and a triplet needs 2 of them
+    unpaired in 2 orbitals, so H2⁻ is a doublet only and H2²⁻ a singlet."""
+    allowed = {(0, 1), (0, 3), (1, 2), (-1, 2), (-2, 1)}
+    seen = set()
+
+    @given(hs.charge_multiplicity([1, 1], nao=2))
+    @settings(max_examples=100, database=None)
+    def collect(pair):
+        seen.add(pair)
+
+    collect()
+    assert seen <= allowed and len(seen) >= 3
+    with pytest.raises(InvalidArgument):
+        hs.charge_multiplicity([1], nao=0)
+
+
 @given(st.data())
 @SETTINGS
 def test_charge_multiplicity_pairs_are_possible(data):
     case = data.draw(st.sampled_from(STO3G))
-    charge, multiplicity = data.draw(hs.charge_multiplicity(case.numbers))
+    charge, multiplicity = data.draw(hs.charge_multiplicity(case.numbers, nao=nao_of(case)))
     n = sum(case.numbers) - charge
     assert abs(charge) <= hs.MAX_CHARGE and 1 <= multiplicity <= hs.MAX_MULTIPLICITY
     assert n >= 1 and (n - multiplicity + 1) % 2 == 0 and multiplicity - 1 <= n

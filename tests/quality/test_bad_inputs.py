@@ -187,6 +187,64 @@ def molden_without_orbitals(tmp):
     return copy_plugin(tmp / "m.molden", "solution.molden"), CASE
 
 
+def h5_with_fock(tmp, make_fock):
+    """The h2 solution as solution.h5 with ``fock`` made by ``make_fock(h5py, file)``."""
+    h5py = pytest.importorskip("h5py")
+    path = tmp / "s.h5"
+    with h5py.File(path, "w") as fh:
+        for key, value in good().items():
+            if key != "fock":
+                fh[key] = np.asarray(value)
+        make_fock(h5py, fh)
+    return copy_plugin(path, "solution.h5"), CASE
+
+
+def h5_dangling_soft_link(tmp):
+    return h5_with_fock(tmp, lambda h5py, fh: fh.__setitem__("fock",
+                                                             h5py.SoftLink("/nonexistent")))
+
+
+def h5_external_link(tmp):
+    return h5_with_fock(tmp, lambda h5py, fh: fh.__setitem__(
+        "fock", h5py.ExternalLink("/etc/passwd", "/fock")))
+
+
+def json_with(tmp, key, text):
+    """The h2 solution as solution.json with ``key``'s value written as raw ``text``."""
+    doc = {k: (np.asarray(v).tolist() if isinstance(v, np.ndarray) else v)
+           for k, v in good().items()}
+    doc[key] = "@VALUE@"
+    (tmp / "s.json").write_text(__import__("json").dumps(doc).replace('"@VALUE@"', text))
+    return copy_plugin(tmp / "s.json", "solution.json"), CASE
+
+
+def json_5000_digit_energy(tmp):
+    return json_with(tmp, "energy", "-" + "1" * 5000)
+
+
+def json_negative_iterations(tmp):
+    return json_with(tmp, "iterations", "-5")
+
+
+def npz_with(tmp, **changes):
+    result = good()
+    result.update(changes)
+    np.savez(tmp / "s.npz", **result)
+    return copy_plugin(tmp / "s.npz"), CASE
+
+
+def npz_string_energy(tmp):
+    return npz_with(tmp, energy=np.array("-1.1167"))
+
+
+def npz_datetime_energy(tmp):
+    return npz_with(tmp, energy=np.datetime64("2024-05-01"))
+
+
+def solution_is_a_directory(tmp):
+    return CommandPlugin(f"{PY} {sf.BAD_CODE} dir --out {{solution}}"), CASE
+
+
 def history_wrong_shape(tmp):
     result = good()
     result["history"] = np.zeros((4, 3))
@@ -257,6 +315,17 @@ CATALOGUE = [
                             "uses cartesian (6D/10F) functions", "solution.molden: "),
     (molden_without_orbitals, "not a Molden file with orbitals: no [GTO] section",
      "solution.molden: "),
+    (h5_dangling_soft_link, "fock: is a soft link to '/nonexistent', not a dataset (links are "
+                            "refused) | stderr: (empty)", "solution.h5: "),
+    (h5_external_link, "fock: is an external link to /etc/passwd:/fock, not a dataset (links "
+                       "are refused)", "solution.h5: "),
+    (json_5000_digit_energy, "energy: is an integer of 5000 digits, beyond the float range",
+     "solution.json: "),
+    (json_negative_iterations, "well-formed: 'iterations' must be a count (an int ≥ 0), got -5 "
+                               "(h2-sto-3g-rhf)", ""),
+    (npz_string_energy, "energy: has dtype <U7, not a number", "solution.npz: "),
+    (npz_datetime_energy, "energy: has dtype datetime64[D], not a number", "solution.npz: "),
+    (solution_is_a_directory, "is a directory | stderr: (empty)", "solution.npz: "),
     (history_wrong_shape, "history: must be an (n, 2) array of (energy, error), got shape "
                           "(4, 3)", "solution.npz: "),
     (escaping_symlink, "solution path solution.npz escapes the scratch directory (it resolves "
@@ -284,6 +353,99 @@ def test_bad_input_fails_the_case_in_one_line(tmp_path, build, reason, prefix):
 
 def test_catalogue_is_large_enough():
     assert len(CATALOGUE) >= 15
+
+
+def returning(**changes):
+    """A Python plug-in returning the h2 solution with ``changes``."""
+    def plugin(problem):
+        return dict(good(), **changes)
+    return plugin
+
+
+class Opaque:
+    """A number-like object of a user's own (it has __float__, but no numeric dtype)."""
+
+    def __float__(self):
+        return -1.1
+
+
+# Python plug-ins' return values: (changes, the one-line reason). The same defect in a
+# file is refused too (string_energy_json, npz_string_energy, npz_datetime_energy,
+# json_negative_iterations above): a value is read the same way whatever carried it.
+RETURNS = [
+    ({"energy": 10 ** 400}, "well-formed: 'energy' must be a number within the float range, "
+                            "got an int of 1329 bits (h2-sto-3g-rhf)"),
+    ({"energy": -10 ** 400}, "well-formed: 'energy' must be a number within the float range, "
+                             "got an int of 1329 bits (h2-sto-3g-rhf)"),
+    ({"energy": "-1.1167"}, "well-formed: 'energy' must be a number, got str (h2-sto-3g-rhf)"),
+    ({"energy": np.str_("-1.1167")}, "well-formed: 'energy' must be a number, got str_ "
+                                     "(h2-sto-3g-rhf)"),
+    ({"energy": np.array(["-1.1167"])}, "well-formed: 'energy' has non-numeric dtype <U7 "
+                                        "(h2-sto-3g-rhf)"),
+    ({"energy": np.datetime64("2024-05-01")}, "well-formed: 'energy' has non-numeric dtype "
+                                              "datetime64[D] (h2-sto-3g-rhf)"),
+    ({"energy": np.timedelta64(3, "s")}, "well-formed: 'energy' has non-numeric dtype "
+                                         "timedelta64[s] (h2-sto-3g-rhf)"),
+    ({"energy": np.void(b"\x00" * 8)}, "well-formed: 'energy' has non-numeric dtype |V8 "
+                                       "(h2-sto-3g-rhf)"),
+    ({"energy": Opaque()}, "well-formed: 'energy' must be a number, got Opaque (h2-sto-3g-rhf)"),
+    ({"energy": np.array(True)}, "well-formed: 'energy' must be a number, got bool "
+                                 "(h2-sto-3g-rhf)"),
+    ({"energy": complex(-1.1, 1e-3)}, "well-formed: 'energy' must be a real number, got "
+                                      "complex128 (h2-sto-3g-rhf)"),
+    ({"iterations": -5}, "well-formed: 'iterations' must be a count (an int ≥ 0), got -5 "
+                         "(h2-sto-3g-rhf)"),
+    ({"iterations": np.int32(-1)}, "well-formed: 'iterations' must be a count (an int ≥ 0), "
+                                   "got -1 (h2-sto-3g-rhf)"),
+    ({"history": [{"energy": "-1.1", "error": 1e-3}]},
+     "well-formed: 'history' record 0: 'energy' must be a number, got str (h2-sto-3g-rhf)"),
+    ({"history": [{"energy": -1.1, "error": 10 ** 400}]},
+     "well-formed: 'history' record 0: 'error' must be a number within the float range, got "
+     "an int of 1329 bits (h2-sto-3g-rhf)"),
+    ({"history": [{"energy": np.datetime64("2024"), "error": 1e-3}]},
+     "well-formed: 'history' record 0: 'energy' has non-numeric dtype datetime64[Y] "
+     "(h2-sto-3g-rhf)"),
+    ({"fock": np.full((2, 2), np.timedelta64(1, "s"))},
+     "well-formed: 'fock' has non-numeric dtype timedelta64[s] (h2-sto-3g-rhf)"),
+]
+
+
+@pytest.mark.parametrize("changes, reason", RETURNS, ids=[
+    f"{next(iter(c))}={type(next(iter(c.values()))).__name__}-{k}"
+    for k, (c, _) in enumerate(RETURNS)])
+def test_bad_return_value_names_its_key(changes, reason):
+    """Every bad value a Python plug-in returns fails the case with its key named."""
+    assert outcome(returning(**changes)) == reason
+
+
+def test_numbers_of_numeric_kinds_still_read():
+    """The counterpart: numpy scalars, 1-element arrays, zero-imaginary complex numbers
+    and integers within the float range are energies; 0 is an iteration count."""
+    for energy, value in ((np.float32(-1.25), -1.25), (np.int64(-1), -1.0), ([-1.25], -1.25),
+                          (np.array([[-1.25]]), -1.25), (complex(-1.25, 0.0), -1.25),
+                          (-(10 ** 300), -1e300)):
+        assert extract({"energy": energy})["energy"] == value
+    assert extract({"iterations": 0})["iterations"] == 0
+    assert extract({"iterations": np.uint8(7)})["iterations"] == 7
+
+
+def test_huge_energy_through_the_runner(tmp_path):
+    """Through the runner (the plug-in in its own process), energy = 10**400 fails the
+    well-formed check with the key named, not as an unreadable return value."""
+    from harness.cases import load_catalogue
+    from harness.runner import run_cases
+    from harness.tolerances import Tolerances
+
+    plugin = tmp_path / "huge.py"
+    plugin.write_text("from harness.example_scf import solve\n\n\n"
+                      "def run(problem):\n"
+                      "    return dict(solve(problem), energy=10 ** 400)\n")
+    result = run_cases([load_catalogue().case(CASE)], f"{plugin}:run",
+                       tolerances=Tolerances(), timeout=60.0).cases[0]
+    assert result.error is None and not result.passed
+    assert result.failures[0].message == ("well-formed: 'energy' must be a number within the "
+                                          "float range, got an int of 1329 bits "
+                                          "(h2-sto-3g-rhf)")
 
 
 def test_a_correct_file_passes(tmp_path):

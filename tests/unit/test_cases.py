@@ -181,6 +181,11 @@ def test_read_xyz_angstrom_and_bohr(tmp_path):
     ("1\n", "line 2: missing the comment line"),
     ("1\nunits=furlong\nO 0 0 0\n",
      "line 2: unknown unit 'furlong' (use units=bohr or units=angstrom)"),
+    ("3\nc\nO 0 0 0\nH 0 0 0.96\nH 0 0 0.96\n",
+     "lines 4 and 5: atoms 2 and 3 are 0 bohr apart, closer than 0.1 bohr (one atom given "
+     "twice?)"),
+    ("1\nc\nHydrogen-with-a-very-long-name-indeed 0 0 0\n",
+     "line 3: unknown element symbol 'Hydrogen-with-a-very-long-name'…"),
 ])
 def test_read_xyz_errors(tmp_path, text, message):
     path = _write(tmp_path / "bad.xyz", text)
@@ -188,6 +193,14 @@ def test_read_xyz_errors(tmp_path, text, message):
         read_xyz(path)
     assert str(err.value) == f"{path}: {message}"
     assert "\n" not in str(err.value)
+
+
+def test_read_xyz_latin1_comment_is_read(tmp_path):
+    """A comment line in Latin-1 (not UTF-8) does not stop the file being read."""
+    path = tmp_path / "lat.xyz"
+    path.write_bytes(b"2\ncaf\xe9 geometry\nH 0 0 0\nH 0 0 0.74\n")
+    numbers, coordinates, comment = read_xyz(path)
+    assert numbers == (1, 1) and comment.startswith("caf")
 
 
 def test_read_xyz_missing_file(tmp_path):
@@ -265,12 +278,52 @@ def _one_case(**fields) -> str:
     ({"basis_set": '"sto-3g"'}, "case 'x': basis_set: unknown key (did you mean 'basis'?)"),
     ({"name": '"My Case"'}, "case 'My Case': name: 'My Case' must be lower-case letters, "
                             "digits and + . _ - (it becomes a file name)"),
+    ({"name": '"' + "a" * 81 + '"'}, f"case '{'a' * 81}': name: 81 characters, at most 80 (it "
+                                     "becomes a file name)"),
+    ({"basis": '""'}, "case 'x': basis: must name a basis pyscf knows, got ''"),
+    ({"charge": "-100000"}, "case 'x': charge: must lie in −1000..1000, got -100000"),
+    ({"charge": "-20", "multiplicity": "2"},
+     "case 'x': charge: charge -20 gives 29 electrons; sto-3g holds at most 12 (6 functions)"),
 ])
 def test_suite_file_field_errors(suite_dir, fields, message):
     path = _write(suite_dir / "bad.toml", _one_case(**fields))
     with pytest.raises(CaseError) as err:
         load_suite_file(path)
     assert str(err.value) == f"{path}: {message}"
+
+
+def test_user_suite_may_not_reuse_a_catalogue_name(suite_dir):
+    """A user case named like a catalogue case would share (and could overwrite) its
+    stored reference."""
+    from harness.cases import load_user_suite
+
+    path = _write(suite_dir / "clash.toml", _one_case(name='"oh-sto-3g-uhf"'))
+    with pytest.raises(CaseError) as err:
+        load_user_suite(path)
+    assert str(err.value) == (f"{path}: case 'oh-sto-3g-uhf': name: is the name of a "
+                              "catalogue case; give yours another name")
+    assert [c.name for c in load_user_suite(_write(suite_dir / "ok.toml", _one_case()))] == [
+        "x"]
+
+
+def test_problem_refuses_coincident_nuclei_and_far_away_atoms():
+    with pytest.raises(CaseError, match=r"^h2: coordinates: atoms 1 and 2 coincide \(0 bohr "
+                                        r"apart\)$"):
+        Problem.create(name="h2", numbers=[1, 1], coordinates=[(0, 0, 1), (0, 0, 1)],
+                       basis="sto-3g")
+    with pytest.raises(CaseError, match=r"^h2: coordinates: \|x\| = 1e\+200 bohr exceeds "
+                                        r"10000 bohr"):
+        Problem.create(name="h2", numbers=[1, 1], coordinates=[(0, 0, 0), (0, 0, 1e200)],
+                       basis="sto-3g")
+
+
+def test_suite_file_geometry_errors_name_the_case(suite_dir):
+    _write(suite_dir / "geo" / "bad.xyz", "2\nc\nH 0 0 0\nQ 0 0 1\n")
+    path = _write(suite_dir / "bad.toml", _one_case(geometry='"geo/bad.xyz"'))
+    with pytest.raises(CaseError) as err:
+        load_suite_file(path)
+    assert str(err.value) == (f"{path}: case 'x': geometry: {suite_dir / 'geo' / 'bad.xyz'}: "
+                              "line 4: unknown element symbol 'Q'")
 
 
 def test_suite_file_missing_geometry(suite_dir):

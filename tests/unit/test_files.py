@@ -150,7 +150,125 @@ class TestErrors:
         with pytest.raises(SolutionFileError) as err:
             read_solution(path, problem=p)
         assert str(err.value) == ("s.molden: energy: needs its energy in a JSON file: s.json "
-                                  "not found (give energy_file=...)")
+                                  "not found (give the energy file: --energy-file, or "
+                                  "energy_file= from Python)")
+
+    def test_molden_energy_file_is_a_directory(self, tmp_path):
+        """A directory given as the energy file is named as one, not as missing."""
+        p = sf.problem("h2-sto-3g-rhf")
+        path = sf.write_molden(tmp_path / "s.molden", p.to_pyscf(), sf.solved("h2-sto-3g-rhf"),
+                               energy=False)
+        (tmp_path / "numbers.json").mkdir()
+        with pytest.raises(SolutionFileError) as err:
+            read_solution(path, problem=p, energy_file=tmp_path / "numbers.json")
+        assert str(err.value) == "numbers.json: is a directory"
+        (tmp_path / "s.json").mkdir()  # the default energy file, a directory too
+        with pytest.raises(SolutionFileError) as err:
+            read_solution(path, problem=p)
+        assert str(err.value) == "s.json: is a directory"
+
+    @pytest.mark.parametrize("suffix", [".npz", ".json", ".h5", ".molden"])
+    def test_directory_in_place_of_a_solution_file(self, tmp_path, suffix):
+        (tmp_path / f"s{suffix}").mkdir()
+        with pytest.raises(SolutionFileError) as err:
+            read_solution(tmp_path / f"s{suffix}", problem=sf.problem("h2-sto-3g-rhf"))
+        assert str(err.value) == f"s{suffix}: is a directory"
+
+    @staticmethod
+    def h5_with_fock(path, make_fock):
+        """The h2 solution as HDF5, its ``fock`` made by ``make_fock(file)``."""
+        h5py = pytest.importorskip("h5py")
+        with h5py.File(path, "w") as fh:
+            for k, v in sf.solved("h2-sto-3g-rhf").items():
+                if k != "fock":
+                    fh[k] = np.asarray(v)
+            make_fock(h5py, fh)
+        return path
+
+    @pytest.mark.parametrize("make_fock, message", [
+        (lambda h5py, fh: fh.__setitem__("fock", h5py.SoftLink("/nonexistent")),
+         "fock: is a soft link to '/nonexistent', not a dataset (links are refused)"),
+        (lambda h5py, fh: fh.__setitem__("fock", h5py.SoftLink("/overlap")),
+         "fock: is a soft link to '/overlap', not a dataset (links are refused)"),
+        (lambda h5py, fh: fh.__setitem__("fock", h5py.ExternalLink("other.h5", "/fock")),
+         "fock: is an external link to other.h5:/fock, not a dataset (links are refused)"),
+        (lambda h5py, fh: fh.create_group("fock"), "fock: is a group, not a dataset"),
+    ], ids=["dangling-soft-link", "soft-link", "external-link", "group"])
+    def test_h5_links_are_refused(self, tmp_path, make_fock, message):
+        """A key that is a link (which may point outside the file) is refused unread,
+        even when it resolves to a valid dataset of the same file."""
+        path = self.h5_with_fock(tmp_path / "s.h5", make_fock)
+        with pytest.raises(SolutionFileError) as err:
+            read_solution(path)
+        assert str(err.value) == f"s.h5: {message}"
+        assert err.value.key == "fock"
+
+    def test_h5_data_outside_the_file_is_refused(self, tmp_path):
+        """A dataset whose bytes live in another file (external storage) is refused,
+        and so is a virtual dataset mapped from another file."""
+        fock = np.asarray(sf.solved("h2-sto-3g-rhf")["fock"])
+        (tmp_path / "raw.bin").write_bytes(fock.astype("<f8").tobytes())
+        path = self.h5_with_fock(tmp_path / "ext.h5", lambda h5py, fh: fh.create_dataset(
+            "fock", shape=fock.shape, dtype="<f8", external=[("raw.bin", 0, fock.nbytes)]))
+        with pytest.raises(SolutionFileError) as err:
+            read_solution(path)
+        assert str(err.value) == ("ext.h5: fock: keeps its data in an external file, not in "
+                                  "this one (refused)")
+
+        def virtual(h5py, fh):
+            layout = h5py.VirtualLayout(shape=fock.shape, dtype="<f8")
+            layout[...] = h5py.VirtualSource(str(tmp_path / "other.h5"), "fock", shape=fock.shape)
+            fh.create_virtual_dataset("fock", layout)
+
+        self.h5_with_fock(tmp_path / "other.h5", lambda h5py, fh: fh.create_dataset("fock",
+                                                                                    data=fock))
+        path = self.h5_with_fock(tmp_path / "virtual.h5", virtual)
+        with pytest.raises(SolutionFileError) as err:
+            read_solution(path)
+        assert str(err.value) == ("virtual.h5: fock: is a virtual dataset mapped from other "
+                                  "files (refused)")
+
+    @pytest.mark.parametrize("key, digits, message", [
+        ("energy", 5000, "energy: is an integer of 5000 digits, beyond the float range"),
+        ("energy", 320, "energy: is an integer of 320 digits, beyond the float range"),
+        ("iterations", 5000, "iterations: is an integer of 5000 digits, beyond the float "
+                             "range"),
+        ("fock", 5000, "fock: element [1][0] is an integer of 5000 digits, beyond the float "
+                       "range"),
+        ("history", 5000, "history: record 0: 'error' is an integer of 5000 digits, beyond "
+                          "the float range"),
+    ])
+    def test_json_integer_beyond_the_float_range(self, tmp_path, key, digits, message):
+        """A JSON integer too long for Python's int conversion (> 4300 digits) or for a
+        float64 (> 1.8e308) is named with its key, not reported as a ValueError."""
+        result = dict(sf.solved("h2-sto-3g-rhf"))
+        huge = "7" * digits
+        if key == "fock":
+            text = json.dumps(dict(result, fock=[[1.0, 2.0], ["HUGE", 3.0]]),
+                              default=lambda a: a.tolist())
+        elif key == "history":
+            text = json.dumps(dict(result, history=[[-1.0, "HUGE"]]), default=lambda a: a.tolist())
+        else:
+            text = json.dumps(dict(result, **{key: "HUGE"}), default=lambda a: a.tolist())
+        (tmp_path / "s.json").write_text(text.replace('"HUGE"', huge))
+        with pytest.raises(SolutionFileError) as err:
+            read_solution(tmp_path / "s.json")
+        assert str(err.value) == f"s.json: {message}"
+
+    def test_json_largest_integers_still_read(self, tmp_path):
+        """The limit is the float64 range itself: the largest float64 written as a
+        309-digit integer is read as that float, one digit more is refused."""
+        import sys as _sys
+
+        result = dict(sf.solved("h2-sto-3g-rhf"))
+        top = str(int(_sys.float_info.max))
+        assert len(top) == 309
+        text = json.dumps(dict(result, energy="TOP"), default=lambda a: a.tolist())
+        (tmp_path / "s.json").write_text(text.replace('"TOP"', "-" + top))
+        assert read_solution(tmp_path / "s.json")["energy"] == -_sys.float_info.max
+        (tmp_path / "s.json").write_text(text.replace('"TOP"', "-" + top + "0"))
+        with pytest.raises(SolutionFileError):
+            read_solution(tmp_path / "s.json")
 
     def test_molden_other_geometry(self, tmp_path):
         """A Molden file for another geometry names the atom and the distance (bohr)."""

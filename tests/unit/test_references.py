@@ -189,7 +189,7 @@ def test_reference_for_build_and_verify(catalogue, tmp_path):
     ref, source = refs.reference_for(case, tmp_path)
     assert source == "computed" and not (tmp_path / f"{case.name}.json").exists()
     ref, source = refs.reference_for(case, tmp_path, write=True)
-    assert source == "computed" and (tmp_path / f"{case.name}.json").exists()
+    assert source == "written" and (tmp_path / f"{case.name}.json").exists()
     assert refs.reference_for(case, tmp_path)[1] == "stored"
     other = catalogue.case("heh-cation-sto-3g-rhf")
     done = refs.build([case, other], tmp_path)

@@ -131,7 +131,11 @@ class TestProgress:
     def test_computed_reference_is_announced(self):
         """A reference computed during the run is mentioned on the progress line."""
         case = CaseResult(**{**passing_case().__dict__, "reference_source": "computed"})
-        assert "reference computed with pyscf" in report.progress_line(case).plain
+        assert report.progress_line(case).plain.endswith(
+            "(reference computed with pyscf now, not stored)")
+        case = CaseResult(**{**passing_case().__dict__, "reference_source": "written"})
+        assert report.progress_line(case).plain.endswith(
+            "(reference computed with pyscf now and stored)")
 
 
 class FakeTTY(io.StringIO):
@@ -197,3 +201,13 @@ class TestJson:
             report.write_json(path, {"bad": object()})
         assert path.read_text() == '{"old": true}'
         assert [p.name for p in tmp_path.iterdir()] == ["results.json"]
+
+
+def test_json_report_is_strict_json(tmp_path):
+    """NaN and infinities (a value the checks could not compute) become null: JSON has no
+    NaN, and strict readers reject the bare token."""
+    path = report.write_json(tmp_path / "r.json", {"a": float("nan"), "b": [1.0, float("inf")],
+                                                   "c": {"d": -float("inf"), "e": 2}})
+    text = path.read_text()
+    assert "NaN" not in text and "Infinity" not in text
+    assert json.loads(text) == {"a": None, "b": [1.0, None], "c": {"d": None, "e": 2}}

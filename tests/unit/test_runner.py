@@ -10,6 +10,8 @@ from __future__ import annotations
 import dataclasses
 import json
 import multiprocessing
+import os
+import sys
 import time
 from pathlib import Path
 
@@ -330,3 +332,170 @@ class TestRunOutcome:
         out = run("constant")
         assert out.passed
         assert not dataclasses.replace(out, interrupted=True).passed
+
+
+FOLDER = PLUGINS.parent
+UNPRINTABLE = FOLDER / "unprintable.py"
+
+
+def imported_here(stem: str) -> bool:
+    """True when the module file ``<stem>.py`` of tests/cli/plugins is loaded in this
+    (the harness's) process."""
+    path = str(FOLDER / f"{stem}.py")
+    return any(getattr(m, "__file__", None) == path for m in list(sys.modules.values()))
+
+
+def check_fails(stem: str, **kw) -> tuple[str, str]:
+    """run_cases on ``<stem>.py:solve`` must raise PluginLoadError, start no case, leave
+    this process's cwd alone and never import the module here; returns (error, spec)."""
+    target = f"{FOLDER / stem}.py:solve"
+    cwd = os.getcwd()
+    kw.setdefault("timeout", 30.0)
+    with pytest.raises(PluginLoadError) as info:
+        runner.run_cases([FakeCase("h2-sto-3g-rhf")], target, tolerances=Tolerances(),
+                         on_start=lambda name: pytest.fail(f"case {name} started"), **kw)
+    assert os.getcwd() == cwd
+    assert not imported_here(stem)
+    assert multiprocessing.active_children() == []
+    return str(info.value), target
+
+
+class TestLoadCheckInAChild:
+    """The early load check imports a spec in a child process, never in the harness's."""
+
+    def test_os_exit_at_import_is_a_load_error(self, capsys):
+        """os._exit(0) at import: one line naming the exit code; what it printed is shown
+        on stderr (the harness itself goes on and raises)."""
+        error, target = check_fails("import_exits")
+        assert error == f"plug-in '{target}': importing it ended the process (exit code 0)"
+        assert capsys.readouterr() == ("", "import_exits: leaving now\n")
+
+    def test_signal_at_import_is_named(self):
+        error, target = check_fails("import_killed")
+        assert error == f"plug-in '{target}': importing it ended the process (signal SIGKILL)"
+
+    def test_slow_import_is_bounded_by_the_timeout(self):
+        """A module sleeping 1000 s at import: the run's timeout (1 s) applies."""
+        start = time.monotonic()
+        error, target = check_fails("import_sleeps", timeout=1.0)
+        assert error == f"plug-in '{target}': importing it took longer than 1 s"
+        assert time.monotonic() - start < 8
+
+    def test_keyboard_interrupt_at_import_is_a_load_error(self):
+        """KeyboardInterrupt raised at import is not an interrupted run."""
+        error, target = check_fails("import_interrupts")
+        assert error == f"plug-in '{target}': importing it raised KeyboardInterrupt"
+
+    def test_chdir_at_import_moves_neither_the_harness_nor_the_children(self, monkeypatch):
+        """A module calling os.chdir at import, given by a relative spec: the harness's
+        cwd stays, and each case child re-imports the spec from it (both cases pass)."""
+        monkeypatch.chdir(FOLDER)
+        out = runner.run_cases([FakeCase("h2-sto-3g-rhf"), FakeCase("h2-again")],
+                               "import_chdirs.py:solve", tolerances=Tolerances(),
+                               timeout=60.0)
+        assert os.getcwd() == str(FOLDER)
+        assert [c.error for c in out.cases] == [None, None]
+        assert all(c.passed for c in out.cases)
+        assert not imported_here("import_chdirs")
+
+    def test_output_at_import_is_not_printed_by_the_harness(self, capsys):
+        """A module printing at import: the harness process prints nothing of it (the
+        case child prints it once, on its own output); the case passes."""
+        cwd = os.getcwd()
+        out = runner.run_cases([FakeCase("h2-sto-3g-rhf")], f"{FOLDER}/import_prints.py:solve",
+                               tolerances=Tolerances(), timeout=30.0)
+        assert out.passed and os.getcwd() == cwd
+        assert capsys.readouterr() == ("", "")
+        assert not imported_here("import_prints")
+
+    def test_ordinary_bad_specs_keep_their_messages(self):
+        """Missing attribute, missing file, not callable: the load errors as before."""
+        cwd = os.getcwd()
+        for function, message in [
+                ("nosuch", f"{PLUGINS} has no attribute 'nosuch'"),
+                ("NOT_CALLABLE", f"{PLUGINS}:NOT_CALLABLE is not callable (it is int)")]:
+            with pytest.raises(PluginLoadError) as info:
+                runner.run_cases([FakeCase("x")], spec(function), tolerances=Tolerances())
+            assert str(info.value) == f"plug-in '{spec(function)}': {message}"
+        with pytest.raises(PluginLoadError) as info:
+            runner.check_plugin("no/such/file.py:solve")
+        assert str(info.value) == ("plug-in 'no/such/file.py:solve': file not found: "
+                                   "no/such/file.py")
+        assert os.getcwd() == cwd
+
+    def test_check_plugin_then_run_without_a_second_check(self):
+        """check_plugin passes a good spec; plugin_checked=True skips the check, and a
+        load failure in the case child is that case's one-line error (no traceback)."""
+        runner.check_plugin(spec("constant"), timeout=30.0)
+        target = f"{FOLDER}/import_interrupts.py:solve"
+        out = runner.run_cases([FakeCase("h2-sto-3g-rhf")], target, tolerances=Tolerances(),
+                               timeout=30.0, plugin_checked=True)
+        assert out.cases[0].error == (f"plug-in '{target}': importing it raised "
+                                      f"KeyboardInterrupt")
+
+    def test_interrupt_during_the_check_is_an_interrupted_run(self):
+        """Ctrl-C (the interrupt request) while a slow import is checked: an empty,
+        interrupted outcome, promptly, the check child gone."""
+        import threading
+
+        timer = threading.Timer(0.5, runner.request_interrupt)
+        timer.start()
+        start = time.monotonic()
+        out = runner.run_cases([FakeCase("x")], f"{FOLDER}/import_sleeps.py:solve",
+                               tolerances=Tolerances(), timeout=60.0)
+        timer.join()
+        assert out.interrupted and out.cases == ()
+        assert time.monotonic() - start < 8
+        assert multiprocessing.active_children() == []
+
+
+class Unsendable:
+    """Cannot be pickled: its ``__reduce__`` raises an exception that cannot be printed."""
+
+    def __reduce__(self):
+        sys.path.insert(0, str(FOLDER))
+        try:
+            from unprintable import Unprintable
+        finally:
+            sys.path.remove(str(FOLDER))
+        raise Unprintable("hidden")
+
+
+class TestUnprintableExceptions:
+    """Plug-in exceptions whose __str__ raises are reported in one line, not a traceback."""
+
+    def test_unprintable_exception_is_named_with_its_line(self):
+        cwd = os.getcwd()
+        out = runner.run_cases([FakeCase("h2-sto-3g-rhf")],
+                               f"{UNPRINTABLE}:raises_unprintable", tolerances=Tolerances(),
+                               timeout=30.0)
+        line = line_of('raise Unprintable("hidden")', UNPRINTABLE)
+        assert out.cases[0].error == (f"Unprintable: <unprintable message> "
+                                      f"(at {UNPRINTABLE}:{line} in raises_unprintable)")
+        assert os.getcwd() == cwd
+
+    def test_unprintable_exception_reading_the_return_value(self):
+        cwd = os.getcwd()
+        out = runner.run_cases([FakeCase("h2-sto-3g-rhf")], f"{UNPRINTABLE}:returns_booby",
+                               tolerances=Tolerances(), timeout=30.0)
+        assert out.cases[0].error == ("unreadable return value: Unprintable: "
+                                      "<unprintable message>")
+        assert os.getcwd() == cwd
+
+    def test_describe_exception_without_traceback(self):
+        class Mute(Exception):
+            def __str__(self):
+                raise ValueError("no")
+
+        assert runner.describe_exception(Mute()) == "Mute: <unprintable message>"
+        assert runner.describe_exception(ValueError("a\nb")) == "ValueError: a"
+
+    def test_send_falls_back_to_a_one_line_error(self):
+        """A message that does not pickle is replaced by an error naming why."""
+        mine, theirs = multiprocessing.Pipe()
+        runner._send(mine, {"solution": {"energy": Unsendable()}, "seconds": 0.5},
+                     "cannot send the plug-in's result")
+        assert theirs.recv() == {"error": "cannot send the plug-in's result: Unprintable: "
+                                          "<unprintable message>", "seconds": 0.5}
+        mine.close()
+        theirs.close()
