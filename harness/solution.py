@@ -8,6 +8,7 @@ numpy arrays or nested lists; unrestricted quantities carry a leading axis of 2
 from __future__ import annotations
 
 import dataclasses
+import difflib
 from typing import Any, Mapping
 
 import numpy as np
@@ -149,7 +150,10 @@ def extract(raw: Any) -> dict[str, Any]:
     """Read the known keys from a plug-in's return value into plain Python data.
 
     Returns ``{key: value}`` for the keys present: float64 arrays, floats, bools, ints,
-    or :class:`Malformed` markers. Unknown keys are ignored. The result pickles, so it
+    or :class:`Malformed` markers. Unknown keys are ignored, except a near miss of a
+    contract key that is itself absent (``"Fock"``, ``"densty"``, ``"occupation"``:
+    :func:`near_miss`): that key is marked Malformed, so the well-formed check names it
+    instead of the checks on it silently disappearing. The result pickles, so it
     can cross from the plug-in's process to the harness. Raises ``TypeError`` if ``raw``
     is neither a mapping nor an object with any of the known attributes.
     """
@@ -176,4 +180,28 @@ def extract(raw: Any) -> dict[str, Any]:
                 out[key] = Malformed(f"callable raised {type(exc).__name__}: {exc}")
         else:
             out[key] = _read_array(key, value)
+    if isinstance(raw, Mapping):
+        for given in raw:
+            key = near_miss(given)
+            if key is not None and key not in raw and key not in out:
+                out[key] = Malformed(f"not given, but {given!r} was: did you mean {key!r}? "
+                                     f"(keys are exact and lower-case)")
     return out
+
+
+#: A returned key this similar to a contract key (difflib ratio) is taken for a typo of
+#: it: "occupation"/"occupations" 0.95, "orbital_energy"/"orbital_energies" 0.87, while
+#: unrelated extras such as "mo_energy"/"energy" (0.80) stay ignored.
+NEAR_MISS = 0.85
+
+
+def near_miss(given) -> str | None:
+    """The contract key that ``given`` (a returned key that is not one) was probably
+    meant to be: equal ignoring case, or difflib-similar by at least NEAR_MISS."""
+    if not isinstance(given, str) or given in KNOWN_KEYS:
+        return None
+    for key in KNOWN_KEYS:
+        if given.strip().lower() == key:
+            return key
+    close = difflib.get_close_matches(given, KNOWN_KEYS, n=1, cutoff=NEAR_MISS)
+    return close[0] if close else None

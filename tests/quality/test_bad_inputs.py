@@ -418,6 +418,31 @@ def test_bad_return_value_names_its_key(changes, reason):
     assert outcome(returning(**changes)) == reason
 
 
+def renamed(old: str, new: str):
+    """A Python plug-in returning the h2 solution with key ``old`` renamed ``new``."""
+    def plugin(problem):
+        sol = good()
+        sol[new] = sol.pop(old)
+        return sol
+    return plugin
+
+
+@pytest.mark.parametrize("old, new", [("fock", "Fock"), ("density", "densty"),
+                                      ("occupations", "occupation"),
+                                      ("orbital_energies", "orbital_energy")])
+def test_a_misspelt_key_is_named_not_ignored(old, new):
+    """Without this, the checks that need the key would silently drop out of the table
+    and the case could pass on the rest."""
+    assert outcome(renamed(old, new)) == (f"well-formed: '{old}' not given, but '{new}' was: "
+                                          f"did you mean '{old}'? (keys are exact and "
+                                          "lower-case) (h2-sto-3g-rhf)")
+
+
+def test_unrelated_extra_keys_are_still_ignored():
+    sol = dict(good(), mo_energy=[1.0], e_tot=-1.0, kinetic_energy=0.5, note="lab run 7")
+    assert outcome(lambda problem: sol) == "passed"
+
+
 def test_numbers_of_numeric_kinds_still_read():
     """The counterpart: numpy scalars, 1-element arrays, zero-imaginary complex numbers
     and integers within the float range are energies; 0 is an iteration count."""
