@@ -46,8 +46,8 @@ from typing import Any, Mapping
 import numpy as np
 
 from harness.errors import CaseError, HarnessError
-from harness.solution import (HISTORY_KEY, KNOWN_KEYS, MAX_ARRAY_ELEMENTS, REQUIRED_KEYS,
-                              extract)
+from harness.solution import (HISTORY_KEY, KNOWN_KEYS, MAX_ARRAY_ELEMENTS, READABLE_KINDS,
+                              REQUIRED_KEYS, extract)
 
 #: Format tag a JSON solution may carry (optional; any other tag is refused).
 SOLUTION_FORMAT = "scf-harness-solution/1"
@@ -94,7 +94,7 @@ def _numeric(name: str, key: str, arr: np.ndarray):
     if arr.dtype.hasobject:
         raise SolutionFileError("is an object array (pickled Python objects are refused)",
                                 file=name, key=key)
-    if arr.dtype.kind not in "biufc":
+    if arr.dtype.kind not in READABLE_KINDS:
         raise SolutionFileError(f"has dtype {arr.dtype}, not a number", file=name, key=key)
     if arr.size > MAX_ARRAY_ELEMENTS:
         raise SolutionFileError(f"has {arr.size} elements, more than the limit "
@@ -189,7 +189,7 @@ def read_npz(path) -> dict[str, Any]:
                 raise SolutionFileError(f"declares shape {tuple(shape)} ({size} elements), "
                                         f"more than the limit {MAX_ARRAY_ELEMENTS}",
                                         file=name, key=key)
-            if dtype.kind not in "biufc":
+            if dtype.kind not in READABLE_KINDS:
                 raise SolutionFileError(f"has dtype {dtype}, not a number", file=name, key=key)
             try:
                 with archive.open(info) as fp:
@@ -402,7 +402,7 @@ def read_h5(path) -> dict[str, Any]:
                         f"a {type(obj).__name__.lower()}"
                     raise SolutionFileError(f"is {kind}, not a dataset", file=name, key=key)
                 _h5_own_data(name, key, obj)
-                if obj.dtype.kind not in "biufc":
+                if obj.dtype.kind not in READABLE_KINDS:
                     raise SolutionFileError(f"has dtype {obj.dtype}, not a number",
                                             file=name, key=key)
                 size = math.prod(obj.shape or ())

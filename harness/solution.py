@@ -38,13 +38,15 @@ class Malformed:
 #: read as its real part when the imaginary part is zero). Others (datetime,
 #: timedelta, object, str, bytes, void) are refused for every numeric key.
 NUMERIC_KINDS = "biuf"
+#: dtype kinds a solution array may have at all (complex included; checked further on).
+READABLE_KINDS = NUMERIC_KINDS + "c"
 
 
 def _dtype_problem(arr: np.ndarray) -> str | None:
     """Why an array's dtype is not numeric (None if it is)."""
     if arr.dtype == object:
         return "is a ragged or non-numeric array"
-    if arr.dtype.kind not in NUMERIC_KINDS + "c":
+    if arr.dtype.kind not in READABLE_KINDS:
         return f"has non-numeric dtype {arr.dtype}"
     return None
 
