@@ -22,10 +22,10 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 import numpy as np  # noqa: E402
 
-from harness.cases import load_catalogue  # noqa: E402
-from harness.evaluate import evaluate  # noqa: E402
-from harness.references import reference_for  # noqa: E402
-from harness.solution import extract  # noqa: E402
+from harness.catalogue.cases import load_catalogue  # noqa: E402
+from harness.verdict.evaluate import evaluate  # noqa: E402
+from harness.catalogue.references import reference_for  # noqa: E402
+from harness.contract.solution import extract  # noqa: E402
 
 
 def pyscf_scf(problem):

@@ -5,7 +5,7 @@ Usage: python ci/bench_stability.py [--case benzene-cc-pvdz-rhf] [--repeat 3]
 The solution analysed is pyscf's own converged one (a stable minimum, so no following
 SCF runs: the figure is the cost every passing case pays). Timed: building the pyscf
 mean-field object from the solution's orbitals and the Davidson search for the lowest
-orbital-Hessian eigenvalue (``harness.stability.stability``, mode "internal"), including
+orbital-Hessian eigenvalue (``harness.verdict.states.stability``, mode "internal"), including
 pyscf's integral set-up of that object. Both times are the best of ``--repeat`` runs.
 Target: ratio ≤ 2.
 """
@@ -19,10 +19,10 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from harness.cases import load_catalogue  # noqa: E402
-from harness.integrals import integrals_for  # noqa: E402
-from harness.solution import extract  # noqa: E402
-from harness.stability import stability  # noqa: E402
+from harness.catalogue.cases import load_catalogue  # noqa: E402
+from harness.backend.integrals import integrals_for  # noqa: E402
+from harness.contract.solution import extract  # noqa: E402
+from harness.verdict.states import stability  # noqa: E402
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from bench_checks import as_solution, pyscf_scf  # noqa: E402

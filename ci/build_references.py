@@ -17,9 +17,9 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from harness.cases import load_catalogue  # noqa: E402
-from harness.errors import HarnessError  # noqa: E402
-from harness.references import build, default_data_dir, verify  # noqa: E402
+from harness.catalogue.cases import load_catalogue  # noqa: E402
+from harness.contract.errors import HarnessError  # noqa: E402
+from harness.catalogue.references import build, default_data_dir, verify  # noqa: E402
 
 
 def main(argv=None) -> int:

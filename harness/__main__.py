@@ -1,6 +1,6 @@
-"""``python -m harness``: the ``scf-harness`` command line (see harness.cli)."""
+"""``python -m harness``: the ``scf-harness`` command line (see harness.ui.cli)."""
 
-from harness.cli import main
+from harness.ui.cli import main
 
 if __name__ == "__main__":
     raise SystemExit(main())

@@ -1,6 +1,6 @@
 """The check kernels: pure numpy functions on arrays, each with its formula documented.
 
-Each returns a :class:`harness.results.Measurement`; ``harness.evaluate`` compares it
+Each returns a :class:`harness.contract.results.Measurement`; ``harness.verdict.evaluate`` compares it
 with its named tolerance.
 """
 

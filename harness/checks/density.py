@@ -10,7 +10,7 @@ import numpy as np
 
 from harness.checks.orthonormal import locate, worst_of
 from harness.checks.spin import spin_names
-from harness.results import Measurement
+from harness.contract.results import Measurement
 
 
 def idempotency(d: np.ndarray, s: np.ndarray, scale: float = 1.0, labels=None) -> Measurement:

@@ -1,7 +1,7 @@
 """Energy checks: the Hartree–Fock energy functional, consistency, reference.
 
 Energies in hartree (Eh). J and K are the Coulomb and exchange matrices of the
-densities given (computed from pyscf integrals by ``harness.integrals``).
+densities given (computed from pyscf integrals by ``harness.backend.integrals``).
 """
 
 from __future__ import annotations
@@ -10,7 +10,7 @@ import dataclasses
 
 import numpy as np
 
-from harness.results import Measurement
+from harness.contract.results import Measurement
 
 
 @dataclasses.dataclass(frozen=True)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from harness.checks.spin import spin_names
-from harness.results import Measurement
+from harness.contract.results import Measurement
 
 
 def aufbau(e: np.ndarray, occ: np.ndarray) -> Measurement:

@@ -13,7 +13,7 @@ import math
 
 import numpy as np
 
-from harness.results import CheckResult, Status, failed, not_applicable
+from harness.contract.results import CheckResult, Status, failed, not_applicable
 
 #: Oscillation: at least this many trailing energies must alternate (rise, fall, rise…)
 #: to count as a two-state oscillation — 4 energies are 3 steps, enough to see the

@@ -11,8 +11,8 @@ positive definite, the 8-fold permutational symmetry of (ij|kl), the Cauchy–Sc
 inequality |(ij|kl)|² ≤ (ij|ij)(kl|kl) and positive semidefiniteness of the (ij),(kl)
 supermatrix. All integrals in hartree (Eh), lengths in bohr.
 
-The kernels return :class:`harness.results.Measurement`; :func:`integral_checks` turns a
-solution into one :class:`harness.results.CheckResult` per check.
+The kernels return :class:`harness.contract.results.Measurement`; :func:`integral_checks` turns a
+solution into one :class:`harness.contract.results.CheckResult` per check.
 """
 
 from __future__ import annotations
@@ -20,8 +20,8 @@ from __future__ import annotations
 import numpy as np
 
 from harness.checks.orthonormal import locate, matrix_difference, worst
-from harness.results import CheckResult, Measurement, judge, not_applicable
-from harness.tolerances import Tolerances
+from harness.contract.results import CheckResult, Measurement, judge, not_applicable
+from harness.checks.tolerances import Tolerances
 
 #: The ERI checks are not run above this many AOs: the reference tensor has nao⁴
 #: doubles (100 MB at nao = 60, 1.4 GB at 114) and the symmetry check makes seven
@@ -142,8 +142,8 @@ def integral_checks(sol: dict, ints, tolerances: Tolerances | None, case: str
     """The integral checks of one extracted solution, by name.
 
     ``sol``: the extracted (well-formed, pyscf-AO-order) solution; ``ints``: the case's
-    :class:`harness.integrals.AOIntegrals` (``ints.mol`` supplies T, V and the ERIs);
-    all tolerances are fixed (``harness.tolerances``), in Eh (Eh² for Schwarz).
+    :class:`harness.backend.integrals.AOIntegrals` (``ints.mol`` supplies T, V and the ERIs);
+    all tolerances are fixed (``harness.checks.tolerances``), in Eh (Eh² for Schwarz).
 
     kinetic, nuclear-attraction, core-hamiltonian: max|A_code − A_ref| for the code's
     ``kinetic``, ``nuclear_attraction``, ``core_hamiltonian``; overlap-definite and

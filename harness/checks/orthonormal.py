@@ -10,7 +10,7 @@ import dataclasses
 import numpy as np
 
 from harness.checks.spin import spin_names
-from harness.results import Measurement
+from harness.contract.results import Measurement
 
 #: Overlap eigenvalues below this are treated as linear dependencies and projected out
 #: of the orthonormal basis (the same order as common SCF codes use for dropping

@@ -11,7 +11,7 @@ import numpy as np
 
 from harness.checks.orthonormal import Lowdin, locate, worst_of
 from harness.checks.spin import spin_names
-from harness.results import Measurement
+from harness.contract.results import Measurement
 
 
 def commutator(f: np.ndarray, d: np.ndarray, s: np.ndarray, low: Lowdin,

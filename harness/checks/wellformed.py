@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from harness.solution import REQUIRED_KEYS, Malformed
+from harness.contract.solution import REQUIRED_KEYS, Malformed
 
 #: |n − round(n)| allowed for occupation numbers, which must be whole (0/1/2).
 OCCUPATION_ROUNDING = 1e-8

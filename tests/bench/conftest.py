@@ -8,8 +8,8 @@ from __future__ import annotations
 
 import pytest
 
-from harness import accelerators as acc
-from harness.cases import load_catalogue
+from harness.bench import accelerators as acc
+from harness.catalogue.cases import load_catalogue
 
 
 @pytest.fixture(scope="session")

@@ -7,13 +7,11 @@ from __future__ import annotations
 
 import pytest
 
-from harness import bench
-
-
+from harness.bench import runs as bench
 @pytest.mark.slow
 def test_hard_suite_example_vs_pyscf_diis(tmp_path):
     cases = bench.bench_suite("hard")
-    outcome = bench.run_bench("harness.example_accelerator:CommutatorDIIS", cases=cases,
+    outcome = bench.run_bench("harness.bench.example_accelerator:CommutatorDIIS", cases=cases,
                               guesses=4, seed=0, baselines=("roothaan", "pyscf-cdiis"),
                               references=bench.bench_reference_dir("hard"),
                               report_dir=tmp_path)

@@ -13,10 +13,10 @@ import warnings
 import numpy as np
 import pytest
 
-from harness import accelerators as acc
-from harness import bench
-from harness.cli import main
-from harness.errors import HarnessError, PluginLoadError, first_line
+from harness.bench import accelerators as acc
+from harness.bench import runs as bench
+from harness.ui.cli import main
+from harness.contract.errors import HarnessError, PluginLoadError, first_line
 
 ERROR = "scf-harness: error: "
 
@@ -247,7 +247,7 @@ def test_too_long_call_limit_is_refused(catalogue, capsys):
                         baselines=(), properties=False, call_limit=1e10)
     with pytest.raises(ValueError, match="not in"):
         acc.time_limited(acc.Roothaan, 1e10)
-    code, out, err = run_main(capsys, "bench", "harness.example_accelerator:CommutatorDIIS",
+    code, out, err = run_main(capsys, "bench", "harness.bench.example_accelerator:CommutatorDIIS",
                               "--call-timeout", "1e10")
     assert one_line_error(code, err) == ("argument --call-timeout: expected at most 1e+06 s, "
                                          "got 1e+10")
@@ -262,12 +262,12 @@ def test_too_long_call_limit_is_refused(catalogue, capsys):
     ("CtorNeedsArgs", "creating it raised TypeError: CtorNeedsArgs.__init__() missing 1 "
                       "required positional argument: 'size'"),
     ("function", "it is a function, not an accelerator: give a class or an instance with "
-                 "reset and step methods (see harness.accelerators)"),
+                 "reset and step methods (see harness.bench.accelerators)"),
     ("factory_fn", "it is a function, not an accelerator: give a class or an instance with "
-                   "reset and step methods (see harness.accelerators)"),
+                   "reset and step methods (see harness.bench.accelerators)"),
     ("instance.step", "it is a method, not an accelerator: give a class or an instance with "
-                      "reset and step methods (see harness.accelerators)"),
-    ("AttrGetattr", "class AttrGetattr lacks reset and step (see harness.accelerators)"),
+                      "reset and step methods (see harness.bench.accelerators)"),
+    ("AttrGetattr", "class AttrGetattr lacks reset and step (see harness.bench.accelerators)"),
     ("attr_getattr", "reading its name attribute raised RuntimeError: getattr boom name"),
     ("RetNone", "declares returns=None, expected 'fock' or 'density'"),
     ("RetInt", "declares returns=5, expected 'fock' or 'density'"),
@@ -401,7 +401,7 @@ def test_first_line_of_an_unprintable_exception():
 
 
 def test_negative_seed_is_a_usage_error(capsys):
-    code, out, err = run_main(capsys, "bench", "harness.example_accelerator:CommutatorDIIS",
+    code, out, err = run_main(capsys, "bench", "harness.bench.example_accelerator:CommutatorDIIS",
                               "--seed", "-1")
     assert one_line_error(code, err).startswith("argument --seed: expected an integer >= 0, "
                                                 "got '-1'")
@@ -432,7 +432,7 @@ def test_report_folder_is_checked_before_any_run(catalogue, tmp_path, inside):
 def test_report_on_a_file_says_it_is_not_a_folder(capsys, tmp_path):
     afile = tmp_path / "afile"
     afile.write_text("x")
-    code, out, err = run_main(capsys, "bench", "harness.example_accelerator:CommutatorDIIS",
+    code, out, err = run_main(capsys, "bench", "harness.bench.example_accelerator:CommutatorDIIS",
                               "--suite", "smoke", "--report", str(afile))
     assert one_line_error(code, err) == f"report folder: {afile} is not a folder (it is a file)"
     assert out == ""
@@ -445,7 +445,7 @@ def test_a_plotting_failure_loses_neither_summary_nor_bench_json(capsys, tmp_pat
 
     monkeypatch.setattr(bench, "write_plots", broken)
     rep = tmp_path / "rep"
-    code, out, err = run_main(capsys, "bench", "harness.example_accelerator:CommutatorDIIS",
+    code, out, err = run_main(capsys, "bench", "harness.bench.example_accelerator:CommutatorDIIS",
                               "--suite", "smoke", "--guesses", "0", "--baselines",
                               "roothaan", "--report", str(rep))
     message = one_line_error(code, err)

@@ -11,12 +11,12 @@ import time
 import numpy as np
 import pytest
 
-from harness import accelerators as acc
+from harness.bench import accelerators as acc
 from harness.checks.orthonormal import lowdin
 from harness.checks.stationarity import commutator
-from harness.errors import PluginLoadError
-from harness.example_accelerator import CommutatorDIIS, diis_coefficients
-from harness.references import reference_for
+from harness.contract.errors import PluginLoadError
+from harness.bench.example_accelerator import CommutatorDIIS, diis_coefficients
+from harness.catalogue.references import reference_for
 
 SMOKE = ("water-sto-3g-rhf", "oh-sto-3g-uhf", "nh2-sto-3g-rohf")
 
@@ -146,7 +146,7 @@ def test_time_limit_keeps_a_working_accelerator_and_its_attributes(setup):
     declared kind and other attributes, and no alarm is left behind."""
     import signal
 
-    from harness.example_accelerator import CommutatorDIIS
+    from harness.bench.example_accelerator import CommutatorDIIS
 
     _, problem, ham, start = setup("water-sto-3g-rhf")
     plain = acc.run_scf(ham, CommutatorDIIS(), start, convergence=problem.convergence)
@@ -294,7 +294,7 @@ def test_rotated_guess_keeps_occupations_and_orthonormality(setup):
 
 
 def test_load_accelerator_forms(tmp_path):
-    name, make = acc.load_accelerator("harness.example_accelerator:CommutatorDIIS")
+    name, make = acc.load_accelerator("harness.bench.example_accelerator:CommutatorDIIS")
     assert name == "example-diis" and isinstance(make(), CommutatorDIIS)
     obj = CommutatorDIIS()
     name, make = acc.load_accelerator(obj)
@@ -306,4 +306,4 @@ def test_load_accelerator_forms(tmp_path):
     with pytest.raises(PluginLoadError, match="has no attribute 'Missing'"):
         acc.load_accelerator(f"{f}:Missing")
     with pytest.raises(PluginLoadError, match="no colon"):
-        acc.load_accelerator("harness.example_accelerator")
+        acc.load_accelerator("harness.bench.example_accelerator")

@@ -1,4 +1,4 @@
-"""Planted accelerators (harness.planted.accelerators.ACCELERATORS) are reported as such.
+"""Planted accelerators (harness.testing.planted.accelerators.ACCELERATORS) are reported as such.
 
 Each entry is benched on its case against pyscf's DIIS with one perturbed guess; the
 outcome must show exactly what the entry says: converged or not, ground state or not,
@@ -9,8 +9,8 @@ from __future__ import annotations
 
 import pytest
 
-from harness.bench import run_bench
-from harness.planted.accelerators import ACCELERATORS
+from harness.bench.runs import run_bench
+from harness.testing.planted.accelerators import ACCELERATORS
 
 
 @pytest.mark.parametrize("entry", ACCELERATORS, ids=lambda e: e.name)

@@ -11,10 +11,10 @@ import json
 import numpy as np
 import pytest
 
-from harness import accelerators as acc
-from harness import bench
-from harness.bench import RunRecord, classify_state, run_bench, verdict_lines
-from harness.errors import HarnessError
+from harness.bench import accelerators as acc
+from harness.bench import runs as bench
+from harness.bench.runs import RunRecord, classify_state, run_bench, verdict_lines
+from harness.contract.errors import HarnessError
 
 
 #: Baselines of the fast smoke bench: pyscf's EDIIS and ADIIS (a BFGS minimisation per
@@ -26,7 +26,7 @@ FAST_BASELINES = ("roothaan", "damping", "pyscf-cdiis", "pyscf-newton")
 def smoke_outcome(catalogue, tmp_path_factory):
     out_dir = tmp_path_factory.mktemp("bench")
     calls = []
-    outcome = run_bench("harness.example_accelerator:CommutatorDIIS",
+    outcome = run_bench("harness.bench.example_accelerator:CommutatorDIIS",
                         cases=catalogue.suite("smoke"), guesses=1, seed=0,
                         baselines=FAST_BASELINES, report_dir=out_dir,
                         progress=lambda *a: calls.append(a))

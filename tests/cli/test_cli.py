@@ -267,8 +267,9 @@ class TestInterruption:
         flag is set."""
         from types import SimpleNamespace
 
-        from harness import cli, runner
+        from harness.ui import cli
 
+        from harness.run import runner
         seen = []
 
         def record(info):
@@ -331,7 +332,7 @@ class TestGoodRuns:
         assert result.returncode == 0, result.stdout + result.stderr
         data = read_json(work / "out.json")
         assert data["passed"] is True and data["suites"] == ["smoke"]
-        assert data["plugin"] == "harness.example_scf:solve"
+        assert data["plugin"] == "harness.testing.example_scf:solve"
         assert data["units"] == {"energy": "hartree", "length": "bohr", "time": "second"}
         n = len(data["cases"])
         assert n >= 3 and result.stdout.splitlines()[-1] == f"{n} passed, 0 failed"
@@ -387,7 +388,7 @@ class TestOtherCommands:
 
     def test_references_verify_mismatch_exits_1(self, work, tmp_path_factory):
         """A tampered stored reference makes verify print MISMATCH and exit 1."""
-        from harness.cases import default_reference_dir
+        from harness.catalogue.cases import default_reference_dir
 
         copy = tmp_path_factory.mktemp("refs") / "data"
         shutil.copytree(default_reference_dir() / "data", copy)

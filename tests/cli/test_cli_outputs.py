@@ -8,7 +8,7 @@ import stat
 
 import pytest
 
-from harness.cli import main
+from harness.ui.cli import main
 
 ERROR = "scf-harness: error: "
 H2 = "h2-sto-3g-rhf"
@@ -81,7 +81,7 @@ def test_references_verify_needs_an_existing_folder(capsys, tmp_path):
 
 
 def test_cases_lists_every_suite_asked_for(capsys):
-    from harness.cases import load_catalogue
+    from harness.catalogue.cases import load_catalogue
 
     catalogue = load_catalogue()
     assert main(["cases", "--suite", "smoke", "--suite", "atoms"]) == 0

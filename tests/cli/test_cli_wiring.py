@@ -2,7 +2,7 @@
 certify and check-result, --scratch without --command, check-result verdicts, certificates
 from check-result and their verification, and ``bench``.
 
-Commands without plug-in processes run in this process through ``harness.cli.main``
+Commands without plug-in processes run in this process through ``harness.ui.cli.main``
 (fast); certify runs as a user runs it (``python -m harness`` in a scratch folder).
 Energies in hartree (Eh).
 """
@@ -18,12 +18,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from harness.cli import main
+from harness.ui.cli import main
 
 REPO = Path(__file__).resolve().parents[2]
 ERROR = "scf-harness: error: "
 H2 = "h2-sto-3g-rhf"
-ACCELERATOR = "harness.example_accelerator:CommutatorDIIS"
+ACCELERATOR = "harness.bench.example_accelerator:CommutatorDIIS"
 FAST_BASELINES = "roothaan,pyscf-cdiis"
 
 
@@ -48,7 +48,7 @@ def checks_of(report_path: Path) -> dict:
 
 @pytest.fixture(scope="module")
 def h2_case():
-    from harness.cases import load_catalogue
+    from harness.catalogue.cases import load_catalogue
 
     return load_catalogue().case(H2)
 
@@ -56,7 +56,7 @@ def h2_case():
 @pytest.fixture(scope="module")
 def h2_solution(h2_case) -> dict:
     """The example SCF code's solution of H2/STO-3G (arrays and scalars only)."""
-    from harness.example_scf import solve
+    from harness.testing.example_scf import solve
 
     raw = solve(h2_case.problem())
     return {k: np.asarray(v) for k, v in raw.items()
@@ -229,8 +229,8 @@ class TestBench:
         assert report["exit_status"] == 0
 
     def test_planted_accelerator_fails_the_bench(self, capsys):
-        """An accelerator that never converges (harness.planted.accelerators) exits 1."""
-        code, out, err = run_main(capsys, "bench", "harness.planted.accelerators:KickedDIIS",
+        """An accelerator that never converges (harness.testing.planted.accelerators) exits 1."""
+        code, out, err = run_main(capsys, "bench", "harness.testing.planted.accelerators:KickedDIIS",
                                   "--suite", "smoke", "--guesses", "0", "--baselines",
                                   "pyscf-cdiis")
         assert code == 1, out + err
@@ -284,7 +284,7 @@ class TestCaseSelection:
         return path
 
     def names(self, *args, **kw):
-        from harness.cli import select_cases
+        from harness.ui.cli import select_cases
 
         return [c.name for c in select_cases(*args, **kw)[0]]
 
@@ -299,7 +299,7 @@ class TestCaseSelection:
                                                                         "lab-h2-a"]
 
     def test_a_suite_and_the_file_run_together(self, own):
-        from harness.cases import load_catalogue
+        from harness.catalogue.cases import load_catalogue
 
         smoke = [c.name for c in load_catalogue().suite("smoke")]
         assert self.names(["smoke"], None, own) == smoke + ["lab-h2-a", "lab-h2-b"]

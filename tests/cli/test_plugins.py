@@ -1,4 +1,4 @@
-"""Tests of harness.plugins.load_plugin, in process (the CLI tests cover the same errors
+"""Tests of harness.run.plugins.load_plugin, in process (the CLI tests cover the same errors
 as a user sees them)."""
 
 from __future__ import annotations
@@ -7,8 +7,8 @@ import sys
 
 import pytest
 
-from harness.errors import PluginLoadError
-from harness.plugins import load_plugin, split_spec
+from harness.contract.errors import PluginLoadError
+from harness.run.plugins import load_plugin, split_spec
 
 
 @pytest.fixture

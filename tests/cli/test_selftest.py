@@ -1,6 +1,6 @@
 """``scf-harness selftest``: filtering, the table, the per-check summary, exit codes.
 
-The core planted entries (harness.planted.core) must all match; the mismatch and error
+The core planted entries (harness.testing.planted.core) must all match; the mismatch and error
 paths are exercised with a fake catalogue (monkeypatched), so they do not depend on which
 other planted modules are wired into evaluate yet.
 """
@@ -13,12 +13,12 @@ import sys
 
 import pytest
 
-from harness import planted
-from harness import selftest as st
-from harness.cli import main
-from harness.planted import Planted
-from harness.planted import core
-from harness.report import make_console
+from harness.testing import planted
+from harness.testing import selftest as st
+from harness.ui.cli import main
+from harness.testing.planted import Planted
+from harness.testing.planted import core
+from harness.report.terminal import make_console
 
 from test_cli import environment
 
@@ -118,7 +118,7 @@ class TestMismatch:
     def test_only_by_module_and_substring(self):
         entries = planted.catalogue()
         by_module = st.select(entries, "core")
-        assert by_module and all(e.solve.__module__ == "harness.planted.core" for e in by_module)
+        assert by_module and all(e.solve.__module__ == "harness.testing.planted.core" for e in by_module)
         water = st.select(entries, "@ oh-sto-3g-uhf")
         assert water and {e.case for e in water} == {"oh-sto-3g-uhf"}
 

@@ -12,7 +12,7 @@ import sys
 import tempfile
 from pathlib import Path
 
-from harness.external import CommandPlugin
+from harness.run.external import CommandPlugin
 
 HERE = Path(__file__).resolve().parent
 SCRATCH = Path(tempfile.gettempdir()) / "scf-harness-external-tests"

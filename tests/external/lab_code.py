@@ -4,7 +4,7 @@
 
 It reads ``problem.json`` (format scf-harness-problem/1, coordinates in bohr) and the
 basis from ``basis.nwchem`` (pyscf's NWChem parser, used for the integrals only), runs
-the bundled example SCF code (``harness.example_scf.LabSCF``: numpy Hartree–Fock) and
+the bundled example SCF code (``harness.testing.example_scf.LabSCF``: numpy Hartree–Fock) and
 writes the result as ``.npz``, ``.json`` or ``.h5`` by the output's suffix (energies in
 hartree). It refuses to run (exit status 4) if pyscf's AO order for that basis is not
 the one in ``ao_order.txt``. ``--fail-with N`` exits with status N after writing
@@ -95,7 +95,7 @@ def main(argv=None) -> int:
     if labels != [line for line in expected if line]:
         print("lab_code: the AO order of basis.nwchem differs from ao_order.txt", file=sys.stderr)
         return 4
-    from harness.example_scf import LabSCF
+    from harness.testing.example_scf import LabSCF
 
     result = LabSCF(problem).iterate()
     write(result, args.out)

@@ -1,6 +1,6 @@
 """Helpers for the tests: solve a case once and write the result in each file format.
 
-Solutions come from the bundled example SCF code (``harness.example_scf``), energies in
+Solutions come from the bundled example SCF code (``harness.testing.example_scf``), energies in
 Eh; Molden files are written with pyscf's Molden writer (``pyscf.tools.molden``).
 """
 
@@ -21,7 +21,7 @@ C_WRAPPER = HERE / "c_wrapper.py"
 
 @functools.lru_cache(maxsize=None)
 def problem(name: str):
-    from harness.cases import load_catalogue
+    from harness.catalogue.cases import load_catalogue
 
     return load_catalogue().case(name).problem()
 
@@ -29,7 +29,7 @@ def problem(name: str):
 @functools.lru_cache(maxsize=None)
 def solved(name: str) -> dict:
     """The example code's plug-in dict for catalogue case ``name`` (cached; do not modify)."""
-    from harness.example_scf import solve
+    from harness.testing.example_scf import solve
 
     return solve(problem(name))
 

@@ -1,15 +1,15 @@
 """The command-line options for external codes, result files and certificates, run as
 a user runs them (``python -m harness`` in a scratch folder).
 
-These describe the behaviour the CLI must have once it is wired (harness/cli.py):
+These describe the behaviour the CLI must have once it is wired (harness/ui/cli.py):
 
 * ``certify --command TEMPLATE [--scratch DIR] [--keep-scratch] [--certificate FILE]``
-  runs an external code per case (harness.external.CommandPlugin); PLUGIN and
+  runs an external code per case (harness.run.external.CommandPlugin); PLUGIN and
   --command together are a usage error (exit 2).
 * ``check-result FILE --geometry XYZ --basis B --method M [--charge Q]
   [--multiplicity M] [--cartesian] [--name N] [--energy-file F] [--convergence X]
   [--json FILE] [--tol CHECK=V] [--references DIR] [--certificate FILE]`` checks a
-  solution file (harness.files.check_result); exit 0 passed, 1 failed (also for a
+  solution file (harness.run.files.check_result); exit 0 passed, 1 failed (also for a
   malformed file: the case fails with its one-line reason), 2 for usage errors (a
   missing solution file or geometry, bad options).
 * ``verify-certificate FILE [--recompute] [--markdown OUT]``: exit 0 when intact (and
@@ -38,7 +38,7 @@ PY = sys.executable
 
 
 def _wired() -> bool:
-    from harness.cli import build_parser
+    from harness.ui.cli import build_parser
 
     parser = build_parser()
     commands = parser._subparsers._group_actions[0].choices  # noqa: SLF001
@@ -49,7 +49,7 @@ def _wired() -> bool:
 
 
 pytestmark = pytest.mark.skipif(not _wired(), reason="certify --command, check-result and "
-                                "verify-certificate are not wired into harness/cli.py yet")
+                                "verify-certificate are not wired into harness/ui/cli.py yet")
 
 
 def cli(*args: str, cwd: Path, timeout: float = 180) -> subprocess.CompletedProcess:
@@ -89,7 +89,7 @@ class TestCertifyCommand:
         assert (folder / "problem.json").is_file() and (folder / "solution.npz").is_file()
 
     def test_plugin_and_command_together(self, tmp_path):
-        run = cli("certify", "harness.example_scf:solve", "--command", lab_command(),
+        run = cli("certify", "harness.testing.example_scf:solve", "--command", lab_command(),
                   "--case", H2, cwd=tmp_path)
         assert run.returncode == 2
         assert run.stderr.startswith(ERROR) and run.stderr.count("\n") == 1
@@ -142,7 +142,7 @@ class TestCertifyCommand:
 
 class TestCheckResult:
     def water_xyz(self):
-        from harness.cases import load_catalogue
+        from harness.catalogue.cases import load_catalogue
 
         return load_catalogue().case("water-sto-3g-rhf").geometry_file
 

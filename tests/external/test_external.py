@@ -1,4 +1,4 @@
-"""External codes through files (harness/external.py): the inputs written for them,
+"""External codes through files (harness/run/external.py): the inputs written for them,
 a Python and a C program run as separate processes, and the runner around them.
 Coordinates in bohr (ångström in geometry.xyz), energies in Eh."""
 
@@ -20,19 +20,19 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 import commands  # noqa: E402
 import solution_files as sf  # noqa: E402
 
-from harness.errors import HarnessError  # noqa: E402
-from harness.evaluate import evaluate  # noqa: E402
-from harness.external import (PROBLEM_FORMAT, CommandPlugin, CommandSetupError,  # noqa: E402
+from harness.contract.errors import HarnessError  # noqa: E402
+from harness.verdict.evaluate import evaluate  # noqa: E402
+from harness.run.external import (PROBLEM_FORMAT, CommandPlugin, CommandSetupError,  # noqa: E402
                               ExternalCodeError, stderr_excerpt, write_inputs)
-from harness.solution import extract  # noqa: E402
+from harness.contract.solution import extract  # noqa: E402
 
 PY = sys.executable
 LAB = f"{PY} {sf.LAB_CODE} --in {{problem}} --out {{solution}}"
 
 
 def failed_checks(name, raw):
-    from harness.references import reference_for
-    from harness.cases import load_catalogue
+    from harness.catalogue.references import reference_for
+    from harness.catalogue.cases import load_catalogue
 
     reference, _ = reference_for(load_catalogue().case(name))
     return [c.message for c in evaluate(sf.problem(name), extract(raw), reference)
@@ -56,7 +56,7 @@ class TestInputs:
 
     def test_geometry_xyz_in_angstrom(self, tmp_path):
         """geometry.xyz is standard XYZ in Å; read back it gives the bohr coordinates."""
-        from harness.cases import read_xyz
+        from harness.catalogue.cases import read_xyz
 
         p = sf.problem("water-sto-3g-rhf")
         numbers, coords, comment = read_xyz(write_inputs(p, tmp_path)["geometry"])
@@ -306,9 +306,9 @@ class TestThroughTheRunner:
     SPEC = f"{Path(commands.__file__).resolve()}:{{}}"
 
     def outcome(self, function, timeout=60.0):
-        from harness.cases import load_catalogue
-        from harness.runner import run_cases
-        from harness.tolerances import Tolerances
+        from harness.catalogue.cases import load_catalogue
+        from harness.run.runner import run_cases
+        from harness.checks.tolerances import Tolerances
 
         cases = [load_catalogue().case("h2-sto-3g-rhf")]
         return run_cases(cases, self.SPEC.format(function), tolerances=Tolerances(),
@@ -368,8 +368,7 @@ class TestThroughTheRunner:
         and its scratch folder removed."""
         import threading
 
-        from harness import runner
-
+        from harness.run import runner
         self.forget_old_pidfiles()
 
         def interrupt_once_started():

@@ -5,16 +5,16 @@ extension modules cannot be imported twice in one process; so everything an inne
 imports is imported here first, and survives each restore.
 """
 
-import harness.cli  # noqa: F401
-import harness.evaluate  # noqa: F401
-import harness.example_scf  # noqa: F401
-import harness.references  # noqa: F401
-import harness.report  # noqa: F401
-import harness.runner  # noqa: F401
+import harness.ui.cli  # noqa: F401
+import harness.verdict.evaluate  # noqa: F401
+import harness.testing.example_scf  # noqa: F401
+import harness.catalogue.references  # noqa: F401
+import harness.report.terminal  # noqa: F401
+import harness.run.runner  # noqa: F401
 import pyscf.ao2mo  # noqa: F401
 import pyscf.scf  # noqa: F401
 import scipy.linalg  # noqa: F401
-from harness.cases import load_catalogue
+from harness.catalogue.cases import load_catalogue
 
 load_catalogue()  # imports what reading the catalogue needs (pyscf.data, basis parsers)
 

@@ -1,6 +1,6 @@
 """The [tool.scf-harness] table and the --scf-… flags: parsing, precedence, errors.
 
-No SCF runs here: these are the rules of harness.config. Units: tolerances absolute
+No SCF runs here: these are the rules of harness.ui.config. Units: tolerances absolute
 (Eh for energies), timeout in seconds.
 """
 
@@ -8,8 +8,8 @@ from __future__ import annotations
 
 import pytest
 
-from harness import config
-from harness.config import ConfigError, Settings
+from harness.ui import config
+from harness.ui.config import ConfigError, Settings
 
 
 def write(tmp_path, text: str):
@@ -19,12 +19,13 @@ def write(tmp_path, text: str):
 
 
 def test_defaults_match_the_modules_they_mirror():
-    from harness import cli, problem, runner
-
+    from harness.ui import cli
+    from harness.contract import problem
+    from harness.run import runner
     assert config.DEFAULT_SUITE == cli.DEFAULT_SUITE
     assert config.DEFAULT_TIMEOUT == runner.DEFAULT_TIMEOUT
     assert config.DEFAULT_CONVERGENCE == problem.DEFAULT_CONVERGENCE
-    from harness.evaluate import STABILITY_MODES
+    from harness.verdict.evaluate import STABILITY_MODES
 
     assert config.STABILITY_CHOICES == STABILITY_MODES
     assert config.DEFAULT_STABILITY == cli.build_parser().parse_args(["certify"]).stability
@@ -179,7 +180,7 @@ def test_reproduce_command_is_accepted_by_the_cli():
     """Every part of the command parses with scf-harness's own parser."""
     import shlex
 
-    from harness.cli import build_parser
+    from harness.ui.cli import build_parser
 
     s = Settings(plugin="m:f", tolerances={"stationarity": 1e-5}, convergence=1e-7,
                  timeout=30.0)

@@ -9,9 +9,9 @@ from __future__ import annotations
 
 import pytest
 
-from harness.planted.core import missing_nuclear_repulsion
+from harness.testing.planted.core import missing_nuclear_repulsion
 
-PLANTED = "harness.planted.core:missing_nuclear_repulsion"
+PLANTED = "harness.testing.planted.core:missing_nuclear_repulsion"
 SMOKE = ("h2-sto-3g-rhf", "water-sto-3g-rhf", "oh-sto-3g-uhf", "nh2-sto-3g-rohf")
 #: The first line of the water failure, up to the energies (E_nuc of water is 8.0 Eh).
 WATER_FIRST = ("energy-consistency: |E − E[P]| = 8.0e+00 > 1.0e-08 (water-sto-3g-rhf), "
@@ -19,7 +19,7 @@ WATER_FIRST = ("energy-consistency: |E − E[P]| = 8.0e+00 > 1.0e-08 (water-sto-
 
 MYCODE = '''
 """A lab's SCF entry point: the bundled example code, wrapped as a user would."""
-from harness.example_scf import solve as _solve
+from harness.testing.example_scf import solve as _solve
 
 
 def solve(problem):
@@ -61,10 +61,10 @@ def test_correct_plugin_passes_one_item_per_case(project):
 def harness_lines(name: str) -> list[str]:
     """The failing checks' messages (each followed by its hint, if any) that the harness
     itself gives the planted bug on ``name``."""
-    from harness.cases import load_catalogue
-    from harness.evaluate import evaluate
-    from harness.references import load_reference
-    from harness.solution import extract
+    from harness.catalogue.cases import load_catalogue
+    from harness.verdict.evaluate import evaluate
+    from harness.catalogue.references import load_reference
+    from harness.contract.solution import extract
 
     case = load_catalogue().case(name)
     checks = evaluate(case.problem(), extract(missing_nuclear_repulsion(case.problem())),
@@ -104,7 +104,7 @@ def test_the_reproduce_line_reproduces_the_failure(project, capsys):
     """The printed command, run as printed, fails the same case with the same message."""
     import shlex
 
-    from harness.cli import main
+    from harness.ui.cli import main
 
     result = project.runpytest("--scf-plugin", PLANTED, "-k", "h2-sto-3g-rhf",
                                "-p", "no:cacheprovider")
@@ -178,14 +178,14 @@ HEAVY_CHECK = '''
 import sys
 
 HEAVY = ("numpy", "scipy", "pyscf", "rich")
-HARNESS_HEAVY = ("harness.problem", "harness.cases", "harness.runner", "harness.report",
-                 "harness.evaluate", "harness.references", "harness.integrals",
-                 "harness.checks", "harness.solution", "harness.example_scf")
+HARNESS_HEAVY = ("harness.contract.problem", "harness.catalogue.cases", "harness.run.runner", "harness.report.terminal",
+                 "harness.verdict.evaluate", "harness.catalogue.references", "harness.backend.integrals",
+                 "harness.checks", "harness.contract.solution", "harness.testing.example_scf")
 
 
 def test_nothing_heavy_was_imported():
     loaded = set(sys.modules)
-    assert "harness.pytest_plugin" in loaded  # the plug-in is active in this run
+    assert "harness.ui.pytest_plugin" in loaded  # the plug-in is active in this run
     heavy = sorted(m for m in loaded if m.split(".")[0] in HEAVY
                    or m.startswith(HARNESS_HEAVY))
     assert heavy == []
@@ -228,8 +228,8 @@ def test_usage_errors_are_one_line(project, args, pyproject, words):
 
 
 FIXTURE_TESTS = '''
-from harness.example_scf import solve
-from harness.planted.core import missing_nuclear_repulsion
+from harness.testing.example_scf import solve
+from harness.testing.planted.core import missing_nuclear_repulsion
 
 
 def test_example_code_passes(scf_case, scf_reference, scf_check):
@@ -304,7 +304,7 @@ def test_cases_file_adds_the_labs_own_molecules(project):
 
 
 STRETCHED = "h2-stretched-6-31g-uhf"
-SPIN_RESTRICTED = "harness.planted.states:never_breaks_spin_symmetry"
+SPIN_RESTRICTED = "harness.testing.planted.states:never_breaks_spin_symmetry"
 
 
 @pytest.mark.parametrize("table, analysed", [("", True), ('stability = "off"', False)])
@@ -312,7 +312,7 @@ def test_stability_setting_reaches_the_checks(project, table, analysed):
     """A UHF code stuck on the spin-restricted saddle of stretched H2: the stability check
     fails it under the default (internal) and is skipped with stability = off; the energy
     comparison fails it either way."""
-    from harness.cases import load_catalogue
+    from harness.catalogue.cases import load_catalogue
 
     project.makepyprojecttoml(f"[tool.scf-harness]\n{table}\n")
     result = project.runpytest("--scf-plugin", SPIN_RESTRICTED, "--scf-suite", "states",
@@ -355,7 +355,7 @@ def test_a_cases_file_case_named_like_a_catalogue_case_is_a_usage_error(project)
 MISUSE_TESTS = '''
 import pytest
 
-from harness.errors import CaseError
+from harness.contract.errors import CaseError
 
 
 def test_case_by_number(scf_case):

@@ -1,7 +1,7 @@
 """Hypothesis properties of convergence accelerators, each reported by name.
 
 fixed-point, determinism, invariance (another orthonormal basis; the molecule rotated),
-no-nan-degenerate: the functions in harness.accelerators / harness.bench, applied to our
+no-nan-degenerate: the functions in harness.bench.accelerators / harness.bench.runs, applied to our
 example commutator DIIS (must hold) and to planted accelerators (must be caught), on
 small catalogue cases and on random DIIS histories. Energies and Fock matrices in Eh.
 """
@@ -15,11 +15,11 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from harness import accelerators as acc
-from harness import bench
-from harness.cases import load_catalogue
-from harness.example_accelerator import CommutatorDIIS, diis_coefficients
-from harness.planted.accelerators import KickedDIIS, MaximumOverlapDIIS
+from harness.bench import accelerators as acc
+from harness.bench import runs as bench
+from harness.catalogue.cases import load_catalogue
+from harness.bench.example_accelerator import CommutatorDIIS, diis_coefficients
+from harness.testing.planted.accelerators import KickedDIIS, MaximumOverlapDIIS
 
 #: Each example runs a few small SCFs: keep the example counts small.
 FEW = settings(max_examples=6, deadline=None)

@@ -16,12 +16,12 @@ import numpy as np
 import pytest
 from hypothesis import find, given, settings
 
-from harness import metamorphic as mm
-from harness import strategies as hs
-from harness.cases import load_catalogue
-from harness.example_scf import LabSCF, solve
-from harness.planted import orientation
-from harness.planted.orientation import (abs_nuclear_repulsion,
+from harness.testing import metamorphic as mm
+from harness.testing import strategies as hs
+from harness.catalogue.cases import load_catalogue
+from harness.testing.example_scf import LabSCF, solve
+from harness.testing.planted import orientation
+from harness.testing.planted.orientation import (abs_nuclear_repulsion,
                                          assumes_heaviest_atom_first,
                                          nuclear_repulsion_from_abs_coordinates)
 
@@ -76,8 +76,8 @@ def test_open_shell_state_depends_on_frame_with_the_textbook_guess():
     p shells rotate: rotated NH2 (ROHF) then converges to an excited state (2A1-like,
     ~0.1 Eh up) and the property reports it with both energies. The example code's
     shell-averaged guess gives the ground state in both frames."""
-    from harness.planted.states import ao_diagonal_guess
-    from harness.references import load_reference
+    from harness.testing.planted.states import ao_diagonal_guess
+    from harness.catalogue.references import load_reference
 
     nh2 = case("nh2-sto-3g-rohf")
     ground = load_reference(nh2).energy
@@ -175,7 +175,7 @@ def test_orbital_energies_are_compared():
 
 
 def test_spec_strings_are_accepted():
-    result = mm.atom_order_invariance("harness.planted.orientation:assumes_heaviest_atom_first",
+    result = mm.atom_order_invariance("harness.testing.planted.orientation:assumes_heaviest_atom_first",
                                       case("water-sto-3g-rhf"), permutation=(1, 0, 2))
     assert not result.passed and result.name == "atom-order"
 
@@ -240,8 +240,8 @@ def test_hypothesis_shrinks_the_heaviest_first_bug_to_one_permutation():
 
 
 def test_orientation_catalogue_entry_matches_the_harness():
-    from harness.runner import run_cases
-    from harness.tolerances import Tolerances
+    from harness.run.runner import run_cases
+    from harness.checks.tolerances import Tolerances
 
     for entry in orientation.CATALOGUE:
         outcome = run_cases([case(entry.case)], entry.spec, tolerances=Tolerances())

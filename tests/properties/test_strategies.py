@@ -1,4 +1,4 @@
-"""The hypothesis strategies of harness.strategies: what they draw and how they shrink.
+"""The hypothesis strategies of harness.testing.strategies: what they draw and how they shrink.
 
 Geometry in bohr, angles in rad. Distances, rotations and densities are recomputed
 here with numpy/scipy independently of the strategy code.
@@ -18,9 +18,9 @@ from hypothesis import strategies as st
 from hypothesis.errors import InvalidArgument
 
 import harness
-from harness import strategies as hs
-from harness.cases import load_catalogue
-from harness.problem import Problem
+from harness.testing import strategies as hs
+from harness.catalogue.cases import load_catalogue
+from harness.contract.problem import Problem
 
 SETTINGS = settings(max_examples=25, deadline=None,
                     suppress_health_check=[HealthCheck.too_slow])
@@ -50,7 +50,7 @@ def nao(case) -> int:
     ({"max_stretch": -0.01}, "max_stretch=-0.01 must be a number in [0, 0.25]"),
     ({"rotate": "yes"}, "rotate='yes' must be True or False"),
     ({"bases": "sto-3g"}, "bases='sto-3g' must be a list of basis names"),
-    ({"cases": []}, "cases must be a non-empty list of harness.cases.Case"),
+    ({"cases": []}, "cases must be a non-empty list of harness.catalogue.cases.Case"),
     ({"min_atoms": 50}, "no case has between 50 and any number of atoms"),
 ])
 def test_molecules_validates_its_arguments(kwargs, words):
@@ -67,7 +67,7 @@ def test_other_strategies_validate_their_arguments():
         hs.charge_multiplicity([8, 1, 1], max_charge=-1)
     with pytest.raises(InvalidArgument, match="max_angle=2 must be a number of radians"):
         hs.guesses(water.problem(), max_angle=2)
-    with pytest.raises(InvalidArgument, match="problem must be a harness.problem.Problem"):
+    with pytest.raises(InvalidArgument, match="problem must be a harness.contract.problem.Problem"):
         hs.guesses(water)
 
 

@@ -10,9 +10,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from harness import references as refs
-from harness.cases import load_catalogue
-from harness.problem import build_mole
+from harness.catalogue import references as refs
+from harness.catalogue.cases import load_catalogue
+from harness.contract.problem import build_mole
 
 
 @pytest.fixture(scope="module")

@@ -10,8 +10,8 @@ from __future__ import annotations
 
 import pytest
 
-from harness.cases import load_catalogue
-from harness.references import load_reference
+from harness.catalogue.cases import load_catalogue
+from harness.catalogue.references import load_reference
 
 HF_LIMITS = {
     "he-atom-cc-pvtz-rhf": -2.86167999563,   # He, Kobus, CPC 184, 799 (2013)

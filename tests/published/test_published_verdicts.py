@@ -12,11 +12,11 @@ import functools
 import numpy as np
 import pytest
 
-from harness.cases import load_catalogue
-from harness.evaluate import evaluate
-from harness.example_scf import solve
-from harness.references import reference_for
-from harness.solution import extract
+from harness.catalogue.cases import load_catalogue
+from harness.verdict.evaluate import evaluate
+from harness.testing.example_scf import solve
+from harness.catalogue.references import reference_for
+from harness.contract.solution import extract
 
 
 @functools.lru_cache(maxsize=None)

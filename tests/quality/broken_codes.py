@@ -1,5 +1,5 @@
 """The planted-bug plug-ins, importable from tests as ``broken_codes`` (they live in
-``harness.planted.core`` so that ``scf-harness selftest`` can run them too)."""
+``harness.testing.planted.core`` so that ``scf-harness selftest`` can run them too)."""
 
-from harness.planted.core import *  # noqa: F401,F403
-from harness.planted.core import degenerate_sets, stationarity_of  # noqa: F401
+from harness.testing.planted.core import *  # noqa: F401,F403
+from harness.testing.planted.core import degenerate_sets, stationarity_of  # noqa: F401

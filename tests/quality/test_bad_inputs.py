@@ -20,10 +20,10 @@ import pytest
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "external"))
 import solution_files as sf  # noqa: E402
 
-from harness.errors import HarnessError  # noqa: E402
-from harness.evaluate import evaluate  # noqa: E402
-from harness.external import CommandPlugin  # noqa: E402
-from harness.solution import MAX_ARRAY_ELEMENTS, extract  # noqa: E402
+from harness.contract.errors import HarnessError  # noqa: E402
+from harness.verdict.evaluate import evaluate  # noqa: E402
+from harness.run.external import CommandPlugin  # noqa: E402
+from harness.contract.solution import MAX_ARRAY_ELEMENTS, extract  # noqa: E402
 
 PY = sys.executable
 CASE = "h2-sto-3g-rhf"
@@ -457,12 +457,12 @@ def test_numbers_of_numeric_kinds_still_read():
 def test_huge_energy_through_the_runner(tmp_path):
     """Through the runner (the plug-in in its own process), energy = 10**400 fails the
     well-formed check with the key named, not as an unreadable return value."""
-    from harness.cases import load_catalogue
-    from harness.runner import run_cases
-    from harness.tolerances import Tolerances
+    from harness.catalogue.cases import load_catalogue
+    from harness.run.runner import run_cases
+    from harness.checks.tolerances import Tolerances
 
     plugin = tmp_path / "huge.py"
-    plugin.write_text("from harness.example_scf import solve\n\n\n"
+    plugin.write_text("from harness.testing.example_scf import solve\n\n\n"
                       "def run(problem):\n"
                       "    return dict(solve(problem), energy=10 ** 400)\n")
     result = run_cases([load_catalogue().case(CASE)], f"{plugin}:run",

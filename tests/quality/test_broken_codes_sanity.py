@@ -12,10 +12,10 @@ import pytest
 from pyscf import scf
 
 import broken_codes as bc
-from harness.example_scf import LabSCF, lowdin_powers, solve
-from harness.problem import Problem
-from harness.tolerances import IDEMPOTENCY
-from harness.units import HARTREE_IN_EV
+from harness.testing.example_scf import LabSCF, lowdin_powers, solve
+from harness.contract.problem import Problem
+from harness.checks.tolerances import IDEMPOTENCY
+from harness.contract.units import HARTREE_IN_EV
 
 # Water geometry (bohr): Crawford group "Programming Projects", Project #3, water/STO-3G.
 WATER = dict(numbers=[8, 1, 1], coordinates=[(0.0, -0.143225816552, 0.0),

@@ -1,4 +1,4 @@
-"""The diagnosis names the planted bug of every entry of ``harness.planted.hints``.
+"""The diagnosis names the planted bug of every entry of ``harness.testing.planted.hints``.
 
 For each entry: ``evaluate`` fails exactly the expected checks; ``diagnose`` attaches
 the expected hint to the expected check, hints only failing checks, and leaves every
@@ -15,16 +15,16 @@ import re
 import numpy as np
 import pytest
 
-from harness.cases import load_catalogue
-from harness.diagnosis import density_for_checks, diagnose
-from harness.evaluate import evaluate
-from harness.integrals import integrals_for
-from harness.planted import hints as planted
-from harness.planted.hints import ALSO_HINTS, CATALOGUE
-from harness.problem import Problem
-from harness.references import reference_for
-from harness.results import Status
-from harness.solution import extract
+from harness.catalogue.cases import load_catalogue
+from harness.verdict.diagnosis import density_for_checks, diagnose
+from harness.verdict.evaluate import evaluate
+from harness.backend.integrals import integrals_for
+from harness.testing.planted import hints as planted
+from harness.testing.planted.hints import ALSO_HINTS, CATALOGUE
+from harness.contract.problem import Problem
+from harness.catalogue.references import reference_for
+from harness.contract.results import Status
+from harness.contract.solution import extract
 
 #: The named Fock-fit and energy bugs; an entry's hint may name at most one of them.
 NAMED = ("exchange scaled by 2", "no exchange", "Coulomb from one spin only",

@@ -1,6 +1,6 @@
 """Planted integral and history bugs are caught by exactly the checks meant to catch them.
 
-Each entry of ``harness.planted.integrals.CATALOGUE`` runs on its case; the verdict is
+Each entry of ``harness.testing.planted.integrals.CATALOGUE`` runs on its case; the verdict is
 the union of ``evaluate`` and the integral and history checks (as evaluate will run them
 once they are wired in), and its failing set must equal the entry's ``fails``. Eh.
 """
@@ -11,17 +11,17 @@ import functools
 
 import pytest
 
-from harness import planted
-from harness.cases import load_catalogue
+from harness.testing import planted
+from harness.catalogue.cases import load_catalogue
 from harness.checks.history import history_from_results
 from harness.checks.integrals import integral_checks
-from harness.evaluate import evaluate
-from harness.integrals import integrals_for
-from harness.planted.integrals import CATALOGUE
-from harness.references import reference_for
-from harness.results import Status
-from harness.solution import extract
-from harness.tolerances import INTEGRAL_CHECK_NAMES, Tolerances
+from harness.verdict.evaluate import evaluate
+from harness.backend.integrals import integrals_for
+from harness.testing.planted.integrals import CATALOGUE
+from harness.catalogue.references import reference_for
+from harness.contract.results import Status
+from harness.contract.solution import extract
+from harness.checks.tolerances import INTEGRAL_CHECK_NAMES, Tolerances
 
 ENTRIES = {(p.name, p.case): p for p in CATALOGUE}
 

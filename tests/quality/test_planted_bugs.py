@@ -13,12 +13,12 @@ import functools
 import pytest
 
 import broken_codes as bc
-from harness.cases import load_catalogue
-from harness.evaluate import evaluate
-from harness.references import reference_for
-from harness.results import Status
-from harness.solution import extract
-from harness.planted.core import CATALOGUE as CORE
+from harness.catalogue.cases import load_catalogue
+from harness.verdict.evaluate import evaluate
+from harness.catalogue.references import reference_for
+from harness.contract.results import Status
+from harness.contract.solution import extract
+from harness.testing.planted.core import CATALOGUE as CORE
 
 RHF, UHF, ROHF = "water-sto-3g-rhf", "oh-sto-3g-uhf", "nh2-sto-3g-rohf"
 

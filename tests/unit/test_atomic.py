@@ -1,4 +1,4 @@
-"""harness.atomic.atomic_write: all or nothing, ordinary permissions, never onto a
+"""harness.run.atomic.atomic_write: all or nothing, ordinary permissions, never onto a
 folder, device or pipe."""
 
 from __future__ import annotations
@@ -8,7 +8,7 @@ import stat
 
 import pytest
 
-from harness.atomic import atomic_write
+from harness.run.atomic import atomic_write
 
 
 def fill(text):

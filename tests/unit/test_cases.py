@@ -8,11 +8,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from harness.cases import (REFERENCES_ENV, Case, load_catalogue, load_suite_file,
+from harness.catalogue.cases import (REFERENCES_ENV, Case, load_catalogue, load_suite_file,
                            read_xyz, default_reference_dir)
-from harness.errors import CaseError
-from harness.problem import Problem
-from harness.units import ANGSTROM_IN_BOHR
+from harness.contract.errors import CaseError
+from harness.contract.problem import Problem
+from harness.contract.units import ANGSTROM_IN_BOHR
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -295,7 +295,7 @@ def test_suite_file_field_errors(suite_dir, fields, message):
 def test_user_suite_may_not_reuse_a_catalogue_name(suite_dir):
     """A user case named like a catalogue case would share (and could overwrite) its
     stored reference."""
-    from harness.cases import load_user_suite
+    from harness.catalogue.cases import load_user_suite
 
     path = _write(suite_dir / "clash.toml", _one_case(name='"oh-sto-3g-uhf"'))
     with pytest.raises(CaseError) as err:

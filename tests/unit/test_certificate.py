@@ -1,4 +1,4 @@
-"""Certificates (harness/certificate.py): written, verified, every edit detected and
+"""Certificates (harness/report/certificate.py): written, verified, every edit detected and
 named, and recomputation reproduces every verdict. Energies in Eh."""
 
 from __future__ import annotations
@@ -8,16 +8,16 @@ import json
 import numpy as np
 import pytest
 
-from harness.cases import load_catalogue
-from harness.certificate import (CERTIFICATE_FORMAT, HASH_KEY, _digests, _whole_hash,
+from harness.catalogue.cases import load_catalogue
+from harness.report.certificate import (CERTIFICATE_FORMAT, HASH_KEY, _digests, _whole_hash,
                                  sidecar_path, solution_hash, summary_markdown,
                                  verify_certificate, write_certificate)
-from harness.evaluate import evaluate
-from harness.example_scf import solve
-from harness.references import reference_for
-from harness.results import CaseResult
-from harness.solution import Malformed, extract
-from harness.tolerances import Tolerances
+from harness.verdict.evaluate import evaluate
+from harness.testing.example_scf import solve
+from harness.catalogue.references import reference_for
+from harness.contract.results import CaseResult
+from harness.contract.solution import Malformed, extract
+from harness.checks.tolerances import Tolerances
 
 NAMES = ("h2-sto-3g-rhf", "oh-sto-3g-uhf")
 
@@ -46,7 +46,7 @@ def cert_path(tmp_path, run):
     results, problems, solutions, references, tol = run
     return write_certificate(tmp_path / "cert.json", results, problems=problems,
                              solutions=solutions, references=references, tolerances=tol,
-                             plugin="harness.example_scf:solve")
+                             plugin="harness.testing.example_scf:solve")
 
 
 def check_of(data, index, name):
@@ -71,7 +71,7 @@ class TestContent:
         assert cert["tolerances"] == {"factor": 10.0, "overrides": {"reference-energy": 2e-6}}
         results, problems, solutions, references, _ = run
         for entry, result in zip(cert["cases"], results):
-            from harness.references import input_hash
+            from harness.catalogue.references import input_hash
 
             assert entry["input_hash"] == input_hash(load_catalogue().case(entry["name"]))
             assert entry["solution"]["sha256"] == solution_hash(solutions[entry["name"]])

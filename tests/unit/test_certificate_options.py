@@ -2,7 +2,7 @@
 --ao-convention) and ``verify-certificate --recompute`` re-runs the checks with them;
 damaged certificate files are reported in one line each, never with a traceback.
 
-Commands run in this process through ``harness.cli.main`` (certify still runs the
+Commands run in this process through ``harness.ui.cli.main`` (certify still runs the
 plug-in in its own process). Energies in hartree (Eh).
 """
 
@@ -15,19 +15,19 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from harness.certificate import (EVALUATION_KEY, HASH_KEY, MAX_LISTED_PROBLEMS, _digests,
+from harness.report.certificate import (EVALUATION_KEY, HASH_KEY, MAX_LISTED_PROBLEMS, _digests,
                                  _whole_hash, sidecar_path, verify_certificate)
-from harness.cli import main
-from harness.tolerances import CHECK_NAMES
+from harness.ui.cli import main
+from harness.checks.tolerances import CHECK_NAMES
 
 H2 = "h2-sto-3g-rhf"
 WATER = "water-sto-3g-rhf"
 ERROR = "scf-harness: error: "
 
-#: A correct code in the p-yzx AO convention (harness.planted.conventions) that reports
+#: A correct code in the p-yzx AO convention (harness.testing.planted.conventions) that reports
 #: no overlap, so only --ao-convention p-yzx tells the harness its AO order.
 YZX_PLUGIN = '''
-from harness.planted.conventions import p_shells_yzx
+from harness.testing.planted.conventions import p_shells_yzx
 
 
 def solve(problem):
@@ -162,8 +162,8 @@ class TestOptionsRecorded:
                                     "recomputed passed")
 
     def test_check_result_stability_off(self, capsys, tmp_path):
-        from harness.cases import load_catalogue
-        from harness.example_scf import solve
+        from harness.catalogue.cases import load_catalogue
+        from harness.testing.example_scf import solve
 
         case = load_catalogue().case(H2)
         raw = solve(case.problem())

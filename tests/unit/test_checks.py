@@ -18,7 +18,7 @@ from harness.checks import (EnergyTerms, aufbau, commutator, density_consistency
 from harness.checks.energy import fock_from_terms
 from harness.checks.orthonormal import LINEAR_DEPENDENCE
 from harness.checks.wellformed import OCCUPATION_ROUNDING, SYMMETRY
-from harness.solution import extract
+from harness.contract.solution import extract
 
 #: Rounding-level bound for exact constructions with well-conditioned random matrices.
 EXACT = 1e-11

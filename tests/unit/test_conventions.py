@@ -1,4 +1,4 @@
-"""AO-convention detection and transformation (harness.conventions).
+"""AO-convention detection and transformation (harness.verdict.conventions).
 
 Code-convention arrays are built here with dense matrices M (χ_code = χ_ref M) and
 numpy products, independently of the module's compact transforms; pyscf supplies the
@@ -16,12 +16,12 @@ import pytest
 from pyscf import gto
 from pyscf.tools import molden
 
-from harness.conventions import (CONVENTION_MATCH, NAMED, BasisMismatch, Convention,
+from harness.verdict.conventions import (CONVENTION_MATCH, NAMED, BasisMismatch, Convention,
                                  detect_convention, named_convention, spectrum_distance)
-from harness.errors import HarnessError
-from harness.planted.conventions import shell_matrix, shells
-from harness.problem import build_mole
-from harness.solution import Malformed
+from harness.contract.errors import HarnessError
+from harness.testing.planted.conventions import shell_matrix, shells
+from harness.contract.problem import build_mole
+from harness.contract.solution import Malformed
 
 #: Water (bohr): Crawford group "Programming Projects", Project #3, water/STO-3G input.
 WATER = ((8, 1, 1), ((0.0, -0.143225816552, 0.0), (1.638036840407, 1.136548822547, 0.0),

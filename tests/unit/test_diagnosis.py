@@ -1,4 +1,4 @@
-"""Unit tests of ``harness.diagnosis`` on constructed inputs.
+"""Unit tests of ``harness.verdict.diagnosis`` on constructed inputs.
 
 The Fock fit recovers exact coefficients from random symmetric "terms", refuses collinear
 or under-determined fits, and names a bug only for an exact signature; the energy, count
@@ -13,10 +13,10 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 
-from harness import diagnosis as dg
+from harness.verdict import diagnosis as dg
 from harness.checks.energy import EnergyTerms
-from harness.results import CheckResult, Status
-from harness.units import ANGSTROM_IN_BOHR, HARTREE_IN_EV
+from harness.contract.results import CheckResult, Status
+from harness.contract.units import ANGSTROM_IN_BOHR, HARTREE_IN_EV
 
 NAO = 7
 RNG_SEED = 11

@@ -1,4 +1,4 @@
-"""Tests of ``harness.evaluate.evaluate``: every check on whole solutions.
+"""Tests of ``harness.verdict.evaluate.evaluate``: every check on whole solutions.
 
 Input: pyscf's own converged solutions of tiny molecules (water RHF, OH UHF and ROHF,
 all STO-3G; for ROHF the reported Fock is (Fα, Fβ)). Each planted perturbation must fail
@@ -14,10 +14,10 @@ import pytest
 from scipy.optimize import brentq
 
 from harness.checks.energy import energy_terms, fock_from_terms
-from harness.evaluate import evaluate
-from harness.results import Status
-from harness.solution import extract
-from harness.tolerances import CHECK_NAMES, CONVERGENCE_FACTOR, Tolerances
+from harness.verdict.evaluate import evaluate
+from harness.contract.results import Status
+from harness.contract.solution import extract
+from harness.checks.tolerances import CHECK_NAMES, CONVERGENCE_FACTOR, Tolerances
 
 #: Water RHF/STO-3G total energy, Crawford group Programming Projects #3 output
 #: (/work/shared/reference-values.md, item 1). Used as the stored reference.
@@ -27,7 +27,7 @@ ROHF_CONVENTION = "ROHF orbital energies depend on a canonicalisation convention
 
 
 def reference(e_total: float, s_squared: float = 0.0):
-    """A stand-in for a ``harness.references.Reference``: evaluate reads its total
+    """A stand-in for a ``harness.catalogue.references.Reference``: evaluate reads its total
     energy ``energy`` (Eh), ``s_squared`` and ``known_states``."""
     return types.SimpleNamespace(energy=float(e_total), s_squared=float(s_squared),
                                  known_states=())

@@ -13,10 +13,10 @@ import numpy as np
 import pytest
 from pyscf import scf
 
-from harness.example_scf import (LINEAR_DEPENDENCE, LabSCF, canonical_orthogonaliser,
+from harness.testing.example_scf import (LINEAR_DEPENDENCE, LabSCF, canonical_orthogonaliser,
                                  lowdin_powers, solve)
-from harness.problem import Problem
-from harness.units import ANGSTROM_IN_BOHR
+from harness.contract.problem import Problem
+from harness.contract.units import ANGSTROM_IN_BOHR
 
 #: Agreement required with pyscf's converged ground-state energy (the brief's 1e-7 Eh).
 ENERGY_AGREEMENT = 1e-7

@@ -1,4 +1,4 @@
-"""Reading solution files (harness/files.py): every format round-trips to the same
+"""Reading solution files (harness/run/files.py): every format round-trips to the same
 verdict as the Python plug-in, and every defect gives a one-line error naming file
 and key. Solutions come from the bundled example SCF code; energies in Eh."""
 
@@ -14,11 +14,11 @@ import pytest
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "external"))
 import solution_files as sf  # noqa: E402
 
-from harness.errors import CaseError, HarnessError  # noqa: E402
-from harness.evaluate import evaluate  # noqa: E402
-from harness.files import (SOLUTION_FORMAT, SolutionFileError, check_result,  # noqa: E402
+from harness.contract.errors import CaseError, HarnessError  # noqa: E402
+from harness.verdict.evaluate import evaluate  # noqa: E402
+from harness.run.files import (SOLUTION_FORMAT, SolutionFileError, check_result,  # noqa: E402
                            read_solution)
-from harness.solution import extract  # noqa: E402
+from harness.contract.solution import extract  # noqa: E402
 
 
 def failed_checks(name, raw):
@@ -333,10 +333,10 @@ class TestErrors:
 class TestCheckResult:
     def test_from_xyz_and_npz(self, tmp_path):
         """check_result builds the case from XYZ (Å) + options; the verdict passes."""
-        from harness.references import reference_for
+        from harness.catalogue.references import reference_for
 
         result = sf.solved("water-sto-3g-rhf")
-        ref_case = __import__("harness.cases", fromlist=["x"]).load_catalogue().case(
+        ref_case = __import__("harness.catalogue.cases", fromlist=["x"]).load_catalogue().case(
             "water-sto-3g-rhf")
         case, extracted = check_result(sf.write_npz(tmp_path / "s.npz", result),
                                        geometry=ref_case.geometry_file, basis="STO-3G",
@@ -361,7 +361,7 @@ class TestCheckResult:
 
 class TestResultCase:
     def test_defaults_and_validation(self, tmp_path):
-        from harness.files import result_case
+        from harness.run.files import result_case
 
         xyz = tmp_path / "OH radical.xyz"
         xyz.write_text("2\nOH units=bohr\nO 0 0 0\nH 0 0 1.83\n")

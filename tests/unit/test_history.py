@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from harness.checks import history as hi
-from harness.results import CheckResult, Status
+from harness.contract.results import CheckResult, Status
 
 CASE = "water-sto-3g-rhf"
 CONV = 1e-6

@@ -11,10 +11,10 @@ import numpy as np
 import pytest
 
 from harness.checks import integrals as ci
-from harness.integrals import integrals_for
-from harness.problem import Problem
-from harness.results import Status
-from harness.tolerances import CHECK_NAMES, FIXED, INTEGRAL_CHECK_NAMES, Tolerances
+from harness.backend.integrals import integrals_for
+from harness.contract.problem import Problem
+from harness.contract.results import Status
+from harness.checks.tolerances import CHECK_NAMES, FIXED, INTEGRAL_CHECK_NAMES, Tolerances
 
 # Water geometry (bohr): Crawford group "Programming Projects", Project #3, water/STO-3G
 # (the same geometry as tests/unit/conftest.py; not imported from there, since several

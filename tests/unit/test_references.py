@@ -9,9 +9,9 @@ import shutil
 import numpy as np
 import pytest
 
-from harness import references as refs
-from harness.cases import Case, load_catalogue
-from harness.errors import ReferenceDataError
+from harness.catalogue import references as refs
+from harness.catalogue.cases import Case, load_catalogue
+from harness.contract.errors import ReferenceDataError
 
 
 @pytest.fixture(scope="module")

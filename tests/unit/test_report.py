@@ -1,4 +1,4 @@
-"""Tests of harness.report: progress lines, the verdict table, the summary line, JSON."""
+"""Tests of harness.report.terminal: progress lines, the verdict table, the summary line, JSON."""
 
 from __future__ import annotations
 
@@ -8,10 +8,10 @@ import re
 
 import pytest
 
-from harness import report
-from harness.results import CaseResult, CheckResult, Status, judge, Measurement
-from harness.runner import RunOutcome
-from harness.tolerances import CHECK_NAMES, Tolerances
+from harness.report import terminal as report
+from harness.contract.results import CaseResult, CheckResult, Status, judge, Measurement
+from harness.run.runner import RunOutcome
+from harness.checks.tolerances import CHECK_NAMES, Tolerances
 
 ANSI = re.compile(r"\x1b\[")
 

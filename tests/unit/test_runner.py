@@ -1,4 +1,4 @@
-"""Tests of harness.runner: each case in its own process, failures kept to their case.
+"""Tests of harness.run.runner: each case in its own process, failures kept to their case.
 
 The checks and references are replaced by small fakes here (monkeypatched), so these
 tests exercise only the isolation: exceptions, timeouts, crashes, garbage, ordering,
@@ -17,13 +17,13 @@ from pathlib import Path
 
 import pytest
 
-from harness.evaluate import Verdict
+from harness.verdict.evaluate import Verdict
 
-from harness import runner
-from harness.errors import PluginLoadError
-from harness.problem import Problem
-from harness.results import CheckResult, Status
-from harness.tolerances import Tolerances
+from harness.run import runner
+from harness.contract.errors import PluginLoadError
+from harness.contract.problem import Problem
+from harness.contract.results import CheckResult, Status
+from harness.checks.tolerances import Tolerances
 
 PLUGINS = Path(__file__).resolve().parents[1] / "cli" / "plugins" / "misbehaving.py"
 
@@ -42,7 +42,7 @@ def line_of(text: str, path: Path = PLUGINS) -> int:
 
 @dataclasses.dataclass(frozen=True)
 class FakeCase:
-    """Stands in for harness.cases.Case: H2/STO-3G at R = 1.4 bohr under a given name."""
+    """Stands in for harness.catalogue.cases.Case: H2/STO-3G at R = 1.4 bohr under a given name."""
 
     name: str
     method: str = "rhf"
@@ -268,7 +268,7 @@ class TestCallablePluginsAndRecords:
         """A CommandPlugin (a callable, not a spec) runs the external code per case."""
         import sys
 
-        from harness.external import CommandPlugin
+        from harness.run.external import CommandPlugin
 
         plugin = CommandPlugin(f"{sys.executable} {self.LAB} --in {{problem}} "
                                f"--out {{solution}}", scratch_root=tmp_path, keep=True)

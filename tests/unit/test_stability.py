@@ -1,4 +1,4 @@
-"""Kernels of harness.stability: ⟨S²⟩, the energy-error estimate, stability, known states.
+"""Kernels of harness.verdict.states: ⟨S²⟩, the energy-error estimate, stability, known states.
 
 Energies in hartree (Eh), orbital-rotation angles in radians, coordinates in bohr. The
 pyscf solutions used as input come from conftest; every expected value here is computed
@@ -13,12 +13,12 @@ import numpy as np
 import pytest
 from pyscf.scf import stability as pyscf_stability
 
-from harness import stability as stab
-from harness.cases import load_catalogue
+from harness.verdict import states as stab
+from harness.catalogue.cases import load_catalogue
 from harness.checks.energy import fock_from_terms
-from harness.integrals import integrals_for
-from harness.references import KnownState, load_reference
-from harness.results import Status
+from harness.backend.integrals import integrals_for
+from harness.catalogue.references import KnownState, load_reference
+from harness.contract.results import Status
 
 
 def _orthonormal(s: np.ndarray, rng) -> np.ndarray:

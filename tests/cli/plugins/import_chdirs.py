@@ -6,6 +6,6 @@ os.chdir(os.path.dirname(os.path.abspath(__file__)) + "/..")
 
 
 def solve(problem):
-    from harness.example_scf import solve as example
+    from harness.testing.example_scf import solve as example
 
     return example(problem)

@@ -17,7 +17,7 @@ NOT_CALLABLE = 42
 
 
 def _example(problem):
-    from harness.example_scf import solve
+    from harness.testing.example_scf import solve
 
     return solve(problem)
 

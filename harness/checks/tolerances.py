@@ -1,0 +1,228 @@
+"""Named tolerances, one per check, each with the reason for its size.
+
+Two kinds:
+
+* fixed tolerances guard quantities that a correct code gets right to rounding error
+  whatever its convergence threshold (orthonormality, electron count, ...);
+* convergence-derived tolerances guard quantities that vanish only at self-consistency;
+  they are ``CONVERGENCE_FACTOR × problem.convergence``.
+
+Every value can be overridden per check (``--tol NAME=VALUE`` on the command line,
+``Tolerances(...).override({...})`` in Python). All energies in hartree (Eh).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from typing import Mapping
+
+from harness.contract.errors import ToleranceError
+
+#: Derived tolerances are this multiple of the requested convergence. Codes measure
+#: the orbital gradient in different orthonormal bases and norms (largest element in
+#: the MO basis, in the Löwdin basis, the 2-norm of the gradient vector); for the
+#: bases shipped these differ by less than a factor of ~5, so a code that stopped
+#: exactly at the requested threshold by any such measure passes, and one that
+#: stopped 100x looser fails.
+CONVERGENCE_FACTOR = 10.0
+
+#: max|CᵀSC − 1|. Generalised eigensolvers reach ~1e-14·cond(S); cond(S) stays below
+#: ~1e5 for the shipped bases, so 1e-8 leaves two orders of margin, while a real
+#: normalisation error (eigensolve ignoring S, orbitals normalised to 1 in the AO
+#: metric) is of order 1e-2 or more.
+ORTHONORMALITY = 1e-8
+
+#: max|S_code − S_ref|: analytic overlap integrals agree to ~1e-14 between programs;
+#: 1e-8 admits integral codes with looser primitive screening.
+OVERLAP = 1e-8
+
+#: max|P S P − P| per spin: exact for a density built from orthonormal orbitals, so the
+#: bound is set by orthonormality; 1e-8 also admits a density-DIIS code whose final
+#: density is idempotent to second order in a converged gradient.
+IDEMPOTENCY = 1e-8
+
+#: |Tr(P S) − N| per spin, in electrons: exact up to rounding for any correct density.
+ELECTRON_COUNT = 1e-8
+
+#: |E_reported − E[P_reported]| in Eh: both sides are evaluated on the same density, so
+#: only integral accuracy enters; 1e-8 admits codes with integral screening near 1e-10.
+ENERGY_CONSISTENCY = 1e-8
+
+#: |E − E_ref| in Eh: the default agreement required with the stored pyscf reference
+#: (a microhartree, the precision quoted for published SCF energies).
+REFERENCE_ENERGY = 1e-6
+
+#: ε_HOMO − ε_LUMO in Eh, per spin: exactly degenerate frontier orbitals are split only
+#: by convergence noise, so a small inversion is allowed.
+AUFBAU = 1e-6
+
+#: max|T_code − T_ref|, max|V_code − V_ref|, max|H_code − H_ref| (kinetic, nuclear
+#: attraction, core Hamiltonian against pyscf's): analytic one-electron integrals agree
+#: to ~1e-13 between programs, so the same 1e-8 as OVERLAP; a missing ½ in the kinetic
+#: operator or a wrong sign of V is of order 1 Eh.
+KINETIC = 1e-8
+NUCLEAR_ATTRACTION = 1e-8
+CORE_HAMILTONIAN = 1e-8
+
+#: −λ_min of the code's overlap matrix (the check passes when λ_min ≥ −this). S is the
+#: Gram matrix of the basis functions, so no eigenvalue can be negative beyond rounding
+#: (~1e-16 · ‖S‖ · nao ≈ 1e-13 for the shipped bases); the bound is on the negative side,
+#: not a small positive one, because nearly linearly dependent bases (diffuse functions)
+#: have eigenvalues legitimately approaching 0⁺ — the harness projects those below
+#: 1e-8 out of its Löwdin basis. A wrong overlap element typically gives λ_min ≈ −0.1.
+OVERLAP_DEFINITE = 1e-10
+
+#: −λ_min of the code's kinetic matrix: T_μν = ½⟨∇χ_μ|∇χ_ν⟩ is a Gram matrix of the
+#: gradients, positive definite for the same reason as S (a combination with vanishing
+#: gradient would be a constant, which is not normalisable); same rounding argument.
+KINETIC_DEFINITE = 1e-10
+
+#: max|(ij|kl)_code − (ij|kl)_ref| in Eh against pyscf's int2e: like OVERLAP, analytic
+#: integrals agree to ~1e-12 between programs; 1e-8 admits codes that screen integrals
+#: below ~1e-10. Physicists' ⟨ij|kl⟩ order instead of chemists' (ij|kl) is off by ~1 Eh.
+TWO_ELECTRON = 1e-8
+
+#: max|g − g_perm| over the 7 non-trivial permutations of the 8-fold symmetry
+#: (ij|kl) = (ji|kl) = (ij|lk) = (kl|ij) = …, in Eh. A code that unpacks a symmetry-
+#: packed array meets it exactly; one that computes every permutation separately meets
+#: it to integral accuracy (~1e-13, measured 5e-15 for pyscf's s1 tensors); 1e-10 is
+#: rounding level with margin for screening noise.
+TWO_ELECTRON_SYMMETRY = 1e-10
+
+#: max((ij|kl)² − (ij|ij)(kl|kl)) in Eh²: the Cauchy–Schwarz inequality of the Coulomb
+#: inner product, exact for correct integrals (measured ≤ 3e-16 for pyscf's tensors up
+#: to cc-pVTZ water); the slack admits screened integrals, whose error δ ≈ 1e-10 moves
+#: (ij|kl)² by ~2|(ij|kl)|δ ≈ 1e-9 for |(ij|kl)| ≈ 5 Eh.
+TWO_ELECTRON_SCHWARZ = 1e-8
+
+#: −λ_min of the supermatrix M[(ij),(kl)] = (ij|kl) restricted to symmetric pairs (the
+#: check passes when λ_min ≥ −this), in Eh. The Coulomb operator is positive, so M is
+#: positive semidefinite; products of basis functions are often linearly dependent
+#: (cartesian d: x²+y²+z² is s-like), so λ_min ≈ 0 is legitimate (measured −3e-14 for
+#: cc-pVTZ water): the bound is on the negative side. 1e-8 leaves room for screening
+#: (an element error of 1e-10 moves eigenvalues by far less than n_pairs × 1e-10).
+TWO_ELECTRON_DEFINITE = 1e-8
+
+#: The checks of which state the code found (harness.verdict.states). Their defaults and the
+#: reasons for them are next to their definitions there (STABILITY_EIGENVALUE in
+#: Eh/rad², SPIN_SQUARED_UHF, ENERGY_ERROR_BOUND in Eh); an override given here replaces
+#: that default (for spin-squared it applies to UHF, ROHF keeps its rounding bound).
+STATE_CHECK_NAMES = ("stability", "spin-squared", "energy-error-bound")
+
+#: The integral checks (harness.checks.integrals), in table order.
+INTEGRAL_CHECK_NAMES = (
+    "kinetic",
+    "nuclear-attraction",
+    "core-hamiltonian",
+    "overlap-definite",
+    "kinetic-definite",
+    "two-electron",
+    "two-electron-symmetry",
+    "two-electron-schwarz",
+    "two-electron-definite",
+)
+
+#: Every check, in the order evaluate returns them and the table shows them. "basis"
+#: (the AO convention) and "well-formed" have no tolerance; nor has "history", whose
+#: named thresholds are in harness/checks/history.py.
+CHECK_NAMES = (
+    "basis",
+    "well-formed",
+    "converged-flag",
+    "overlap",
+    "orthonormality",
+    "idempotency",
+    "electron-count",
+    "density-consistency",
+    "stationarity",
+    "self-consistency",
+    "roothaan-hall",
+    "energy-consistency",
+    "reference-energy",
+    "aufbau",
+) + STATE_CHECK_NAMES + INTEGRAL_CHECK_NAMES + ("history",)
+
+#: Checks whose tolerance is CONVERGENCE_FACTOR × convergence.
+DERIVED = ("density-consistency", "stationarity", "self-consistency", "roothaan-hall")
+
+FIXED = {
+    "overlap": OVERLAP,
+    "orthonormality": ORTHONORMALITY,
+    "idempotency": IDEMPOTENCY,
+    "electron-count": ELECTRON_COUNT,
+    "energy-consistency": ENERGY_CONSISTENCY,
+    "reference-energy": REFERENCE_ENERGY,
+    "aufbau": AUFBAU,
+    "kinetic": KINETIC,
+    "nuclear-attraction": NUCLEAR_ATTRACTION,
+    "core-hamiltonian": CORE_HAMILTONIAN,
+    "overlap-definite": OVERLAP_DEFINITE,
+    "kinetic-definite": KINETIC_DEFINITE,
+    "two-electron": TWO_ELECTRON,
+    "two-electron-symmetry": TWO_ELECTRON_SYMMETRY,
+    "two-electron-schwarz": TWO_ELECTRON_SCHWARZ,
+    "two-electron-definite": TWO_ELECTRON_DEFINITE,
+}
+
+
+def parse_override(text: str) -> tuple[str, float]:
+    """Parse ``NAME=VALUE`` (as given to ``--tol``) into a (check, tolerance) pair."""
+    name, sep, value = text.partition("=")
+    name = name.strip()
+    if not sep:
+        raise ToleranceError(f"expected NAME=VALUE, got {text!r}", field="--tol")
+    return name, _positive(name, value.strip())
+
+
+def _positive(name: str, value) -> float:
+    if name not in FIXED and name not in DERIVED and name not in STATE_CHECK_NAMES:
+        known = ", ".join(n for n in CHECK_NAMES
+                          if n in FIXED or n in DERIVED or n in STATE_CHECK_NAMES)
+        raise ToleranceError(f"unknown check {name!r} (known: {known})", field="--tol")
+    try:
+        if isinstance(value, bool):  # True would silently become 1.0
+            raise TypeError
+        x = float(value)
+    except (TypeError, ValueError):
+        raise ToleranceError(f"tolerance for {name} must be a number, got {value!r}",
+                             field="--tol") from None
+    if not (x > 0 and math.isfinite(x)):
+        raise ToleranceError(f"tolerance for {name} must be positive and finite, got {value!r}",
+                             field="--tol")
+    return x
+
+
+@dataclasses.dataclass(frozen=True)
+class Tolerances:
+    """Per-check tolerances; derived ones follow the problem's convergence.
+
+    ``overrides`` maps check names to absolute tolerances that replace the defaults.
+    """
+
+    overrides: Mapping[str, float] = dataclasses.field(default_factory=dict)
+    factor: float = CONVERGENCE_FACTOR
+
+    def __post_init__(self):
+        if not isinstance(self.overrides, Mapping):
+            raise ToleranceError(f"overrides must map check names to tolerances, got "
+                                 f"{type(self.overrides).__name__}", field="overrides")
+        checked = {name: _positive(name, value) for name, value in dict(self.overrides).items()}
+        object.__setattr__(self, "overrides", checked)
+
+    def for_check(self, name: str, convergence: float) -> float:
+        """The tolerance used for check ``name`` on a problem with this convergence."""
+        if name in self.overrides:
+            return self.overrides[name]
+        if name in DERIVED:
+            return self.factor * convergence
+        return FIXED[name]
+
+    def override(self, values: Mapping[str, float]) -> "Tolerances":
+        merged = dict(self.overrides)
+        merged.update(values)
+        return Tolerances(overrides=merged, factor=self.factor)
+
+    def table(self, convergence: float) -> dict[str, float]:
+        return {name: self.for_check(name, convergence) for name in CHECK_NAMES
+                if name in FIXED or name in DERIVED}

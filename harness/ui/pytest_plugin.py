@@ -1,0 +1,357 @@
+"""pytest plug-in: run your SCF code through the harness's cases as ordinary test items.
+
+Registered through the ``pytest11`` entry point ``scf_harness``, so it is loaded in every
+pytest run of an environment where scf-harness is installed. Until it is asked to do
+something it does nothing: it adds its options, a marker and three fixtures, reads the
+``[tool.scf-harness]`` table of the project's pyproject.toml (pytest's ``inipath`` if that
+is a pyproject.toml, else ``rootpath / "pyproject.toml"``; never the current directory),
+and imports nothing heavy (no numpy, pyscf or rich).
+
+With a plug-in configured (``--scf-plugin mypkg.scf:solve`` or ``plugin = "..."`` in the
+table) it generates one test item per case of the chosen suites, named exactly by the
+case (``water-sto-3g-rhf``; node id ``scf-harness::water-sto-3g-rhf``), marked
+``scf_harness``. ``-k``, ``-m``, ``-x`` and ``--lf`` work on them as on any test; each
+item is self-contained (no shared state, so xdist can distribute them). An item runs its
+case through ``harness.run.runner.run_cases`` (the plug-in in a child process) and fails when
+the case fails; the failure report starts with the failing checks' one-line messages and
+hints, then the verdict table, then a ``reproduce: scf-harness certify ...`` line.
+
+Options (group "scf-harness"; each also a key of ``[tool.scf-harness]``, the flag wins):
+``--scf-plugin``, ``--scf-suite``, ``--scf-cases-file``, ``--scf-tol``, ``--scf-timeout``,
+``--scf-convergence``, ``--scf-stability``. pytest's ``addini`` is not used: ini keys live in
+``[tool.pytest.ini_options]``, and the harness's own table is read by
+:mod:`harness.ui.config`, so that flag and key have one parser and one meaning.
+
+Fixtures for your own tests: ``scf_case`` (``scf_case("water-sto-3g-rhf") -> Case``),
+``scf_reference`` (``scf_reference(case) -> Reference``, the stored pyscf reference) and
+``scf_check`` (``scf_check(solution, case)`` runs every check and raises a readable
+AssertionError). Atomic units throughout: bohr, hartree (Eh).
+"""
+
+from __future__ import annotations
+
+import io
+from typing import Any
+
+import pytest
+
+from harness.ui import config as _config
+from harness.contract.errors import CaseError, HarnessError
+
+#: Node id (and name) of the collector that holds the generated case items.
+SUITE_NODE = "scf-harness"
+#: Marker put on every generated item (``-m scf_harness`` / ``-m "not scf_harness"``).
+MARKER = "scf_harness"
+#: Width (characters) the verdict table of a failure report may take: wide enough that
+#: no column is cut (a table only takes the width it needs); CI logs do not wrap.
+VERDICT_WIDTH = 400
+
+_SETTINGS = pytest.StashKey[_config.Settings]()
+
+
+# --------------------------------------------------------------------------- options
+
+
+def pytest_addoption(parser: pytest.Parser) -> None:
+    group = parser.getgroup("scf-harness", "scf-harness: run an SCF code on the harness's "
+                            "cases (also settable in [tool.scf-harness] of pyproject.toml; "
+                            "a flag wins over its key). Atomic units (bohr, Eh)")
+    group.addoption("--scf-plugin", dest="scf_plugin", default=None,
+                    metavar="MODULE:FUNCTION",
+                    help="the SCF function to check (MODULE:FUNCTION or path/to/file.py:"
+                    "FUNCTION); generates one test item per case. Key: plugin. "
+                    "Default: none (no items)")
+    group.addoption("--scf-suite", dest="scf_suite", action="append", default=None,
+                    metavar="NAME",
+                    help="catalogue suite to run (repeatable). Key: suite (a name or a list). "
+                    f"Default: {_config.DEFAULT_SUITE}, or none with a cases file")
+    group.addoption("--scf-cases-file", dest="scf_cases_file", default=None, metavar="FILE",
+                    help="a TOML suite file of your own ([[case]] tables as in the catalogue, "
+                    "geometry paths relative to it); its cases run too. Key: cases_file "
+                    "(relative to the pyproject.toml). Default: none")
+    group.addoption("--scf-tol", dest="scf_tol", action="append", default=None,
+                    metavar="CHECK=VALUE",
+                    help="absolute tolerance of one check, e.g. reference-energy=1e-5 (Eh for "
+                    "energies; repeatable; replaces the key's value for that check only). "
+                    "Key: tolerances = {check = value}. Default: the documented values in "
+                    "harness.checks.tolerances")
+    group.addoption("--scf-timeout", dest="scf_timeout", default=None, metavar="S",
+                    help="seconds allowed for the plug-in on one case. Key: timeout. "
+                    f"Default: {_config.DEFAULT_TIMEOUT:g}")
+    group.addoption("--scf-convergence", dest="scf_convergence", default=None, metavar="X",
+                    help="stationarity asked of the plug-in: max|X(FPS - SPF)X|, X = S^-1/2, "
+                    "in (0, 1); the derived tolerances follow it. Key: convergence. "
+                    f"Default: {_config.DEFAULT_CONVERGENCE:g}")
+    group.addoption("--scf-stability", dest="scf_stability", default=None,
+                    metavar="|".join(_config.STABILITY_CHOICES),
+                    help="orbital stability analysis of the code's solution, as certify "
+                    "--stability: internal (within the method), external (RHF also against "
+                    "UHF), off. Key: stability. "
+                    f"Default: {_config.DEFAULT_STABILITY}")
+
+
+def pytest_configure(config: pytest.Config) -> None:
+    config.addinivalue_line("markers", f"{MARKER}: a case run through the SCF plug-in by "
+                            "scf-harness (generated by --scf-plugin or [tool.scf-harness])")
+    opt = config.option
+    try:
+        flags = _config.parse_flags(
+            plugin=getattr(opt, "scf_plugin", None), suites=getattr(opt, "scf_suite", None),
+            tolerances=getattr(opt, "scf_tol", None), timeout=getattr(opt, "scf_timeout", None),
+            convergence=getattr(opt, "scf_convergence", None),
+            stability=getattr(opt, "scf_stability", None),
+            cases_file=getattr(opt, "scf_cases_file", None),
+            base=config.invocation_params.dir)
+        pyproject = _config.pyproject_for(config.rootpath, config.inipath)
+        settings = _config.load_settings(pyproject, flags)
+    except HarnessError as exc:
+        raise pytest.UsageError(f"scf-harness: {exc}") from None
+    if not settings.active:
+        unused = [f"--scf-{name.replace('_', '-')}" for name in ("suite", "cases_file", "timeout")
+                  if name in flags]
+        if unused:
+            raise pytest.UsageError(f"scf-harness: {', '.join(unused)} needs a plug-in "
+                                    "(--scf-plugin, or plugin in [tool.scf-harness])")
+    config.stash[_SETTINGS] = settings
+
+
+def settings_of(config: pytest.Config) -> _config.Settings:
+    """The resolved scf-harness settings of this pytest run (defaults if unconfigured)."""
+    return config.stash.get(_SETTINGS, _config.Settings())
+
+
+def pytest_report_header(config: pytest.Config) -> str | None:
+    settings = settings_of(config)
+    if not settings.active:
+        return None
+    source = f" (settings from {settings.source})" if settings.source else ""
+    chosen = [f"suite {', '.join(settings.suites)}"] if settings.suites else []
+    if settings.cases_file is not None:
+        chosen.append(f"cases file {settings.cases_file}")
+    return (f"scf-harness: {settings.plugin} on {' and '.join(chosen)}, "
+            f"timeout {settings.timeout:g} s, stability {settings.stability}{source}")
+
+
+# --------------------------------------------------------------------------- collection
+
+
+@pytest.hookimpl(tryfirst=True)
+def pytest_collection_modifyitems(session: pytest.Session, config: pytest.Config,
+                                  items: list) -> None:
+    """Append one item per case (before -k/-m deselection and --lf filtering run)."""
+    if not settings_of(config).active:
+        return
+    suite = CaseSuite.from_parent(session, name=SUITE_NODE, nodeid=SUITE_NODE)
+    generated = suite.collect()
+    config.hook.pytest_collectreport(
+        report=pytest.CollectReport(suite.nodeid, "passed", None, generated))
+    items.extend(generated)
+
+
+class CaseSuite(pytest.Collector):
+    """The generated cases of the configured suites (catalogue order), then those of the
+    cases file (its order); no duplicates."""
+
+    def collect(self) -> list["CaseItem"]:
+        from harness.catalogue.cases import load_catalogue, load_user_suite
+        from harness.run.runner import check_plugin
+
+        settings = settings_of(self.config)
+        try:
+            catalogue = load_catalogue()
+            chosen = [case for suite in settings.suites for case in catalogue.suite(suite)]
+            if settings.cases_file is not None:
+                chosen.extend(load_user_suite(settings.cases_file, catalogue))
+            cases, seen = [], set()
+            for case in chosen:
+                if case.name not in seen:
+                    seen.add(case.name)
+                    cases.append(case)
+            # a bad spec is a usage error, reported once; loaded in a child process
+            check_plugin(settings.plugin, timeout=settings.timeout)
+        except HarnessError as exc:
+            raise pytest.UsageError(f"scf-harness: {exc}") from None
+        return [CaseItem.from_parent(self, name=case.name, case=case) for case in cases]
+
+
+class CaseFailed(Exception):
+    """Raised by a case item whose case failed; carries the CaseResult."""
+
+    def __init__(self, result, reproduce: str):
+        super().__init__(result.name)
+        self.result = result
+        self.reproduce = reproduce
+
+
+class CaseItem(pytest.Item):
+    """One catalogue case run through the configured plug-in (in a child process)."""
+
+    def __init__(self, *, case, **kwargs):
+        super().__init__(**kwargs)
+        self.case = case
+        self.add_marker(MARKER)
+
+    def runtest(self) -> None:
+        from harness.run.runner import run_cases
+        from harness.checks.tolerances import Tolerances
+
+        settings = settings_of(self.config)
+        outcome = run_cases([self.case], settings.plugin,
+                            tolerances=Tolerances(overrides=dict(settings.tolerances)),
+                            timeout=settings.timeout, convergence=settings.convergence,
+                            stability=settings.stability, plugin_checked=True)
+        if outcome.interrupted or not outcome.cases:
+            raise KeyboardInterrupt
+        result = outcome.cases[0]
+        self.user_properties.append(("scf-harness energy (Eh)", result.energy))
+        if not result.passed:
+            raise CaseFailed(result, settings.reproduce_command(self.case.name))
+
+    def repr_failure(self, excinfo, style=None):
+        if isinstance(excinfo.value, CaseFailed):
+            return failure_report(excinfo.value.result, excinfo.value.reproduce)
+        if isinstance(excinfo.value, HarnessError):
+            return str(excinfo.value)
+        return super().repr_failure(excinfo, style=style)
+
+    def reportinfo(self):
+        return self.path, None, f"scf-harness case {self.case.name}"
+
+
+def failure_report(result, reproduce: str) -> str:
+    """The text pytest shows for a failed case: the failing checks' one-line messages
+    (and hints), a blank line, the verdict table, a blank line, ``reproduce: <command>``."""
+    lines = []
+    if result.error is not None:
+        lines.append(result.error)
+    for check in result.failures:
+        lines.append(check.message)
+        if check.hint:
+            lines.append(f"  hint: {check.hint}")
+    if not lines:
+        lines.append(f"{result.name}: no check passed")
+    lines += ["", verdict_text([result]), "", f"reproduce: {reproduce}"]
+    return "\n".join(lines)
+
+
+def verdict_text(results) -> str:
+    """``harness.report.terminal.verdict_table`` rendered as plain text (no colour, no column cut)."""
+    from rich.console import Console
+
+    from harness.report.terminal import PLAIN_WIDTH, verdict_table
+
+    buffer = io.StringIO()
+    console = Console(file=buffer, width=max(PLAIN_WIDTH, VERDICT_WIDTH), no_color=True,
+                      color_system=None, force_terminal=False, highlight=False, emoji=False)
+    console.print(verdict_table(list(results), console))
+    return "\n".join(line.rstrip() for line in buffer.getvalue().rstrip("\n").splitlines())
+
+
+# --------------------------------------------------------------------------- fixtures
+
+
+@pytest.fixture(scope="session")
+def scf_case():
+    """A loader of catalogue cases: ``scf_case("water-sto-3g-rhf") -> Case`` (bohr).
+
+    An unknown name raises a one-line CaseError with the closest names.
+    """
+    loaded: dict[str, Any] = {}
+
+    def load(name: str):
+        __tracebackhide__ = True
+        from harness.catalogue.cases import load_catalogue
+
+        if "catalogue" not in loaded:
+            loaded["catalogue"] = load_catalogue()
+        return loaded["catalogue"].case(name)
+
+    return load
+
+
+@pytest.fixture(scope="session")
+def scf_reference(scf_case):
+    """``scf_reference(case) -> Reference``: the stored pyscf reference of a case (or of a
+    case name); energies in Eh. Raises a one-line ReferenceDataError when none is stored
+    or the stored one no longer matches the case."""
+
+    def reference(case):
+        __tracebackhide__ = True
+        from harness.catalogue.cases import Case
+        from harness.catalogue.references import load_reference
+
+        case = scf_case(case) if isinstance(case, str) else case
+        if not isinstance(case, Case):
+            raise CaseError(f"expected a Case or a case name, got {type(case).__name__}",
+                            field="scf_reference")
+        return load_reference(case)
+
+    return reference
+
+
+@pytest.fixture
+def scf_check(request, scf_case):
+    """``scf_check(solution, case, *, reference=None)`` runs every harness check.
+
+    ``solution`` is a plug-in return value (Eh); ``case`` a Case, a case name or a
+    Problem (bohr). The reference energy is the stored reference of a Case when it
+    matches (pass ``reference=`` to give one; a Problem has none). Tolerances and
+    convergence and the stability mode come from ``--scf-tol`` / ``--scf-convergence`` /
+    ``--scf-stability`` or [tool.scf-harness].
+    Returns the CheckResults when no check fails; otherwise raises AssertionError whose
+    first line is the first failing check's message, followed by the others.
+    """
+    settings = settings_of(request.config)
+
+    def check(solution, case, *, reference=None):
+        __tracebackhide__ = True
+        from harness.verdict.evaluate import evaluate
+        from harness.contract.problem import Problem
+        from harness.contract.solution import extract
+        from harness.checks.tolerances import Tolerances
+
+        from harness.catalogue.cases import Case
+
+        if isinstance(case, str):
+            case = scf_case(case)
+        if not isinstance(case, (Case, Problem)):
+            raise CaseError(f"expected a Case, a case name or a Problem, got "
+                            f"{type(case).__name__}", field="scf_check")
+        if reference is not None and not hasattr(reference, "energy"):
+            raise CaseError(f"reference: expected a Reference (from scf_reference), got "
+                            f"{type(reference).__name__}", field="scf_check")
+        if isinstance(case, Problem):
+            problem = case
+        else:
+            problem = (case.problem() if settings.convergence is None
+                       else case.problem(convergence=settings.convergence))
+            if reference is None:
+                reference = _stored_reference(case)
+        try:
+            extracted = extract(solution)
+        except (TypeError, HarnessError) as exc:
+            raise AssertionError(f"the solution is not readable: {exc}") from None
+        results = evaluate(problem, extracted, reference,
+                           Tolerances(overrides=dict(settings.tolerances)),
+                           stability=settings.stability)
+        failures = [r for r in results if r.passed is False]
+        if failures:
+            lines = []
+            for r in failures:
+                lines.append(r.message)
+                if r.hint:
+                    lines.append(f"  hint: {r.hint}")
+            raise AssertionError("\n".join(lines))
+        return results
+
+    return check
+
+
+def _stored_reference(case):
+    from harness.contract.errors import ReferenceDataError
+    from harness.catalogue.references import load_reference
+
+    try:
+        return load_reference(case)
+    except ReferenceDataError:
+        return None

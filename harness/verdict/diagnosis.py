@@ -1,0 +1,598 @@
+"""Same-density diagnosis: which term of a failing solution is wrong.
+
+From the density P the checks used (the code's reported density, or C n Cᵀ), pyscf
+rebuilds every term of the Hartree–Fock Fock matrix and energy in the same basis; our
+numpy compares them with what the code reported and names the wrong term:
+
+1. Fock fit: the code's Fσ as a least-squares combination of T, V, J and K of P;
+2. energy split: E − E[P] compared with E_nuc, E_K, E_J + E_K, ...;
+3. electron count: Tr(P S) compared with N/2, 2N, N ± 2;
+4. orbital energies: ε compared with the Rayleigh quotients cᵀFc / cᵀSc.
+
+A hint is given only for a check that failed and only when the evidence is sharp (the
+named constants below); otherwise none — no hint is better than a wrong one.
+Atomic units throughout: bohr, hartree (Eh), electrons. Pure: no I/O.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from typing import Mapping
+
+import numpy as np
+
+from harness.checks import energy as _energy
+from harness.checks.spin import density_by_spin, density_from_orbitals, fock_by_spin
+from harness.checks.spin import orbitals_by_spin
+from harness.contract.units import ANGSTROM_IN_BOHR, HARTREE_IN_EV
+
+# --------------------------------------------------------------------------- constants
+
+#: A Fock fit is confident only if ‖F − Σ c_k R_k‖ / ‖F‖ (upper triangle) is at most this:
+#: a Fock matrix built from the same density with other integral code reproduces ours to
+#: ~1e-10 relative; anything above 1e-6 means F is not a fixed combination of the terms
+#: of this density (e.g. the Fock of another iterate), and then no coefficient is trusted.
+FIT_RESIDUAL = 1e-6
+#: A fitted coefficient matches a signature when it is within this of the signature's
+#: value; the buggy factors named here (0, ½, 2, −1, ...) are ≥ 0.25 apart.
+COEFFICIENT_MATCH = 1e-3
+#: Largest propagated uncertainty ‖r‖·‖row k of A⁺‖ of a coefficient in a confident fit:
+#: a tenth of COEFFICIENT_MATCH, so noise cannot move a coefficient onto a signature.
+COEFFICIENT_UNCERTAINTY = 1e-4
+#: Condition number of the column-normalised regressor matrix above which the terms are
+#: not separable (collinear); double precision leaves ~1e-16·cond in the coefficients.
+MAX_CONDITION = 1e6
+#: A fit needs at least this many upper-triangle elements per regressor (fewer: an
+#: almost exactly determined system fits anything, e.g. H₂ in a minimal basis).
+EQUATIONS_PER_TERM = 3
+#: Columns with a norm below this fraction of the largest are empty (e.g. J(Pβ) with no
+#: beta electrons) and their coefficient is undetermined.
+EMPTY_COLUMN = 1e-12
+
+#: |E − E[P] − signature| (Eh) for an energy signature to match: both sides are computed
+#: from the same density, so only integral accuracy (~1e-10 Eh) and the code's rounding
+#: enter; 1e-6 Eh is the precision of published SCF energies.
+ENERGY_MATCH = 1e-6
+#: A matched energy signature is used only when every other candidate is at least this
+#: far (Eh) from E − E[P]: e.g. for two electrons E_J + E_K = −E_K exactly, and then
+#: neither "two-electron energy double counted" nor "exchange energy missing" is said.
+ENERGY_SEPARATION = 1e-4
+#: The "energy of another iterate" guess is offered only for |E − E[P]| below this (Eh):
+#: successive SCF iterates differ by up to millihartrees, larger gaps are something else.
+ITERATE_ENERGY = 1e-2
+
+#: |Tr(P S) − signature| (electrons) for a count signature to match: exact up to rounding.
+COUNT_MATCH = 1e-6
+
+#: max|ε − ε_signature| (Eh) over the orbitals compared for an orbital-energy signature:
+#: the Rayleigh quotient of converged orbitals agrees with ε to second order in the
+#: gradient, far below 1e-5 Eh for any code that passes stationarity.
+ORBITAL_MATCH = 1e-5
+#: Smallest constant virtual-orbital shift (Eh) named a level shift: ten times the match.
+MIN_SHIFT = 10 * ORBITAL_MATCH
+#: A constant shift is recognised only on at least this many virtual orbitals of a spin
+#: (a single virtual orbital's error is always "constant").
+MIN_SHIFTED_VIRTUALS = 2
+
+
+# --------------------------------------------------------------------------- results
+
+
+@dataclasses.dataclass(frozen=True)
+class Diagnosis:
+    """Hints for failing checks (check name → one line) and the numbers behind them.
+
+    ``analysis`` is JSON-serialisable: ``fock_fit``, ``energy``, ``electron_count``,
+    ``orbital_energies`` (each present when computed). Energies in Eh.
+    """
+
+    hints: dict
+    analysis: dict
+
+
+@dataclasses.dataclass(frozen=True)
+class FockFit:
+    """Least-squares fit F ≈ Σ_k c_k R_k over the upper triangle of one Fock matrix.
+
+    ``coefficients`` are NaN for empty regressors; ``residual`` is relative to ‖F‖;
+    ``condition`` is that of the column-normalised regressor matrix; ``uncertainty`` the
+    propagated coefficient uncertainty ‖r‖·‖row k of A⁺‖. ``separable`` is False when the
+    regressors are collinear or too few elements are available (coefficients then NaN).
+    """
+
+    names: tuple
+    coefficients: tuple
+    residual: float
+    condition: float
+    uncertainty: tuple
+    separable: bool
+
+    @property
+    def confident(self) -> bool:
+        """Residual ≤ FIT_RESIDUAL and every determined coefficient's uncertainty small."""
+        unc = [u for u in self.uncertainty if np.isfinite(u)]
+        return bool(self.separable and self.residual <= FIT_RESIDUAL
+                    and all(u <= COEFFICIENT_UNCERTAINTY for u in unc) and unc)
+
+    def to_json(self) -> dict:
+        return {"terms": list(self.names), "coefficients": [_num(c) for c in self.coefficients],
+                "residual": _num(self.residual), "condition": _num(self.condition),
+                "uncertainty": [_num(u) for u in self.uncertainty],
+                "separable": self.separable, "confident": self.confident}
+
+
+def _num(x):
+    x = float(x)
+    return x if np.isfinite(x) else None
+
+
+# --------------------------------------------------------------------------- Fock fit
+
+
+def fock_fit(f: np.ndarray, regressors: Mapping[str, np.ndarray]) -> FockFit:
+    """Least squares F ≈ Σ_k c_k R_k over the upper-triangle elements (i ≤ j).
+
+    min_c ‖a − A c‖ with a = F_ij, A_ik = (R_k)_ij; solved on unit-norm columns by SVD.
+    residual = ‖a − A c‖ / ‖a‖; condition = σ_max/σ_min of the normalised A; uncertainty
+    of c_k = ‖a − A c‖ · ‖(A⁺)_k‖. Empty columns (norm < EMPTY_COLUMN × the largest) get
+    NaN. Not separable (all NaN) when condition > MAX_CONDITION or fewer than
+    EQUATIONS_PER_TERM elements per regressor. Units: those of F (Eh).
+    """
+    names = tuple(regressors)
+    iu = np.triu_indices(f.shape[-1])
+    a = np.asarray(f)[iu]
+    cols = np.stack([np.asarray(regressors[n])[iu] for n in names], axis=1)
+    norms = np.linalg.norm(cols, axis=0)
+    live = norms > EMPTY_COLUMN * norms.max()
+    nan = tuple(float("nan") for _ in names)
+    scale = float(np.linalg.norm(a)) or 1.0
+    if a.size < EQUATIONS_PER_TERM * int(live.sum()):
+        return FockFit(names, nan, float("nan"), float("inf"), nan, False)
+    an = cols[:, live] / norms[live]
+    u, sv, vt = np.linalg.svd(an, full_matrices=False)
+    condition = float(sv[0] / sv[-1]) if sv[-1] > 0 else float("inf")
+    if condition > MAX_CONDITION:
+        return FockFit(names, nan, float("nan"), condition, nan, False)
+    pinv = (vt.T / sv) @ u.T  # (k, m)
+    cn = pinv @ a
+    r = float(np.linalg.norm(a - an @ cn))
+    c = np.full(len(names), np.nan)
+    unc = np.full(len(names), np.nan)
+    c[live] = cn / norms[live]
+    unc[live] = r * np.linalg.norm(pinv, axis=1) / norms[live]
+    return FockFit(names, tuple(map(float, c)), r / scale, condition, tuple(map(float, unc)),
+                   True)
+
+
+def fock_terms(method: str, t, v, j, k, merged: bool) -> list[tuple[str, dict, dict]]:
+    """Per spin: (label, regressors, expected coefficients) for :func:`fock_fit`.
+
+    j, k: J(Pσ), K(Pσ) per density component ((1, …) RHF with P total; (2, …) UHF/ROHF).
+    RHF F = T + V + J(P) − ½K(P). UHF/ROHF Fα = T + V + J(Pα) + J(Pβ) − K(Pα) (β alike).
+    ``merged`` (Pα ≈ Pβ): regressors T, V, J(P) = J(Pα) + J(Pβ), K(Pσ); Fσ = T+V+J(P)−K(Pσ).
+    """
+    if method == "rhf":
+        return [("Fock", {"T": t, "V": v, "J": j[0], "K": k[0]},
+                 {"T": 1.0, "V": 1.0, "J": 1.0, "K": -0.5})]
+    if merged:
+        terms = {"T": t, "V": v, "J(P)": j[0] + j[1], "K(Pσ)": 0.5 * (k[0] + k[1])}
+        expected = {"T": 1.0, "V": 1.0, "J(P)": 1.0, "K(Pσ)": -1.0}
+        return [("Fα", terms, expected), ("Fβ", terms, expected)]
+    terms = {"T": t, "V": v, "J(Pα)": j[0], "J(Pβ)": j[1], "K(Pα)": k[0], "K(Pβ)": k[1]}
+    return [("Fα", terms, {"T": 1.0, "V": 1.0, "J(Pα)": 1.0, "J(Pβ)": 1.0,
+                           "K(Pα)": -1.0, "K(Pβ)": 0.0}),
+            ("Fβ", terms, {"T": 1.0, "V": 1.0, "J(Pα)": 1.0, "J(Pβ)": 1.0,
+                           "K(Pα)": 0.0, "K(Pβ)": -1.0})]
+
+
+def fit_fock(method: str, f, t, v, j, k) -> list[tuple[str, FockFit, dict]]:
+    """Per-spin fits (label, fit, expected) of the code's F (leading spin axis, Eh).
+
+    UHF/ROHF: when the six separate terms do not give a confident fit for every spin —
+    typically a closed-shell-like density, Pα ≈ Pβ, where J(Pα) ≈ J(Pβ) and K(Pα) ≈ K(Pβ)
+    are collinear — the merged terms T, V, J(P), K(Pσ) = ½(K(Pα) + K(Pβ)) are fitted and
+    used if they fit confidently (they describe F within the stated residual).
+    """
+    def run(merged):
+        return [(label, fock_fit(fs, terms), exp)
+                for (label, terms, exp), fs in zip(fock_terms(method, t, v, j, k, merged), f)]
+
+    fits = run(False)
+    if method != "rhf" and not all(fit.confident for _, fit, _ in fits):
+        merged = run(True)
+        if all(fit.confident for _, fit, _ in merged):
+            return merged
+    return fits
+
+
+def fock_signatures(label: str, expected: Mapping[str, float]) -> dict[str, list[dict]]:
+    """Named bugs as coefficient vectors (each name may have several variants).
+
+    RHF: "exchange scaled by 2" K = −1; "no exchange" K = 0; "core Hamiltonian missing
+    kinetic energy" T = 0; "missing nuclear attraction" V = 0. UHF (own spin σ, other σ'):
+    "exchange scaled by 2" K(Pσ) = −2; "no exchange" K(Pσ) = 0; "Coulomb from one spin
+    only" J(Pσ') = 0 or J(Pσ) = 0; "exchange built from the total density" K(Pσ') = −1.
+    Merged UHF: K(Pσ) = −2 is "exchange scaled by 2 or built from the total density",
+    J(P) = ½ "Coulomb from one spin only".
+    """
+    def variant(**changes):
+        out = dict(expected)
+        out.update({key.replace("_", " "): value for key, value in changes.items()})
+        return out
+
+    sig = {"core Hamiltonian missing kinetic energy": [variant(T=0.0)],
+           "missing nuclear attraction": [variant(V=0.0)]}
+    if "K" in expected:
+        sig["exchange scaled by 2"] = [variant(K=-1.0)]
+        sig["no exchange"] = [variant(K=0.0)]
+        return sig
+    if "K(Pσ)" in expected:
+        sig["exchange scaled by 2 or built from the total density (Pα ≈ Pβ: not separable)"] = [
+            {**expected, "K(Pσ)": -2.0}]
+        sig["no exchange"] = [{**expected, "K(Pσ)": 0.0}]
+        sig["Coulomb from one spin only (Pα ≈ Pβ: not separable)"] = [{**expected, "J(P)": 0.5}]
+        return sig
+    own, other = ("α", "β") if label == "Fα" else ("β", "α")
+    sig["exchange scaled by 2"] = [{**expected, f"K(P{own})": -2.0}]
+    sig["no exchange"] = [{**expected, f"K(P{own})": 0.0}]
+    sig["Coulomb from one spin only"] = [{**expected, f"J(P{other})": 0.0},
+                                         {**expected, f"J(P{own})": 0.0}]
+    sig["exchange built from the total density"] = [{**expected, f"K(P{other})": -1.0}]
+    return sig
+
+
+def matches(fit: FockFit, target: Mapping[str, float]) -> bool:
+    """Every determined coefficient within COEFFICIENT_MATCH of ``target``."""
+    c = dict(zip(fit.names, fit.coefficients))
+    known = [n for n in fit.names if np.isfinite(c[n])]
+    return bool(known) and all(abs(c[n] - target[n]) <= COEFFICIENT_MATCH for n in known)
+
+
+def fock_signature(fit: FockFit, label: str, expected: Mapping[str, float]) -> str | None:
+    """The one named signature this confident fit matches (None: none, several, or the
+    named one differs from the expected only in undetermined coefficients)."""
+    if not fit.confident or matches(fit, expected):
+        return None
+    found = [name for name, variants in fock_signatures(label, expected).items()
+             if any(matches(fit, v) for v in variants)]
+    return found[0] if len(found) == 1 else None
+
+
+def describe_fit(fit: FockFit, label: str, expected: Mapping[str, float]) -> str:
+    """E.g. "Fock ≈ 1.00 T + 1.00 V + 1.00 J − 1.00 K (expected −0.50 K), residual 3e-12"."""
+    parts = []
+    for name, c in zip(fit.names, fit.coefficients):
+        if not np.isfinite(c):
+            continue
+        sign = "−" if c < 0 and round(abs(c), 2) > 0 else "+"
+        parts.append((sign, f"{abs(c):.2f} {name}"))
+    text = (parts[0][0] if parts[0][0] == "−" else "") + parts[0][1]
+    text += "".join(f" {s} {p}" for s, p in parts[1:])
+    off = [f"{'−' if expected[n] < 0 else ''}{abs(expected[n]):.2f} {n}"
+           for n, c in zip(fit.names, fit.coefficients)
+           if np.isfinite(c) and abs(c - expected[n]) > COEFFICIENT_MATCH]
+    exp = f" (expected {', '.join(off)})" if off else ""
+    return f"{label} ≈ {text}{exp}, residual {fit.residual:.0e}"
+
+
+def fock_hint(fits: list[tuple[str, FockFit, dict]]) -> str | None:
+    """One line from the per-spin fits: a named signature when every spin is confident and
+    the named spins agree, else the fitted form when some coefficient deviates; None when
+    a spin is not confident or everything is as expected."""
+    if not fits or not all(fit.confident for _, fit, _ in fits):
+        return None
+    deviating = [(label, fit, exp) for label, fit, exp in fits if not matches(fit, exp)]
+    if not deviating:
+        return None
+    names = {fock_signature(fit, label, exp) for label, fit, exp in deviating}
+    forms = "; ".join(describe_fit(fit, label, exp) for label, fit, exp in deviating)
+    if len(names) == 1 and None not in names:
+        return f"{names.pop()}: {forms}"
+    return forms
+
+
+# --------------------------------------------------------------------------- energy
+
+
+def nuclear_repulsion(charges: np.ndarray, coordinates: np.ndarray) -> float:
+    """E_nuc = Σ_{A<B} Z_A Z_B / |R_A − R_B| (coordinates in bohr, Eh)."""
+    z = np.asarray(charges, dtype=float)
+    r = np.asarray(coordinates, dtype=float)
+    dist = np.linalg.norm(r[:, None] - r[None], axis=-1)
+    iu = np.triu_indices(len(z), 1)
+    return float(np.sum(z[iu[0]] * z[iu[1]] / dist[iu]))
+
+
+def energy_candidates(terms: _energy.EnergyTerms, e_kinetic: float, e_attraction: float,
+                      e_nuc_angstrom: float) -> dict[str, float]:
+    """What E − E[P] would be for each named energy bug (Eh).
+
+    nuclear repulsion missing −E_nuc; counted twice +E_nuc; coordinates read as ångström
+    E_nuc(R × 1.8897…) − E_nuc; two-electron energy double counted (E = Tr(PF) + E_nuc)
+    E_J + E_K; exchange energy doubled E_K; exchange energy missing −E_K; kinetic energy
+    missing −Tr(PT); nuclear-attraction energy missing −Tr(PV).
+    """
+    return {
+        "nuclear repulsion missing": -terms.nuclear,
+        "nuclear repulsion counted twice": terms.nuclear,
+        "coordinates read as ångström": e_nuc_angstrom - terms.nuclear,
+        "two-electron energy double counted (E = Tr(PF) + E_nuc: missing ½)":
+            terms.coulomb + terms.exchange,
+        "exchange energy doubled": terms.exchange,
+        "exchange energy missing": -terms.exchange,
+        "kinetic energy missing": -e_kinetic,
+        "nuclear-attraction energy missing": -e_attraction,
+    }
+
+
+#: Energy signatures and the Fock-fit signature that the same bug leaves in the Fock matrix.
+FOCK_FOR_ENERGY = {"exchange energy doubled": "exchange scaled by 2",
+                   "exchange energy missing": "no exchange",
+                   "kinetic energy missing": "core Hamiltonian missing kinetic energy",
+                   "nuclear-attraction energy missing": "missing nuclear attraction"}
+
+
+def unique_match(value: float, candidates: Mapping[str, float], match: float,
+                 separation: float) -> str | None:
+    """The candidate within ``match`` of ``value`` when every other is beyond ``separation``."""
+    close = [n for n, x in candidates.items() if abs(value - x) <= match]
+    if len(close) != 1:
+        return None
+    others = [abs(value - x) for n, x in candidates.items() if n != close[0]]
+    return close[0] if all(o > separation for o in others) else None
+
+
+def energy_hint(name: str, diff: float, candidates: Mapping[str, float],
+                terms: _energy.EnergyTerms, e_nuc_angstrom: float) -> str:
+    """One line with the evidence for a matched energy signature (Eh)."""
+    head = f"{name}: E − E[P] = {diff:+.6f} Eh"
+    if name == "coordinates read as ångström":
+        return (f"{name}: E − E_elec[P] = {diff + terms.nuclear:.6f} Eh = E_nuc at the "
+                f"coordinates × {ANGSTROM_IN_BOHR:.4f} ({e_nuc_angstrom:.6f} Eh; "
+                f"expected E_nuc = {terms.nuclear:.6f} Eh)")
+    what = {"nuclear repulsion missing": f"−E_nuc ({terms.nuclear:.6f} Eh)",
+            "nuclear repulsion counted twice": f"+E_nuc ({terms.nuclear:.6f} Eh)",
+            "exchange energy doubled": f"E_K ({terms.exchange:.6f} Eh)",
+            "exchange energy missing": f"−E_K (E_K = {terms.exchange:.6f} Eh)",
+            "kinetic energy missing": f"−Tr(PT) ({-candidates[name]:.6f} Eh)",
+            "nuclear-attraction energy missing": f"−Tr(PV) ({-candidates[name]:.6f} Eh)"}
+    if name.startswith("two-electron"):
+        return (f"{name}: E − E[P] = {diff:+.6f} Eh = E_J + E_K "
+                f"({terms.coulomb:.6f} + {terms.exchange:.6f} Eh)")
+    return f"{head} = {what[name]}"
+
+
+# --------------------------------------------------------------------------- counts
+
+
+def count_signature(method: str, counts, expected) -> str | None:
+    """Name a wrong electron count Tr(PσS) (electrons).
+
+    RHF (total P): N/2 "alpha density reported as total?", 2N "density doubled?",
+    N + 2 / N − 2 "one doubly occupied orbital too many / too few". UHF/ROHF: one spin
+    off by exactly one electron, the other right: "one orbital too many / too few".
+    Unique within COUNT_MATCH, else None.
+    """
+    counts = [float(x) for x in counts]
+    if method == "rhf":
+        n, total = expected[0], counts[0]
+        cand = {f"the density integrates to N/2 = {n / 2:g}: alpha density reported as "
+                f"total?": n / 2,
+                f"the density integrates to 2N = {2 * n:g}: density doubled (occupation 2 "
+                f"applied twice?)": 2 * n,
+                f"the density integrates to N + 2 = {n + 2:g}: one doubly occupied orbital "
+                f"too many in the density (off by one in the occupied orbitals?)": n + 2,
+                f"the density integrates to N − 2 = {n - 2:g}: one doubly occupied orbital "
+                f"too few in the density (off by one in the occupied orbitals?)": n - 2}
+        name = unique_match(total, cand, COUNT_MATCH, 0.5)
+        return f"{name} (Tr(PS) = {total:.6f})" if name else None
+    off = [k for k in range(len(counts)) if abs(counts[k] - expected[k]) > COUNT_MATCH]
+    if len(off) != 1:
+        return None
+    k = off[0]
+    spin = ("alpha", "beta")[k]
+    delta = counts[k] - expected[k]
+    if abs(abs(delta) - 1.0) > COUNT_MATCH:
+        return None
+    word = "many" if delta > 0 else "few"
+    return (f"the {spin} density integrates to N{'αβ'[k]} {'+' if delta > 0 else '−'} 1 = "
+            f"{counts[k]:.6f}: one {spin} orbital too {word} in the density "
+            f"(off by one in the occupied orbitals?)")
+
+
+# --------------------------------------------------------------------------- orbitals
+
+
+def rayleigh_quotients(f: np.ndarray, c: np.ndarray, s: np.ndarray) -> np.ndarray:
+    """r_i = c_iᵀ F c_i / c_iᵀ S c_i per spin ((ns, nmo), Eh)."""
+    num = np.einsum("spi,spq,sqi->si", c, f, c)
+    den = np.einsum("spi,pq,sqi->si", c, s, c)
+    return num / den
+
+
+def orbital_signature(eps: np.ndarray, r: np.ndarray, occ: np.ndarray) -> str | None:
+    """Name a systematic orbital-energy error (eps, r, occ all (ns, nmo), Eh).
+
+    "orbital energies in eV": max|ε/27.2114 − r| ≤ ORBITAL_MATCH. "level shift left in the
+    virtual orbital energies": occupied max|ε − r| ≤ ORBITAL_MATCH and, on each spin with
+    ≥ MIN_SHIFTED_VIRTUALS virtuals, ε − r constant within ORBITAL_MATCH and the same
+    shift on every spin, |shift| ≥ MIN_SHIFT.
+    """
+    dev = np.abs(eps - r).max()
+    if dev <= ORBITAL_MATCH:
+        return None
+    ev = np.abs(eps / HARTREE_IN_EV - r).max()
+    if ev <= ORBITAL_MATCH:
+        return (f"orbital energies in eV: ε / r = {HARTREE_IN_EV:.4f} (eV per Eh) with "
+                f"r = cᵀFc, max|ε/{HARTREE_IN_EV:.4f} − r| = {ev:.0e} Eh")
+    filled = occ > 0
+    if np.abs(eps - r)[filled].max() > ORBITAL_MATCH:
+        return None
+    shifts = []
+    for es, rs, fs in zip(eps, r, filled):
+        delta = (es - rs)[~fs]
+        if delta.size < MIN_SHIFTED_VIRTUALS:
+            continue
+        if delta.max() - delta.min() > ORBITAL_MATCH:
+            return None
+        shifts.append(float(delta.mean()))
+    if not shifts or max(shifts) - min(shifts) > ORBITAL_MATCH or abs(shifts[0]) < MIN_SHIFT:
+        return None
+    return (f"level shift of {shifts[0]:.2f} Eh left in the virtual orbital energies: "
+            f"ε − cᵀFc = {shifts[0]:+.6f} Eh on every virtual orbital, occupied agree to "
+            f"{np.abs(eps - r)[filled].max():.0e} Eh")
+
+
+# --------------------------------------------------------------------------- diagnose
+
+
+def density_for_checks(method: str, sol: Mapping) -> np.ndarray:
+    """The density the checks use, with a leading spin axis: the reported one, else C n Cᵀ
+    (RHF (1, nao, nao) total; UHF/ROHF (2, nao, nao) alpha, beta)."""
+    if "density" in sol:
+        return density_by_spin(method, sol["density"])
+    return density_from_orbitals(*orbitals_by_spin(method, sol["coefficients"],
+                                                   sol["occupations"]))
+
+
+def _failed(results: Mapping, name: str) -> bool:
+    r = results.get(name)
+    return r is not None and r.passed is False
+
+
+def _passed(results: Mapping, name: str) -> bool:
+    r = results.get(name)
+    return r is not None and r.passed is True
+
+
+def diagnose(problem, sol: Mapping, ints, d: np.ndarray, results, *, reference=None,
+             jk=None) -> Diagnosis:
+    """Hints for the failing checks of one solution, from the same density ``d``.
+
+    ``sol`` is the extracted solution (pyscf AO order), ``ints`` the AOIntegrals,
+    ``d`` the checks' density ((1, nao, nao) RHF total; (2, …) UHF/ROHF), ``results``
+    check name → CheckResult (a sequence of CheckResults is accepted). Only the count is
+    diagnosed unless electron-count passed (the terms of a density of the wrong size
+    would explain nothing). ``reference``: the
+    reference (an object with ``.energy``) or E_ref in Eh, used to carry an energy hint to
+    reference-energy when E[P] itself agrees with E_ref. ``jk``: (J of the total density,
+    K per component) of ``d`` as evaluate computed them, to save a J/K build.
+    Bohr and Eh throughout. Pure: no I/O.
+    """
+    if not isinstance(results, Mapping):
+        results = {r.name: r for r in results}
+    hints: dict[str, str] = {}
+    analysis: dict = {}
+    failing = {n for n, r in results.items() if r.passed is False}
+    if not failing or "well-formed" in failing:
+        return Diagnosis(hints, analysis)
+
+    method = problem.method
+    d = np.asarray(d, dtype=float)
+    mol = ints.mol
+    s = ints.s
+    t = mol.intor_symmetric("int1e_kin")
+    v = ints.h - t  # H = T + V
+
+    # electron count first: the other diagnoses assume P is the code's density
+    counts = np.einsum("spq,qp->s", d, s)
+    expected = (problem.n_electrons,) if method == "rhf" else (problem.n_alpha, problem.n_beta)
+    analysis["electron_count"] = {"traces": [float(x) for x in counts],
+                                  "expected": [int(x) for x in expected]}
+    if _failed(results, "electron-count"):
+        hint = count_signature(method, counts, expected)
+        if hint:
+            hints["electron-count"] = hint
+    if not _passed(results, "electron-count"):
+        return Diagnosis(hints, analysis)  # the terms of a density of the wrong size say nothing
+
+    # J and K per density component
+    if jk is not None and (len(d) == 1):
+        vj_total, vk = np.asarray(jk[0]), np.asarray(jk[1])
+        j = vj_total[None]
+    else:
+        from pyscf import scf
+        if jk is not None:  # UHF/ROHF: K known, J per spin needs J(Pα) only
+            vj_total, vk = np.asarray(jk[0]), np.asarray(jk[1])
+            ja = np.asarray(scf.hf.get_jk(mol, np.ascontiguousarray(d[0]), hermi=1,
+                                          with_k=False)[0])
+            j = np.stack([ja, vj_total - ja])
+        else:
+            vjs, vks = scf.hf.get_jk(mol, np.ascontiguousarray(d), hermi=1)
+            j = np.asarray(vjs).reshape(d.shape)
+            vk = np.asarray(vks).reshape(d.shape)
+            vj_total = j.sum(axis=0)
+
+    # 1. Fock fit
+    fock_note = None
+    if "fock" in sol:
+        f = fock_by_spin(method, sol["fock"])
+        fits = fit_fock(method, f, t, v, j, vk)
+        merged = "J(P)" in fits[0][2]
+        analysis["fock_fit"] = {label: {**fit.to_json(), "expected": [exp[n] for n in fit.names]}
+                                for label, fit, exp in fits}
+        analysis["fock_fit"]["merged_spins"] = merged
+        fock_note = fock_hint(fits)
+        if fock_note:
+            for name in ("stationarity", "self-consistency"):
+                if _failed(results, name):
+                    hints[name] = fock_note
+
+    # 2. energy split
+    terms = _energy.energy_terms(d, ints.h, vj_total, vk, ints.e_nuc)
+    p = d.sum(axis=0)
+    e_kin = float(np.einsum("pq,qp->", p, t))
+    e_att = float(np.einsum("pq,qp->", p, v))
+    e_nuc_ang = nuclear_repulsion(mol.atom_charges(), mol.atom_coords() * ANGSTROM_IN_BOHR)
+    e = float(sol["energy"])
+    diff = e - terms.total
+    cand = energy_candidates(terms, e_kin, e_att, e_nuc_ang)
+    analysis["energy"] = {"E": e, "E[P]": terms.total, "E - E[P]": diff,
+                          "E_nuc": terms.nuclear, "E_one": terms.one_electron,
+                          "E_kinetic": e_kin, "E_nuclear_attraction": e_att,
+                          "E_J": terms.coulomb, "E_K": terms.exchange,
+                          "E_nuc_if_coordinates_read_as_angstrom": e_nuc_ang}
+    e_ref = getattr(reference, "energy", reference)
+    if e_ref is not None:
+        analysis["energy"]["E_ref"] = float(e_ref)
+        analysis["energy"]["E[P] - E_ref"] = terms.total - float(e_ref)
+    if _failed(results, "energy-consistency"):
+        name = unique_match(diff, cand, ENERGY_MATCH, ENERGY_SEPARATION)
+        hint = None
+        if name:
+            hint = energy_hint(name, diff, cand, terms, e_nuc_ang)
+            fock_word = FOCK_FOR_ENERGY.get(name)
+            if fock_word and fock_note and fock_note.startswith(fock_word):
+                hint += "; consistent with the Fock fit"
+        elif abs(diff) <= ITERATE_ENERGY and _failed(results, "self-consistency"):
+            sc = results["self-consistency"].value
+            hint = (f"guess: energy belongs to another iterate? E − E[P] = {diff:+.2e} Eh is "
+                    f"small and matches no term, and the density is not self-consistent "
+                    f"(self-consistency {sc:.1e})")
+        if hint:
+            hints["energy-consistency"] = hint
+            ref = results.get("reference-energy")
+            if (name and e_ref is not None and _failed(results, "reference-energy")
+                    and ref.tolerance is not None
+                    and abs(terms.total - float(e_ref)) <= ref.tolerance):
+                hints["reference-energy"] = (f"{hint}; E[P] agrees with E_ref to "
+                                             f"{abs(terms.total - float(e_ref)):.1e} Eh")
+
+    # 3. orbital energies
+    if "orbital_energies" in sol and method != "rohf":
+        c, occ = orbitals_by_spin(method, sol["coefficients"], sol["occupations"])
+        eps = np.asarray(sol["orbital_energies"], dtype=float)
+        eps = eps[None] if method == "rhf" else eps
+        f = (fock_by_spin(method, sol["fock"]) if "fock" in sol
+             else _energy.fock_from_terms(ints.h, vj_total, vk, len(d)))
+        r = rayleigh_quotients(f, c, s)
+        analysis["orbital_energies"] = {
+            "fock": "reported" if "fock" in sol else "rebuilt",
+            "max|eps - r|": float(np.abs(eps - r).max()),
+            "ratio eps/r (least squares)": float(np.sum(eps * r) / np.sum(r * r))}
+        hint = orbital_signature(eps, r, occ)
+        if hint:
+            for name in ("roothaan-hall", "aufbau"):
+                if _failed(results, name):
+                    hints[name] = hint
+    return Diagnosis(hints, analysis)

@@ -1,0 +1,287 @@
+"""Run every check on one solution: the pure core of a verdict.
+
+``evaluate(problem, extracted, reference, tolerances)`` takes the plug-in's extracted
+return value (``harness.contract.solution.extract``) and gives one ``CheckResult`` per check in
+``harness.checks.tolerances.CHECK_NAMES`` order. No I/O; pyscf is used only for integrals.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+
+from harness.checks import frontier as _frontier
+from harness.checks import density as _density
+from harness.checks import energy as _energy
+from harness.checks import orthonormal as _orth
+from harness.checks import stationarity as _stat
+from harness.checks.spin import density_by_spin, density_from_orbitals, fock_by_spin
+from harness.checks.spin import occupation_scale, orbitals_by_spin
+from harness.checks.wellformed import well_formed
+from harness.checks.history import history_from_results
+from harness.checks.integrals import integral_checks
+from harness.verdict import states as _stability
+from harness.verdict.states import state_hint
+from harness.verdict.diagnosis import diagnose
+from harness.verdict.conventions import CONVENTION_MATCH, BasisMismatch, detect_convention
+from harness.verdict.conventions import named_convention
+from harness.contract.errors import HarnessError
+from harness.backend.integrals import AOIntegrals, integrals_for
+from harness.contract.problem import Problem
+from harness.contract.results import CheckResult, Status, failed, judge, not_applicable, skipped
+from harness.checks.tolerances import CHECK_NAMES, Tolerances
+
+
+#: A reported overlap within this of pyscf's, element by element, is taken to be in
+#: pyscf's AO order with less accurate integrals (the overlap check judges it): any
+#: reordering, sign flip or renormalisation changes some element by far more (≥ 1e-2).
+SAME_ORDER_INACCURATE_OVERLAP = 1e-3
+
+
+def _basis(problem: Problem, sol: dict, ints: AOIntegrals, ao_convention: str | None):
+    """The "basis" check: map the code's AO convention onto pyscf's.
+
+    Returns (result, solution in pyscf's AO order, go_on). A user-named convention is
+    applied as given; otherwise a reported overlap that differs from pyscf's is matched by
+    per-shell signed permutations and scalings (``harness.verdict.conventions``). A basis that no
+    such mapping explains fails; with a different number of functions nothing else can
+    be checked.
+    """
+    case = problem.name
+    if ao_convention is not None:
+        conv = named_convention(ao_convention, ints.mol)
+        return (CheckResult("basis", Status.PASSED, None, None,
+                            f"basis: AO convention {ao_convention!r} as given ({case}): "
+                            f"{conv.describe()}"), conv.solution_to_reference(sol), True)
+    s_code = sol.get("overlap")
+    if not isinstance(s_code, np.ndarray) or s_code.ndim != 2 \
+            or s_code.shape[0] != s_code.shape[1] or not np.all(np.isfinite(s_code)):
+        return (not_applicable("basis", "no usable 'overlap' key; pyscf's AO order assumed",
+                               case), sol, True)
+    c = sol.get("coefficients")
+    if s_code.shape != ints.s.shape and not (
+            isinstance(c, np.ndarray) and c.ndim >= 2 and c.shape[-2] == s_code.shape[0]):
+        return (not_applicable("basis", "the overlap's size disagrees with the coefficients",
+                               case), sol, True)
+    if s_code.shape == ints.s.shape and np.max(np.abs(s_code - ints.s)) <= CONVENTION_MATCH:
+        return (CheckResult("basis", Status.PASSED, 0.0, None,
+                            f"basis: the code's overlap is pyscf's, same AO order ({case})"),
+                sol, True)
+    if s_code.shape == ints.s.shape and \
+            np.max(np.abs(s_code - ints.s)) <= SAME_ORDER_INACCURATE_OVERLAP:
+        return (not_applicable("basis", "the overlap is pyscf's in pyscf's AO order up to "
+                               "integral accuracy; see the overlap check", case), sol, True)
+    try:
+        conv = detect_convention(s_code, ints.mol, s_ref=ints.s)
+    except HarnessError as exc:
+        return not_applicable("basis", str(exc), case), sol, True
+    if isinstance(conv, BasisMismatch):
+        go_on = s_code.shape == ints.s.shape
+        return failed("basis", f"basis: {conv.reason} ({case})"), sol, go_on
+    if conv.is_identity:
+        return (CheckResult("basis", Status.PASSED, 0.0, None,
+                            f"basis: the code's overlap is pyscf's, same AO order ({case})"),
+                sol, True)
+    return (CheckResult("basis", Status.PASSED, None, None,
+                        f"basis: AO convention detected ({case}): {conv.describe()}"),
+            conv.solution_to_reference(sol), True)
+
+
+@dataclasses.dataclass(frozen=True)
+class Verdict:
+    """The checks of one case, in CHECK_NAMES order, and the same-density analysis
+    (JSON-ready numbers from ``harness.verdict.diagnosis``; empty when nothing failed)."""
+
+    checks: tuple[CheckResult, ...]
+    analysis: dict
+
+
+STABILITY_MODES = ("internal", "external", "off")
+
+
+def evaluate(problem: Problem, extracted: dict, reference=None,
+             tolerances: Tolerances | None = None,
+             integrals: AOIntegrals | None = None, *,
+             ao_convention: str | None = None,
+             stability: str = "internal") -> tuple[CheckResult, ...]:
+    """All checks of one case (see :func:`evaluate_case`); the checks only."""
+    return evaluate_case(problem, extracted, reference, tolerances, integrals,
+                         ao_convention=ao_convention, stability=stability).checks
+
+
+def evaluate_case(problem: Problem, extracted: dict, reference=None,
+                  tolerances: Tolerances | None = None,
+                  integrals: AOIntegrals | None = None, *,
+                  ao_convention: str | None = None,
+                  stability: str = "internal") -> Verdict:
+    """All checks of one case, with hints on failures.
+
+    ``reference`` (a ``harness.catalogue.references.Reference``) may be None, then
+    reference-energy is not applicable. ``ao_convention`` names the code's AO convention
+    (``harness.verdict.conventions.NAMED``) when it reports no overlap. ``stability``: "internal"
+    (default), "external" (RHF→UHF too) or "off". Energies in Eh.
+    """
+    if stability not in STABILITY_MODES:
+        raise HarnessError(f"must be one of {', '.join(STABILITY_MODES)}, got {stability!r}",
+                           field="stability")
+    # A solution with overflowing or NaN entries is judged by the checks (they fail it);
+    # numpy's RuntimeWarnings about the same values would only clutter the terminal.
+    with np.errstate(all="ignore"):
+        checks, analysis = _evaluate(problem, extracted, reference, tolerances, integrals,
+                                     ao_convention, stability)
+    return Verdict(checks=checks, analysis=analysis)
+
+
+def _evaluate(problem, extracted, reference, tolerances, integrals, ao_convention, stability):
+    tol = tolerances or Tolerances()
+    case = problem.name
+    method = problem.method
+
+    def verdict(name, measurement):
+        return judge(name, measurement, tol.for_check(name, problem.convergence), case)
+
+    ints = integrals or integrals_for(problem)
+    basis, sol, go_on = _basis(problem, extracted, ints, ao_convention)
+    if not go_on:
+        rest = [skipped(n, "the code's basis differs from the case's", case)
+                for n in CHECK_NAMES if n != "basis"]
+        return (basis, *rest), {}
+
+    problems = well_formed(sol, problem.nao, method, problem.n_alpha, problem.n_beta)
+    if problems:
+        more = f" (and {len(problems) - 1} more: {'; '.join(problems[1:])})" if len(problems) > 1 else ""
+        head = failed("well-formed", f"well-formed: {problems[0]} ({case}){more}",
+                      value=float(len(problems)))
+        rest = [skipped(n, "the solution is malformed", case) for n in CHECK_NAMES
+                if n not in ("basis", "well-formed")]
+        return (basis, head, *rest), {}
+
+    results: dict[str, CheckResult] = {
+        "basis": basis,
+        "well-formed": CheckResult("well-formed", Status.PASSED, 0.0, None,
+                                   f"well-formed: keys, shapes and occupations valid ({case})")}
+    labels = ints.labels
+    low = _orth.lowdin(ints.s)
+
+    if "converged" in sol:
+        ok = bool(sol["converged"])
+        results["converged-flag"] = CheckResult(
+            "converged-flag", Status.PASSED if ok else Status.FAILED, None, None,
+            f"converged-flag: the code reports converged={ok} ({case})"
+            + (f" after {sol['iterations']} iterations" if "iterations" in sol else ""))
+    else:
+        results["converged-flag"] = not_applicable("converged-flag", "no 'converged' key", case)
+
+    if "overlap" in sol:
+        results["overlap"] = verdict("overlap", _orth.matrix_difference(
+            sol["overlap"], ints.s, "max|S − S_ref|", labels))
+    else:
+        results["overlap"] = not_applicable("overlap", "no 'overlap' key", case)
+
+    c, occ = orbitals_by_spin(method, sol["coefficients"], sol["occupations"])
+    results["orthonormality"] = verdict("orthonormality", _orth.orthonormality(c, ints.s))
+
+    built = density_from_orbitals(c, occ)
+    d = density_by_spin(method, sol["density"]) if "density" in sol else built
+    results["idempotency"] = verdict("idempotency", _density.idempotency(
+        d, ints.s, occupation_scale(method), labels))
+    n = (problem.n_electrons,) if method == "rhf" else (problem.n_alpha, problem.n_beta)
+    results["electron-count"] = verdict("electron-count", _density.electron_count(d, ints.s, n))
+    if "density" in sol:
+        results["density-consistency"] = verdict("density-consistency",
+                                                 _density.density_consistency(d, built, labels))
+    else:
+        results["density-consistency"] = not_applicable("density-consistency",
+                                                        "no 'density' key", case)
+
+    vj, vk = ints.jk(d)
+    rebuilt = _energy.fock_from_terms(ints.h, vj, vk, len(d))
+    terms = _energy.energy_terms(d, ints.h, vj, vk, ints.e_nuc)
+
+    def stationarity(f):
+        if method == "rohf":
+            return _stat.rohf_conditions(f, d, low, labels)
+        return _stat.commutator(f, d, ints.s, low, labels)
+
+    if "fock" in sol:
+        results["stationarity"] = verdict("stationarity",
+                                          stationarity(fock_by_spin(method, sol["fock"])))
+    else:
+        results["stationarity"] = not_applicable("stationarity", "no 'fock' key", case)
+    results["self-consistency"] = verdict("self-consistency", stationarity(rebuilt))
+
+    if method == "rohf":
+        results["roothaan-hall"] = not_applicable(
+            "roothaan-hall", "ROHF orbital energies depend on a canonicalisation convention", case)
+    elif "orbital_energies" in sol:
+        f = fock_by_spin(method, sol["fock"]) if "fock" in sol else rebuilt
+        e = sol["orbital_energies"][None] if method == "rhf" else sol["orbital_energies"]
+        results["roothaan-hall"] = verdict("roothaan-hall", _stat.roothaan_hall(f, c, e, low))
+    else:
+        results["roothaan-hall"] = not_applicable("roothaan-hall", "no 'orbital_energies' key",
+                                                  case)
+
+    results["energy-consistency"] = verdict("energy-consistency",
+                                            _energy.energy_consistency(sol["energy"], terms))
+    if reference is not None:
+        results["reference-energy"] = verdict("reference-energy", _energy.reference_energy(
+            sol["energy"], float(reference.energy)))
+    else:
+        results["reference-energy"] = not_applicable("reference-energy", "no reference", case)
+
+    if method == "rohf":
+        results["aufbau"] = not_applicable(
+            "aufbau", "ROHF orbital energies depend on a canonicalisation convention", case)
+    elif "orbital_energies" in sol:
+        e = sol["orbital_energies"][None] if method == "rhf" else sol["orbital_energies"]
+        m = _frontier.aufbau(e, occ)
+        if m.value == -np.inf:
+            results["aufbau"] = not_applicable("aufbau", "no empty orbitals", case)
+        else:
+            results["aufbau"] = verdict("aufbau", m)
+    else:
+        results["aufbau"] = not_applicable("aufbau", "no 'orbital_energies' key", case)
+
+    results.update(integral_checks(sol, ints, tol, case))
+    results.update(_state_checks(problem, sol, reference, ints, tol, stability, d, rebuilt))
+    results["history"] = history_from_results(sol, results, convergence=problem.convergence,
+                                              case=case)
+
+    analysis: dict = {}
+    if any(r.status is Status.FAILED for r in results.values()):
+        diagnosis = diagnose(problem, sol, ints, d, results, reference=reference, jk=(vj, vk))
+        analysis = dict(diagnosis.analysis)
+        hints = dict(diagnosis.hints)
+        ref_result = results.get("reference-energy")
+        # Naming a state needs an energy that belongs to the density; above the reference
+        # it also needs a stationary density (an unconverged code is above it anyway).
+        below = reference is not None and sol["energy"] < float(reference.energy)
+        consistent = results["energy-consistency"].status is Status.PASSED and (
+            below or results["self-consistency"].status is Status.PASSED)
+        if ref_result is not None and ref_result.status is Status.FAILED and consistent \
+                and "reference-energy" not in hints:
+            hint = state_hint(problem, sol, ints, reference,
+                              tolerance=tol.for_check("reference-energy", problem.convergence))
+            if hint:
+                hints["reference-energy"] = hint
+        for name, hint in hints.items():
+            if name in results and results[name].status is Status.FAILED and hint:
+                results[name] = dataclasses.replace(results[name], hint=hint)
+    return tuple(results[name] for name in CHECK_NAMES if name in results), analysis
+
+
+def _state_checks(problem, sol, reference, ints, tol: Tolerances, mode: str, d, fock):
+    """stability, spin-squared and energy-error-bound (``harness.verdict.states``), with any
+    tolerance overrides applied."""
+    over = tol.overrides
+    out = {}
+    out["stability"] = _stability.stability_check(
+        problem, sol, ints, mode=mode,
+        threshold=over.get("stability", _stability.STABILITY_EIGENVALUE))
+    out["spin-squared"] = _stability.spin_check(problem, sol, ints, reference,
+                                                tolerance=over.get("spin-squared"))
+    out["energy-error-bound"] = _stability.energy_error_check(
+        problem, sol, ints, d, fock,
+        tolerance=over.get("energy-error-bound", _stability.ENERGY_ERROR_BOUND))
+    return out
