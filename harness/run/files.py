@@ -498,10 +498,10 @@ def read_molden(path, problem, *, energy_file=None) -> dict[str, Any]:
         import contextlib
         import io
 
-        from pyscf.tools import molden
+        from harness.backend.mole import load_molden
 
         with contextlib.redirect_stderr(io.StringIO()):
-            mol, mo_energy, mo_coeff, mo_occ, _, _ = molden.load(str(path))
+            mol, mo_energy, mo_coeff, mo_occ = load_molden(path)
     except Exception as exc:  # pyscf's parser raises anything on a broken file
         raise SolutionFileError(f"not a readable Molden file ({type(exc).__name__}: "
                                 f"{str(exc).splitlines()[0][:80] if str(exc) else ''})",
