@@ -232,7 +232,7 @@ class Case:
 
     def mole(self):
         """The pyscf ``Mole`` of this case (bohr, symmetry off), via ``build_mole``."""
-        from harness.contract.problem import build_mole
+        from harness.backend.mole import build_mole
 
         return build_mole(self.numbers, self.coordinates, charge=self.charge,
                           multiplicity=self.multiplicity, basis=self.basis,

@@ -259,7 +259,7 @@ def catalogue_cases(*, suite: str | None = None, basis: str | None = None,
 
 
 def _nao(case: Case, basis: str | None = None) -> int | None:
-    from harness.contract.problem import build_mole
+    from harness.backend.mole import build_mole
 
     try:
         return int(build_mole(case.numbers, case.coordinates, charge=case.charge,

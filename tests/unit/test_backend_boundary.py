@@ -71,6 +71,18 @@ def test_checks_do_not_import_the_backend():
     assert not offenders, "harness/checks/ imports the backend:\n" + "\n".join(offenders)
 
 
+def test_references_and_states_do_not_import_each_other():
+    """The stored references (catalogue) and the state checks (verdict) both use the
+    backend's SCF driver, not each other."""
+    pairs = (("harness/catalogue/references.py", "harness.verdict"),
+             ("harness/verdict/states.py", "harness.catalogue.references"),
+             ("harness/backend", "harness.catalogue"), ("harness/backend", "harness.verdict"))
+    offenders = [f"{_relative(p)}:{line} imports {name}" for where, banned in pairs
+                 for p in _modules() if _relative(p).startswith(where)
+                 for line, name in _imports(p) if _is(name, banned)]
+    assert not offenders, "\n".join(offenders)
+
+
 def test_the_scanner_sees_every_kind_of_import():
     source = ("import os\nfrom typing import TYPE_CHECKING\nif TYPE_CHECKING:\n"
               "    from pyscf import gto\n\ndef f():\n    import pyscf.lib\n\n"
