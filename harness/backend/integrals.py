@@ -16,7 +16,9 @@ from harness.contract.problem import Problem
 @dataclasses.dataclass(frozen=True)
 class AOIntegrals:
     """Overlap ``s``, core Hamiltonian ``h`` = T + V, nuclear repulsion ``e_nuc`` (Eh),
-    and the AO labels of one problem; ``jk`` builds J and K from densities."""
+    and the AO labels of one problem; ``jk`` builds J and K from densities, ``j`` J
+    alone; ``kinetic``, ``nuclear_attraction`` and ``eri`` return T, V and (pq|rs).
+    ``mol`` is the pyscf ``Mole`` (for backend code and plug-ins, not for the checks)."""
 
     mol: object
     s: np.ndarray
@@ -30,12 +32,69 @@ class AOIntegrals:
         J[P]_pq = Σ_rs (pq|rs) P_rs,  K[P]_pq = Σ_rs (pr|qs) P_rs, by pyscf's direct
         (integral-driven) algorithm; d has a leading spin axis (1 or 2 components).
         """
+        vj, vk = self.jk_components(d)
+        return vj.sum(axis=0), vk
+
+    def jk_components(self, d: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """J and K of each component of ``d`` (leading spin axis): both (ns, nao, nao)."""
         from pyscf import scf
 
         vj, vk = scf.hf.get_jk(self.mol, np.ascontiguousarray(d), hermi=1)
-        vj = np.asarray(vj).reshape(d.shape)
-        vk = np.asarray(vk).reshape(d.shape)
-        return vj.sum(axis=0), vk
+        return np.asarray(vj).reshape(d.shape), np.asarray(vk).reshape(d.shape)
+
+    def j(self, d: np.ndarray) -> np.ndarray:
+        """J[P]_pq = Σ_rs (pq|rs) P_rs of one (nao, nao) density (Eh), pyscf's direct
+        algorithm."""
+        from pyscf import scf
+
+        return np.asarray(scf.hf.get_jk(self.mol, np.ascontiguousarray(d), hermi=1,
+                                        with_k=False)[0])
+
+    def kinetic(self) -> np.ndarray:
+        """T_pq (Eh), (nao, nao)."""
+        return self.mol.intor_symmetric("int1e_kin")
+
+    def nuclear_attraction(self) -> np.ndarray:
+        """V_pq (Eh), (nao, nao)."""
+        return self.mol.intor_symmetric("int1e_nuc")
+
+    def eri(self) -> np.ndarray:
+        """(pq|rs) in chemists' notation, the full (nao, nao, nao, nao) array (Eh)."""
+        nao = len(self.labels)
+        return self.mol.intor("int2e").reshape((nao,) * 4)
+
+
+@dataclasses.dataclass(frozen=True)
+class ShellStructure:
+    """The shells of a basis as plain data, pyscf's AO order: per shell its angular
+    momentum ``l``, ``atom`` and number of contractions ``nctr``; ``ao_loc`` the first AO
+    of each shell (length nshell + 1); ``cart``; the atoms' ``symbols``; ``nao`` and
+    ``nao_other`` (the count in the other of cartesian/spherical)."""
+
+    l: tuple[int, ...]
+    atom: tuple[int, ...]
+    nctr: tuple[int, ...]
+    ao_loc: np.ndarray
+    cart: bool
+    symbols: tuple[str, ...]
+    nao: int
+    nao_other: int
+
+
+def shell_structure(mol) -> ShellStructure:
+    """:class:`ShellStructure` of a pyscf ``Mole``."""
+    nbas = mol.nbas
+    return ShellStructure(l=tuple(int(mol.bas_angular(b)) for b in range(nbas)),
+                          atom=tuple(int(mol.bas_atom(b)) for b in range(nbas)),
+                          nctr=tuple(int(mol.bas_nctr(b)) for b in range(nbas)),
+                          ao_loc=np.asarray(mol.ao_loc_nr()), cart=bool(mol.cart),
+                          symbols=tuple(mol.atom_symbol(a) for a in range(mol.natm)),
+                          nao=int(mol.nao_nr()), nao_other=int(mol.nao_nr(cart=not mol.cart)))
+
+
+def overlap(mol) -> np.ndarray:
+    """S_pq of a pyscf ``Mole``, (nao, nao)."""
+    return mol.intor_symmetric("int1e_ovlp")
 
 
 def integrals_for(problem: Problem) -> AOIntegrals:
@@ -45,3 +104,17 @@ def integrals_for(problem: Problem) -> AOIntegrals:
     h = mol.intor_symmetric("int1e_kin") + mol.intor_symmetric("int1e_nuc")
     return AOIntegrals(mol=mol, s=s, h=h, e_nuc=float(mol.energy_nuc()),
                        labels=tuple(" ".join(l.split()) for l in mol.ao_labels()))
+
+
+def full_integrals(problem):
+    """S, T, V (nao, nao), the full ERI tensor (pq|rs) (nao⁴, computed with 8-fold
+    symmetry and unpacked), E_nuc (Eh) and the shell offsets ``ao_loc`` of ``problem``
+    (coordinates in bohr): ``(s, t, v, eri, e_nuc, ao_loc)``, plain numpy/Python values."""
+    from pyscf import ao2mo
+
+    mol = problem.to_pyscf()
+    nao = mol.nao_nr()
+    eri = ao2mo.restore(1, mol.intor("int2e", aosym="s8"), nao)
+    return (mol.intor("int1e_ovlp"), mol.intor("int1e_kin"), mol.intor("int1e_nuc"),
+            np.ascontiguousarray(eri), float(mol.energy_nuc()),
+            tuple(int(i) for i in mol.ao_loc_nr(cart=mol.cart)))

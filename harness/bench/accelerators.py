@@ -221,16 +221,15 @@ class Hamiltonian:
         J[P]_pq = Σ_rs (pq|rs) P_rs, K[P]_pq = Σ_rs (pr|qs) P_rs; pyscf contracts the
         ERI (in-core when ``eri`` is set, else its direct algorithm).
         """
-        from pyscf import lib, scf
+        from harness.backend.baselines import jk_direct, jk_incore
 
         if self.t is not None:
             d = np.einsum("pi,kij,qj->kpq", self.t, d, self.t)
         d = np.ascontiguousarray(d)
         if self.eri is not None:
-            with lib.with_omp_threads(IN_CORE_THREADS):
-                vj, vk = scf.hf.dot_eri_dm(self.eri, d, hermi=1)
+            vj, vk = jk_incore(self.eri, d, IN_CORE_THREADS)
         else:
-            vj, vk = scf.hf.get_jk(self.mol, d, hermi=1)
+            vj, vk = jk_direct(self.mol, d)
         vj = np.asarray(vj).reshape(d.shape).sum(axis=0)
         vk = np.asarray(vk).reshape(d.shape)
         if self.t is not None:
@@ -256,12 +255,11 @@ IN_CORE_THREADS = 1
 
 def hamiltonian_for(problem: Problem) -> Hamiltonian:
     """Integrals of ``problem`` from pyscf (the molecule the reference uses; bohr, Eh)."""
-    mol = problem.to_pyscf()
-    s = mol.intor_symmetric("int1e_ovlp")
-    h = mol.intor_symmetric("int1e_kin") + mol.intor_symmetric("int1e_nuc")
-    eri = mol.intor("int2e", aosym="s8") if mol.nao_nr() <= INCORE_NAO else None
+    from harness.backend.baselines import hamiltonian_integrals
+
+    mol, s, h, e_nuc, eri = hamiltonian_integrals(problem, INCORE_NAO)
     return Hamiltonian(method=problem.method, n_alpha=problem.n_alpha, n_beta=problem.n_beta,
-                       s=s, h=h, e_nuc=float(mol.energy_nuc()), mol=mol, eri=eri)
+                       s=s, h=h, e_nuc=e_nuc, mol=mol, eri=eri)
 
 
 # --------------------------------------------------------------------------- orbitals
@@ -522,9 +520,9 @@ def declared_returns(accelerator) -> str:
 
 def _threads(ham: Hamiltonian):
     """OpenMP threads for pyscf's small-matrix kernels while a run lasts (in-core only)."""
-    from pyscf import lib
+    from harness.backend.baselines import omp_threads
 
-    return lib.with_omp_threads(IN_CORE_THREADS if ham.eri is not None else None)
+    return omp_threads(IN_CORE_THREADS if ham.eri is not None else None)
 
 
 def run_scf(ham: Hamiltonian, accelerator, start: Orbitals, *, convergence: float,
@@ -691,10 +689,9 @@ class PyscfDIIS:
         self._diis = None
 
     def reset(self, problem):
-        from pyscf.scf import diis
+        from harness.backend.baselines import pyscf_diis
 
-        cls = {"cdiis": diis.CDIIS, "ediis": diis.EDIIS, "adiis": diis.ADIIS}[self.kind]
-        self._diis = cls()
+        self._diis = pyscf_diis(self.kind)
         self._diis.verbose = 0
         self._diis.space = PYSCF_DIIS_SPACE
         self._diis.incore = True
@@ -738,16 +735,12 @@ def _run_newton(ham: Hamiltonian, start: Orbitals, *, convergence: float,
     macro-iteration's state (``check_convergence``, from pyscf's own F and P, no extra
     build) is ≤ convergence, or when the budget is used up. Only AO-basis Hamiltonians.
     """
-    from pyscf import scf
+    from harness.backend.baselines import newton_scf
 
     t0 = time.perf_counter()
     if ham.t is not None:
         raise ValueError("run_newton needs the AO basis of the molecule")
-    cls = {"rhf": scf.RHF, "uhf": scf.UHF, "rohf": scf.ROHF}[ham.method]
-    mf = cls(ham.mol)
-    mf.verbose = 0
-    if ham.eri is not None:
-        mf._eri = ham.eri
+    newton = newton_scf(ham.method, ham.mol, ham.eri)
     per_build = 1 if ham.method == "rhf" else 2
     nao = ham.s.shape[0]
     count = [0]
@@ -777,7 +770,6 @@ def _run_newton(ham: Hamiltonian, start: Orbitals, *, convergence: float,
             raise _Converged
         return False
 
-    newton = mf.newton()
     newton.verbose = 0
     newton.max_cycle = NEWTON_MAX_MACRO
     newton.conv_tol_grad = NEWTON_GRADIENT_FRACTION * convergence

@@ -62,14 +62,15 @@ def default_reference_dir() -> Path:
 
 
 def _element_number(symbol: str) -> int | None:
-    from pyscf.data import elements
+    from harness.backend.mole import element_symbols
 
+    symbols = element_symbols()
     if symbol.isdigit():
         z = int(symbol)
-        return z if 1 <= z < len(elements.ELEMENTS) else None
+        return z if 1 <= z < len(symbols) else None
     wanted = symbol.capitalize()
     try:
-        z = elements.ELEMENTS.index(wanted)
+        z = symbols.index(wanted)
     except ValueError:
         return None
     return z if z >= 1 else None
@@ -231,7 +232,7 @@ class Case:
 
     def mole(self):
         """The pyscf ``Mole`` of this case (bohr, symmetry off), via ``build_mole``."""
-        from harness.contract.problem import build_mole
+        from harness.backend.mole import build_mole
 
         return build_mole(self.numbers, self.coordinates, charge=self.charge,
                           multiplicity=self.multiplicity, basis=self.basis,

@@ -1,6 +1,7 @@
 """Stored pyscf references: computing, storing, loading and verifying them.
 
-This is the only module of the harness that runs pyscf's SCF. A reference is the
+pyscf's SCF runs in ``harness.backend.reference_scf``; this module stores, hashes,
+loads and verifies what it finds. A reference is the
 lowest converged, internally stable pyscf solution for a case, with its energy split
 into terms, orbital energies, ⟨S²⟩ and dipole, and the other distinct stationary
 solutions met on the way (``known_states``: saddle points and higher minima). All
@@ -21,7 +22,6 @@ import json
 import math
 import os
 import time
-import warnings
 from pathlib import Path
 from typing import Any, Iterable, Mapping
 
@@ -29,16 +29,13 @@ import numpy as np
 
 from harness.catalogue.cases import Case, default_reference_dir
 from harness.contract.errors import ReferenceDataError
+# the SCF settings live with the driver that runs pyscf (harness.backend.reference_scf)
+from harness.backend.reference_scf import (  # noqa: F401  (re-exported)
+    BROKEN_SYMMETRY, CONV_TOL, CONV_TOL_GRAD, GUESSES, MAX_CYCLE, MAX_STABILITY_ROUNDS,
+    RESTRICTED, SAME_SOLUTION)
 
 #: Format tag written into every reference file.
 REFERENCE_FORMAT = "scf-harness-reference/1"
-#: pyscf energy convergence (Eh) and orbital-gradient convergence of the references.
-CONV_TOL = 1e-10
-CONV_TOL_GRAD = 1e-8
-#: SCF iterations allowed per run (generous: references are built once).
-MAX_CYCLE = 500
-#: Rounds of "stability analysis → follow the unstable mode → rerun" before giving up.
-MAX_STABILITY_ROUNDS = 10
 #: Two converged stationary solutions whose energies differ by more than this (Eh) are
 #: distinct states (``known_states``); closer ones are the same state (the first met is
 #: kept). 1e-6 Eh is the reference-energy tolerance: a code cannot be told apart from
@@ -56,22 +53,10 @@ STABILITY_POLICY = (
     f"rotated orbitals (at most {MAX_STABILITY_ROUNDS} rounds); keep the lowest-energy "
     "converged stable solution over all guesses; record every converged stationary "
     f"solution distinct by > {KNOWN_STATE_SEPARATION:g} Eh as a known state")
-#: Starting densities tried for every case (pyscf's names; "1e" is the bare core
-#: Hamiltonian, which leads some open shells into excited states); UHF singlets also try
-#: "broken-symmetry" (alpha HOMO/LUMO rotated by +45°, beta by −45°, on the minao guess
-#: orbitals). Earlier guesses win ties, so the order is part of the policy.
-GUESSES = ("minao", "atom", "huckel", "1e")
-BROKEN_SYMMETRY = "broken-symmetry"
-#: UHF singlets also start from the internally stable RHF solution (Pα = Pβ = P/2), so
-#: that the spin-restricted stationary point is among the known states.
-RESTRICTED = "restricted"
 #: |E_total − (E_nuc + E_1 + E_J + E_K)| allowed when the energy terms are stored (Eh).
 ENERGY_SUM_TOLERANCE = 1e-9
 #: |E_recomputed − E_stored| allowed by ``verify(..., recompute=True)`` (Eh).
 RECOMPUTE_TOLERANCE = 1e-9
-#: Two solutions from different guesses whose energies differ by less than this (Eh)
-#: are the same solution; the earlier guess is kept so the choice is reproducible.
-SAME_SOLUTION = 1e-8
 
 UNITS = {"energy": "hartree (Eh)", "dipole": "e*bohr (atomic units), origin at (0, 0, 0)",
          "coordinates": "bohr"}
@@ -280,130 +265,6 @@ class Reference:
 # --------------------------------------------------------------------------- computing
 
 
-def _new_scf(mol, method: str):
-    from pyscf import scf
-
-    cls = {"rhf": scf.hf.RHF, "uhf": scf.uhf.UHF, "rohf": scf.rohf.ROHF}[method]
-    mf = cls(mol)
-    mf.conv_tol = CONV_TOL
-    mf.conv_tol_grad = CONV_TOL_GRAD
-    mf.max_cycle = MAX_CYCLE
-    mf.verbose = 0
-    return mf
-
-
-def _broken_symmetry_density(mf) -> np.ndarray:
-    """UHF start: minao guess orbitals with the alpha HOMO/LUMO pair rotated by +45°
-    and the beta pair by −45°, so the two spins localise on different sides."""
-    dm = mf.get_init_guess(key="minao")
-    e, c = mf.eig(mf.get_fock(dm=dm), mf.get_ovlp())
-    occ = mf.get_occ(e, c)
-    c = np.array(c, copy=True)
-    for spin, sign in ((0, 1.0), (1, -1.0)):
-        nocc = int(round(occ[spin].sum()))
-        if nocc < 1 or nocc >= c.shape[-1]:
-            continue
-        h, l = c[spin][:, nocc - 1].copy(), c[spin][:, nocc].copy()
-        t = sign * math.pi / 4
-        c[spin][:, nocc - 1] = math.cos(t) * h + math.sin(t) * l
-        c[spin][:, nocc] = -math.sin(t) * h + math.cos(t) * l
-    return mf.make_rdm1(c, occ)
-
-
-def _initial_density(mf, guess: str) -> np.ndarray:
-    if guess == BROKEN_SYMMETRY:
-        return _broken_symmetry_density(mf)
-    if guess == RESTRICTED:
-        rhf = _new_scf(mf.mol, "rhf")
-        _stable_solution(rhf, rhf.get_init_guess(key="minao"))
-        dm = 0.5 * np.asarray(rhf.make_rdm1())
-        return np.stack([dm, dm])
-    with warnings.catch_warnings():  # pyscf's own "atom" guess calls a deprecated helper
-        warnings.simplefilter("ignore", DeprecationWarning)
-        return mf.get_init_guess(key=guess)
-
-
-def _converge(mf, dm0) -> None:
-    mf.kernel(dm0)
-    if not mf.converged:  # fall back on the second-order solver from where DIIS stopped
-        second = mf.newton()
-        second.kernel(mf.mo_coeff, mf.mo_occ)
-        for attr in ("e_tot", "mo_coeff", "mo_occ", "mo_energy", "converged"):
-            setattr(mf, attr, getattr(second, attr))
-
-
-def _s_squared(mf) -> float:
-    from pyscf import scf
-
-    if isinstance(mf, scf.uhf.UHF) or isinstance(mf, scf.rohf.ROHF):
-        return float(mf.spin_square()[0])
-    return 0.0
-
-
-def _state_label(mf) -> str:
-    """Short occupation description: per-spin HOMO character (largest Mulliken share),
-    "non-aufbau" if an empty orbital lies below an occupied one, and for UHF whether
-    Pα = Pβ (spin-restricted-like) or not."""
-    from pyscf import scf
-
-    mol = mf.mol
-    s = mf.get_ovlp()
-    labels = [" ".join(x.split()) for x in mol.ao_labels()]
-    c, e, occ = np.asarray(mf.mo_coeff), np.asarray(mf.mo_energy), np.asarray(mf.mo_occ)
-    if c.ndim == 2:
-        c, e, occ = c[None], e[None], occ[None]
-        names = ("",)
-    else:
-        names = ("α ", "β ")
-    parts, aufbau = [], True
-    for cs, es, ns, name in zip(c, e, occ, names):
-        filled, empty = np.flatnonzero(ns > 0), np.flatnonzero(ns == 0)
-        if filled.size == 0:
-            continue
-        homo = filled[np.argmax(es[filled])]
-        share = cs[:, homo] * (s @ cs[:, homo])
-        parts.append(f"{name}HOMO {labels[int(np.argmax(share))]}")
-        if empty.size and es[empty].min() < es[filled].max() - 1e-6:
-            aufbau = False
-    if isinstance(mf, scf.uhf.UHF) and mol.spin == 0:
-        dm = np.asarray(mf.make_rdm1())
-        parts.append("α = β" if np.abs(dm[0] - dm[1]).max() < 1e-5 else "α ≠ β")
-    if not aufbau:
-        parts.append("non-aufbau")
-    return ", ".join(parts)
-
-
-def _stable_solution(mf, dm0, guess: str = "", states: list | None = None
-                     ) -> tuple[bool, int]:
-    """Converge, then follow internal instabilities (``harness.verdict.states.internal_mode``:
-    λ < −STABILITY_EIGENVALUE). Returns (stable, rounds used); every converged stationary
-    point met is appended to ``states`` as a :class:`KnownState`."""
-    from harness.verdict import states as stab
-    _converge(mf, dm0)
-    for rounds in range(1, MAX_STABILITY_ROUNDS + 1):
-        mode = stab.internal_mode(mf)
-        stable = not mode.eigenvalue < -stab.STABILITY_EIGENVALUE
-        if states is not None and mf.converged:
-            found = guess if rounds == 1 else f"{guess}, followed {rounds - 1}×"
-            states.append(KnownState(energy=float(mf.e_tot), s_squared=_s_squared(mf),
-                                     stable=stable, eigenvalue=float(mode.eigenvalue),
-                                     label=_state_label(mf), found_by=found))
-        if stable:
-            return True, rounds
-        _converge(mf, mf.make_rdm1(stab.rotated_orbitals(mf, mode), mf.mo_occ))
-    return False, MAX_STABILITY_ROUNDS
-
-
-def follow(mol, method: str, mo_coeff, mo_occ) -> tuple[float, float]:
-    """pyscf SCF of ``method`` started from the density of the given orbitals (pyscf AO
-    order of ``mol``), followed until internally stable as for a reference. Returns
-    (total energy in Eh, ⟨S²⟩). Used by ``harness.verdict.states`` to follow an instability of
-    a code's solution (pyscf analysing the code's solution, not checking itself)."""
-    mf = _new_scf(mol, method)
-    _stable_solution(mf, mf.make_rdm1(np.asarray(mo_coeff), np.asarray(mo_occ)))
-    return float(mf.e_tot), _s_squared(mf)
-
-
 def distinct_states(states: Iterable[KnownState]) -> tuple[KnownState, ...]:
     """Energy-sorted states, merging those within KNOWN_STATE_SEPARATION Eh (the first
     met of a group is kept, and a stable member wins over a saddle)."""
@@ -418,69 +279,25 @@ def distinct_states(states: Iterable[KnownState]) -> tuple[KnownState, ...]:
     return tuple(sorted(kept, key=lambda k: k.energy))
 
 
-def _energy_terms(mf) -> dict[str, float]:
-    """E_1 = Tr(P h), E_J = ½ Tr(P J[P]), E_K = −½ Σσ Tr(Pσ K[Pσ]) (RHF: −¼ Tr(P K[P]))."""
-    mol = mf.mol
-    dm = np.asarray(mf.make_rdm1())
-    h1e = mf.get_hcore()
-    if dm.ndim == 2:
-        vj, vk = mf.get_jk(mol, dm)
-        p = dm
-        ek = -0.25 * np.einsum("ij,ji->", dm, vk)
-    else:
-        vj, vk = mf.get_jk(mol, dm)
-        p = dm[0] + dm[1]
-        vj = vj[0] + vj[1]
-        ek = -0.5 * (np.einsum("ij,ji->", dm[0], vk[0]) + np.einsum("ij,ji->", dm[1], vk[1]))
-    return {"nuclear": float(mol.energy_nuc()),
-            "one_electron": float(np.einsum("ij,ji->", p, h1e)),
-            "coulomb": float(0.5 * np.einsum("ij,ji->", p, vj)),
-            "exchange": float(ek)}
-
-
-def _versions() -> dict[str, str]:
-    import pyscf
-
-    return {"pyscf_version": pyscf.__version__, "numpy_version": np.__version__}
-
-
 def _solve(mol, method: str):
-    """Run every guess through :func:`_stable_solution`; return the kept run, all runs and
-    the distinct stationary states met.
+    """The backend's reference solution (``harness.backend.reference_scf``) and the
+    distinct stationary states met, the kept solution first."""
+    from harness.backend.reference_scf import reference_solution
 
-    A run is ``(guess, mf, converged, stable, rounds)``. Kept: the lowest energy among
-    the converged stable runs (else the converged ones, else all); ties within
-    SAME_SOLUTION Eh go to the earlier guess.
-    """
-    guesses = list(GUESSES)
-    if method == "uhf" and mol.spin == 0:
-        guesses += [BROKEN_SYMMETRY, RESTRICTED]
-    runs, states = [], []
-    for guess in guesses:
-        mf = _new_scf(mol, method)
-        stable, rounds = _stable_solution(mf, _initial_density(mf, guess), guess, states)
-        runs.append((guess, mf, bool(mf.converged), stable, rounds))
-
-    def rank(run):
-        return (not run[2], not run[3])
-
-    best_class = min(rank(r) for r in runs)
-    pool = [r for r in runs if rank(r) == best_class]
-    lowest = min(r[1].e_tot for r in pool)
-    kept = next(r for r in pool if r[1].e_tot < lowest + SAME_SOLUTION)
+    sol = reference_solution(mol, method)
     # the kept solution is state 0, the others follow by energy (a saddle point below it
     # would be listed too: it would mean a lower minimum exists that no guess reached)
-    known = distinct_states(states)
-    first = [st for st in known if abs(st.energy - kept[1].e_tot) <= KNOWN_STATE_SEPARATION]
-    return kept, runs, tuple(first[:1]) + tuple(st for st in known if st not in first[:1])
-
+    known = distinct_states(KnownState(**dataclasses.asdict(st)) for st in sol.states)
+    first = [st for st in known if abs(st.energy - sol.energy) <= KNOWN_STATE_SEPARATION]
+    return sol, tuple(first[:1]) + tuple(st for st in known if st not in first[:1])
 
 def reference_energy(mol, method: str) -> float:
     """Total energy (Eh) of the reference solution for a pyscf ``Mole`` built in bohr,
     chosen exactly as :func:`compute_reference` chooses it. For molecules that are not
     catalogue cases, e.g. a custom basis given as a pyscf basis dict."""
-    (_, mf, _, _, _), _, _ = _solve(mol, method)
-    return float(mf.e_tot)
+    from harness.backend.reference_scf import reference_solution
+
+    return reference_solution(mol, method).energy
 
 
 def compute_reference(case: Case) -> Reference:
@@ -494,26 +311,29 @@ def compute_reference(case: Case) -> Reference:
     ``known_states``, the kept solution first. Raises ReferenceDataError if the stored
     energy terms do not sum to the total within ENERGY_SUM_TOLERANCE.
     """
-    mol = case.mole()
-    (guess, mf, converged, stable, rounds), runs, known = _solve(mol, case.method)
-    guesses = [r[0] for r in runs]
+    from harness.backend.mole import pyscf_version
 
-    terms = _energy_terms(mf)
-    total = float(mf.e_tot)
+    mol = case.mole()
+    sol, known = _solve(mol, case.method)
+    guess, converged, stable, rounds = sol.guess, sol.converged, sol.stable, sol.rounds
+    guesses = list(sol.guesses)
+
+    terms = dict(sol.terms)
+    total = sol.energy
     mismatch = total - sum(terms.values())
     if abs(mismatch) > ENERGY_SUM_TOLERANCE:
         raise ReferenceDataError(f"energy terms sum to {total - mismatch!r}, total is "
                                  f"{total!r} (difference {mismatch:.1e} Eh)", case=case.name,
                                  field="energies")
-    s2 = _s_squared(mf)
-    dipole = np.asarray(mf.dip_moment(unit="AU", verbose=0), dtype=float)
-    mo_energy = np.asarray(mf.mo_energy, dtype=float)
-    mo_occ = np.asarray(mf.mo_occ, dtype=float)
+    s2 = sol.s_squared
+    dipole = sol.dipole
+    mo_energy = sol.orbital_energies
+    mo_occ = sol.occupations
     provenance = {
-        "program": "pyscf", **_versions(),
+        "program": "pyscf", "pyscf_version": pyscf_version(), "numpy_version": np.__version__,
         "conv_tol": CONV_TOL, "conv_tol_grad": CONV_TOL_GRAD, "max_cycle": MAX_CYCLE,
         "symmetry": False, "guesses_tried": guesses, "guess_kept": guess,
-        "energy_by_guess": {r[0]: float(r[1].e_tot) for r in runs},
+        "energy_by_guess": dict(sol.energy_by_guess),
         "stability_policy": STABILITY_POLICY,
         "geometry_source": case.geometry_source,
         "created_utc": datetime.datetime.now(datetime.timezone.utc).isoformat(
@@ -526,7 +346,7 @@ def compute_reference(case: Case) -> Reference:
                      energy_one_electron=terms["one_electron"],
                      energy_coulomb=terms["coulomb"], energy_exchange=terms["exchange"],
                      orbital_energies=mo_energy, occupations=mo_occ, s_squared=s2,
-                     dipole=dipole, nao=int(mol.nao), nmo=int(np.shape(mf.mo_coeff)[-1]),
+                     dipole=dipole, nao=sol.nao, nmo=sol.nmo,
                      converged=converged, stable=stable, stability_rounds=rounds,
                      inputs=_inputs(case), provenance=provenance, known_states=known)
 

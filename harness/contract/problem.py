@@ -6,14 +6,9 @@ All quantities are in atomic units: coordinates in bohr, energies in hartree (Eh
 from __future__ import annotations
 
 import dataclasses
-from typing import TYPE_CHECKING
-
 import numpy as np
 
 from harness.contract.errors import CaseError
-
-if TYPE_CHECKING:  # pragma: no cover
-    from pyscf import gto
 
 METHODS = ("rhf", "uhf", "rohf")
 
@@ -68,27 +63,12 @@ def _check_geometry(coordinates: np.ndarray, name: str) -> None:
 
 def build_mole(numbers, coordinates, *, charge: int, multiplicity: int, basis: str,
                cartesian: bool):
-    """Build the pyscf ``Mole`` for a case: coordinates in bohr, symmetry off, quiet.
+    """Build the pyscf ``Mole`` for a case: coordinates in bohr, symmetry off, quiet
+    (:func:`harness.backend.mole.build_mole`)."""
+    from harness.backend.mole import build_mole as backend_build_mole
 
-    This is the single place where a case becomes a pyscf molecule; the references,
-    the integrals used by the checks and ``Problem.to_pyscf`` all go through it.
-    """
-    from pyscf import gto
-
-    atom = [(int(z), tuple(float(x) for x in xyz)) for z, xyz in zip(numbers, coordinates)]
-    mol = gto.Mole()
-    mol.atom = atom
-    mol.unit = "Bohr"
-    mol.basis = basis
-    mol.cart = bool(cartesian)
-    mol.charge = int(charge)
-    mol.spin = int(multiplicity) - 1
-    mol.symmetry = False
-    mol.verbose = 0
-    mol.output = None
-    mol.max_memory = 4000
-    mol.build(parse_arg=False, dump_input=False)
-    return mol
+    return backend_build_mole(numbers, coordinates, charge=charge, multiplicity=multiplicity,
+                              basis=basis, cartesian=cartesian)
 
 
 @dataclasses.dataclass(frozen=True)
@@ -214,9 +194,9 @@ class Problem:
 
     def to_pyscf(self):
         """A pyscf ``Mole`` built exactly as the reference builds it (bohr, symmetry off)."""
-        return build_mole(self.numbers, self.coordinates, charge=self.charge,
-                          multiplicity=self.multiplicity, basis=self.basis,
-                          cartesian=self.cartesian)
+        from harness.backend.mole import mole_for
+
+        return mole_for(self)
 
     def replace(self, **changes) -> "Problem":
         """A copy with some fields changed (re-validated)."""

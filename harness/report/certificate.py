@@ -169,8 +169,8 @@ def collect_versions() -> dict[str, str]:
     import harness
 
     try:
-        import pyscf
-        pyscf_version = pyscf.__version__
+        from harness.backend.mole import pyscf_version as _pyscf_version
+        pyscf_version = _pyscf_version()
     except Exception:  # pragma: no cover - pyscf is a dependency
         pyscf_version = "unavailable"
     return {"harness": str(getattr(harness, "__version__", "unknown")), "pyscf": pyscf_version,

@@ -225,8 +225,8 @@ def collect_versions() -> dict[str, str]:
     import numpy
 
     try:
-        import pyscf
-        pyscf_version = pyscf.__version__
+        from harness.backend.mole import pyscf_version as _pyscf_version
+        pyscf_version = _pyscf_version()
     except Exception:  # pragma: no cover - pyscf is a dependency
         pyscf_version = "unavailable"
     return {"harness": harness_version(), "pyscf": pyscf_version, "numpy": numpy.__version__,

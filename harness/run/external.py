@@ -181,13 +181,14 @@ def problem_document(problem, *, solution: str = DEFAULT_SOLUTION) -> dict[str, 
 
 def geometry_xyz(problem) -> str:
     """Standard XYZ text of the molecule, coordinates in ångström (Å = bohr × a0)."""
-    from pyscf.data import elements
+    from harness.backend.mole import element_symbols
 
+    symbols = element_symbols()
     lines = [str(len(problem.numbers)),
              f"{problem.name} units=angstrom (coordinates in bohr are in {PROBLEM_FILE})"]
     for z, xyz in zip(problem.numbers, problem.coordinates):
         x, y, w = (float(v) * BOHR_IN_ANGSTROM for v in xyz)
-        lines.append(f"{elements.ELEMENTS[int(z)]:<2} {x:20.12f} {y:20.12f} {w:20.12f}")
+        lines.append(f"{symbols[int(z)]:<2} {x:20.12f} {y:20.12f} {w:20.12f}")
     return "\n".join(lines) + "\n"
 
 

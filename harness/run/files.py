@@ -498,10 +498,10 @@ def read_molden(path, problem, *, energy_file=None) -> dict[str, Any]:
         import contextlib
         import io
 
-        from pyscf.tools import molden
+        from harness.backend.mole import load_molden
 
         with contextlib.redirect_stderr(io.StringIO()):
-            mol, mo_energy, mo_coeff, mo_occ, _, _ = molden.load(str(path))
+            mol, mo_energy, mo_coeff, mo_occ = load_molden(path)
     except Exception as exc:  # pyscf's parser raises anything on a broken file
         raise SolutionFileError(f"not a readable Molden file ({type(exc).__name__}: "
                                 f"{str(exc).splitlines()[0][:80] if str(exc) else ''})",
@@ -514,8 +514,10 @@ def read_molden(path, problem, *, energy_file=None) -> dict[str, Any]:
         raise SolutionFileError(f"has {mol.nao} basis functions, the case ({problem.basis}, "
                                 f"{'cartesian' if problem.cartesian else 'spherical'}) has "
                                 f"{case_mol.nao}", file=name, key="basis")
-    s_case = case_mol.intor_symmetric("int1e_ovlp")
-    s_file = mol.intor_symmetric("int1e_ovlp")
+    from harness.backend.integrals import overlap
+
+    s_case = overlap(case_mol)
+    s_file = overlap(mol)
     diff = np.abs(s_file - s_case)
     worst = np.unravel_index(int(np.argmax(diff)), diff.shape)
     if diff[worst] > MOLDEN_OVERLAP_TOLERANCE:

@@ -211,9 +211,9 @@ def _share_cores(jobs: int) -> None:
     """Give each of ``jobs`` concurrent children its share of the cores for pyscf's
     OpenMP threads (environment variables are too late: pyscf is preloaded)."""
     try:
-        from pyscf import lib
+        from harness.backend.mole import set_threads
 
-        lib.num_threads(max(1, (os.cpu_count() or 1) // max(1, jobs)))
+        set_threads(max(1, (os.cpu_count() or 1) // max(1, jobs)))
     except Exception:  # pragma: no cover - pyscf without OpenMP
         pass
 

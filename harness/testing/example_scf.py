@@ -67,15 +67,10 @@ def compute_integrals(problem) -> Integrals:
     The two-electron integrals are computed with 8-fold symmetry and unpacked to the full
     tensor; that costs nao⁴ doubles (1.4 GB at nao = 114), fine up to ~120 AO.
     """
-    from pyscf import ao2mo
+    from harness.backend.integrals import full_integrals
 
-    mol = problem.to_pyscf()
-    nao = mol.nao_nr()
-    eri = ao2mo.restore(1, mol.intor("int2e", aosym="s8"), nao)
-    return Integrals(s=mol.intor("int1e_ovlp"), t=mol.intor("int1e_kin"),
-                     v=mol.intor("int1e_nuc"), eri=np.ascontiguousarray(eri),
-                     e_nuc=float(mol.energy_nuc()),
-                     shells=tuple(int(i) for i in mol.ao_loc_nr(cart=mol.cart)))
+    s, t, v, eri, e_nuc, shells = full_integrals(problem)
+    return Integrals(s=s, t=t, v=v, eri=eri, e_nuc=e_nuc, shells=shells)
 
 
 def canonical_orthogonaliser(s: np.ndarray, threshold: float = LINEAR_DEPENDENCE) -> np.ndarray:

@@ -276,13 +276,14 @@ def size_consistency(plugin, a: Case, b: Case, *, separation: float = SEPARATION
 def write_xyz_angstrom(case: Case, path) -> Path:
     """Write the case's geometry as an XYZ file in ångström (Å = bohr × BOHR_IN_ANGSTROM,
     15 decimals), comment line ``units=angstrom``. Returns the path."""
-    from pyscf.data import elements
+    from harness.backend.mole import element_symbols
 
+    symbols = element_symbols()
     path = Path(path)
     lines = [str(len(case.numbers)), f"units=angstrom source: {case.name}, written by "
              "harness.testing.metamorphic (bohr converted to ångström)"]
     for z, xyz in zip(case.numbers, np.asarray(case.coordinates) * BOHR_IN_ANGSTROM):
-        lines.append(f"{elements.ELEMENTS[z]:<2} " + " ".join(f"{x:.15f}" for x in xyz))
+        lines.append(f"{symbols[z]:<2} " + " ".join(f"{x:.15f}" for x in xyz))
     path.write_text("\n".join(lines) + "\n", encoding="utf-8")
     return path
 

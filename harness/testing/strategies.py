@@ -105,12 +105,12 @@ def nearest_distances(coordinates) -> np.ndarray:
 def closest_contact(numbers, coordinates) -> float:
     """min over atom pairs of R_AB / (r_A + r_B), covalent radii r from pyscf (bohr);
     inf for a single atom. Compare with CLOSEST_CONTACT."""
-    from pyscf.data import radii
+    from harness.backend.mole import covalent_radii
 
     r = np.asarray(coordinates, dtype=float)
     if len(r) < 2:
         return math.inf
-    cov = np.asarray(radii.COVALENT)[np.asarray(numbers)]
+    cov = covalent_radii()[np.asarray(numbers)]
     d = np.linalg.norm(r[:, None, :] - r[None, :, :], axis=-1)
     ratio = d / (cov[:, None] + cov[None, :])
     np.fill_diagonal(ratio, np.inf)
@@ -259,7 +259,7 @@ def catalogue_cases(*, suite: str | None = None, basis: str | None = None,
 
 
 def _nao(case: Case, basis: str | None = None) -> int | None:
-    from harness.contract.problem import build_mole
+    from harness.backend.mole import build_mole
 
     try:
         return int(build_mole(case.numbers, case.coordinates, charge=case.charge,
@@ -454,10 +454,10 @@ def core_guess(problem):
     integrals, Eh), S-orthonormal. Returns (ε, C), C of shape (nao, nmo)."""
     import scipy.linalg
 
-    mol = problem.to_pyscf()
-    s = mol.intor_symmetric("int1e_ovlp")
-    h = mol.intor_symmetric("int1e_kin") + mol.intor_symmetric("int1e_nuc")
-    return scipy.linalg.eigh(h, s)
+    from harness.backend.integrals import integrals_for
+
+    ints = integrals_for(problem)
+    return scipy.linalg.eigh(ints.h, ints.s)
 
 
 def occupation_classes(problem, nmo: int) -> list[np.ndarray]:

@@ -141,12 +141,14 @@ class _Basis:
 
 
 def _basis(mol) -> _Basis:
-    cart = bool(mol.cart)
-    loc = mol.ao_loc_nr()  # consistent with mol.cart
+    from harness.backend.integrals import shell_structure
+
+    shells = shell_structure(mol)
+    cart = shells.cart
+    loc = shells.ao_loc  # consistent with mol.cart
     atom, ls, shell, comp = [], [], [], []
     starts, sizes, satom, sl = [], [], [], []
-    for b in range(mol.nbas):
-        l, a, nctr = mol.bas_angular(b), mol.bas_atom(b), mol.bas_nctr(b)
+    for b, (l, a, nctr) in enumerate(zip(shells.l, shells.atom, shells.nctr)):
         ncomp = (l + 1) * (l + 2) // 2 if cart else 2 * l + 1
         for c in range(nctr):
             start = int(loc[b]) + c * ncomp
@@ -160,7 +162,7 @@ def _basis(mol) -> _Basis:
     return _Basis(atom=arr(atom), l=arr(ls), shell=arr(shell), comp=arr(comp),
                   shell_start=np.asarray(starts), shell_size=np.asarray(sizes),
                   shell_atom=np.asarray(satom), shell_l=np.asarray(sl), cart=cart,
-                  symbols=tuple(mol.atom_symbol(a) for a in range(mol.natm)))
+                  symbols=shells.symbols)
 
 
 def _kind(l: int, cart: bool) -> str:
@@ -597,10 +599,12 @@ def _plainness(src, fac, basis: _Basis) -> tuple[int, ...]:
 
 
 def _count_hint(n_code: int, mol) -> str:
-    other = mol.nao_nr(cart=not mol.cart)
-    if n_code != other:
+    from harness.backend.integrals import shell_structure
+
+    shells = shell_structure(mol)
+    if n_code != shells.nao_other:
         return ""
-    high = sorted({mol.bas_angular(b) for b in range(mol.nbas) if mol.bas_angular(b) >= 2})
+    high = sorted({l for l in shells.l if l >= 2})
     return f" (cartesian vs spherical {'/'.join(_LETTERS[l] for l in high)}?)"
 
 
@@ -630,14 +634,16 @@ def detect_convention(s_code, mol, *, tolerance: float = CONVENTION_MATCH,
         raise HarnessError(f"shape {s_code.shape} is not a square matrix", field="overlap")
     if not np.all(np.isfinite(s_code)):
         raise HarnessError("contains NaN or inf", field="overlap")
-    n_ref = mol.nao_nr()
+    from harness.backend.integrals import overlap, shell_structure
+
+    n_ref = shell_structure(mol).nao
     n_code = s_code.shape[0]
     if n_code != n_ref:
         return BasisMismatch(
             reason=f"basis differs: the code has {n_code} functions, the reference "
                    f"{n_ref}{_count_hint(n_code, mol)}",
             evidence={"nao_code": float(n_code), "nao_reference": float(n_ref)})
-    s_ref = mol.intor_symmetric("int1e_ovlp") if s_ref is None else np.asarray(s_ref, float)
+    s_ref = overlap(mol) if s_ref is None else np.asarray(s_ref, float)
     basis = _basis(mol)
     identity_error = float(np.max(np.abs(s_code - s_ref)))
     if identity_error <= tolerance:
@@ -720,7 +726,9 @@ def named_convention(name: str, mol) -> Convention:
     unit = key in ("molden", "unit-cartesian") and basis.cart
     diag = None
     if unit:
-        s_diag = np.diag(mol.intor_symmetric("int1e_ovlp"))[src]
+        from harness.backend.integrals import overlap
+
+        s_diag = np.diag(overlap(mol))[src]
         fac = np.where(np.abs(s_diag - 1.0) <= CONVENTION_MATCH, 1.0, 1.0 / np.sqrt(s_diag))
         diag = s_diag * fac ** 2
     return _convention(src, fac, basis, diag)

@@ -489,9 +489,8 @@ def diagnose(problem, sol: Mapping, ints, d: np.ndarray, results, *, reference=N
 
     method = problem.method
     d = np.asarray(d, dtype=float)
-    mol = ints.mol
     s = ints.s
-    t = mol.intor_symmetric("int1e_kin")
+    t = ints.kinetic()
     v = ints.h - t  # H = T + V
 
     # electron count first: the other diagnoses assume P is the code's density
@@ -511,16 +510,12 @@ def diagnose(problem, sol: Mapping, ints, d: np.ndarray, results, *, reference=N
         vj_total, vk = np.asarray(jk[0]), np.asarray(jk[1])
         j = vj_total[None]
     else:
-        from pyscf import scf
         if jk is not None:  # UHF/ROHF: K known, J per spin needs J(Pα) only
             vj_total, vk = np.asarray(jk[0]), np.asarray(jk[1])
-            ja = np.asarray(scf.hf.get_jk(mol, np.ascontiguousarray(d[0]), hermi=1,
-                                          with_k=False)[0])
+            ja = ints.j(d[0])
             j = np.stack([ja, vj_total - ja])
         else:
-            vjs, vks = scf.hf.get_jk(mol, np.ascontiguousarray(d), hermi=1)
-            j = np.asarray(vjs).reshape(d.shape)
-            vk = np.asarray(vks).reshape(d.shape)
+            j, vk = ints.jk_components(d)
             vj_total = j.sum(axis=0)
 
     # 1. Fock fit
@@ -543,7 +538,8 @@ def diagnose(problem, sol: Mapping, ints, d: np.ndarray, results, *, reference=N
     p = d.sum(axis=0)
     e_kin = float(np.einsum("pq,qp->", p, t))
     e_att = float(np.einsum("pq,qp->", p, v))
-    e_nuc_ang = nuclear_repulsion(mol.atom_charges(), mol.atom_coords() * ANGSTROM_IN_BOHR)
+    e_nuc_ang = nuclear_repulsion(np.asarray(problem.numbers, dtype=float),
+                                  np.asarray(problem.coordinates) * ANGSTROM_IN_BOHR)
     e = float(sol["energy"])
     diff = e - terms.total
     cand = energy_candidates(terms, e_kin, e_att, e_nuc_ang)

@@ -49,8 +49,10 @@ def shell_matrix(mol, order=None, signs=None, unit=False, swap=None) -> np.ndarr
     every function to unit self-overlap; ``swap``: (shell a, shell b) indices into
     :func:`shells` (same atom, same l) whose places the code exchanges.
     """
+    from harness.backend.integrals import overlap
+
     nao = mol.nao_nr()
-    diag = np.diag(mol.intor_symmetric("int1e_ovlp"))
+    diag = np.diag(overlap(mol))
     table = shells(mol)
     placed = list(range(len(table)))  # code shell slot k holds reference shell placed[k]
     if swap is not None:

@@ -1,0 +1,266 @@
+"""The reference SCF driver: pyscf RHF/UHF/ROHF from every guess, instabilities followed.
+
+``harness.catalogue.references`` stores, hashes and loads references; this module runs
+pyscf for them (and for ``harness.verdict.states``, which follows an instability of a
+code's solution). Results come back as plain data (:class:`ReferenceSolution`). Atomic
+units: energies in hartree (Eh), dipole in e·bohr (origin at the coordinate origin).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import warnings
+
+import numpy as np
+
+from harness.backend import stability as stab
+
+#: pyscf energy convergence (Eh) and orbital-gradient convergence of the references.
+CONV_TOL = 1e-10
+CONV_TOL_GRAD = 1e-8
+#: SCF iterations allowed per run (generous: references are built once).
+MAX_CYCLE = 500
+#: Rounds of "stability analysis → follow the unstable mode → rerun" before giving up.
+MAX_STABILITY_ROUNDS = 10
+#: Starting densities tried for every case (pyscf's names; "1e" is the bare core
+#: Hamiltonian, which leads some open shells into excited states); UHF singlets also try
+#: "broken-symmetry" (alpha HOMO/LUMO rotated by +45°, beta by −45°, on the minao guess
+#: orbitals). Earlier guesses win ties, so the order is part of the policy.
+GUESSES = ("minao", "atom", "huckel", "1e")
+BROKEN_SYMMETRY = "broken-symmetry"
+#: UHF singlets also start from the internally stable RHF solution (Pα = Pβ = P/2), so
+#: that the spin-restricted stationary point is among the known states.
+RESTRICTED = "restricted"
+#: Two solutions from different guesses whose energies differ by less than this (Eh)
+#: are the same solution; the earlier guess is kept so the choice is reproducible.
+SAME_SOLUTION = 1e-8
+
+
+@dataclasses.dataclass(frozen=True)
+class FoundState:
+    """A converged stationary point met by the driver (the fields of
+    ``harness.catalogue.references.KnownState``): energy (Eh), ⟨S²⟩, internally stable or
+    not, lowest orbital-Hessian eigenvalue (Eh/rad²), occupation label, how it was found."""
+
+    energy: float
+    s_squared: float
+    stable: bool
+    eigenvalue: float
+    label: str
+    found_by: str
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class ReferenceSolution:
+    """The kept solution of :func:`reference_solution`, as plain data (Eh, e·bohr).
+
+    ``guess``/``converged``/``stable``/``rounds``: the kept run; ``guesses`` every guess
+    tried in order, ``energy_by_guess`` their energies; ``terms``: nuclear, one_electron,
+    coulomb, exchange; ``states``: every converged stationary point met, in order met.
+    """
+
+    guess: str
+    converged: bool
+    stable: bool
+    rounds: int
+    guesses: tuple[str, ...]
+    energy_by_guess: dict
+    energy: float
+    terms: dict
+    s_squared: float
+    dipole: np.ndarray
+    orbital_energies: np.ndarray
+    occupations: np.ndarray
+    nao: int
+    nmo: int
+    states: tuple[FoundState, ...]
+
+
+def _new_scf(mol, method: str):
+    from pyscf import scf
+
+    cls = {"rhf": scf.hf.RHF, "uhf": scf.uhf.UHF, "rohf": scf.rohf.ROHF}[method]
+    mf = cls(mol)
+    mf.conv_tol = CONV_TOL
+    mf.conv_tol_grad = CONV_TOL_GRAD
+    mf.max_cycle = MAX_CYCLE
+    mf.verbose = 0
+    return mf
+
+
+def _broken_symmetry_density(mf) -> np.ndarray:
+    """UHF start: minao guess orbitals with the alpha HOMO/LUMO pair rotated by +45°
+    and the beta pair by −45°, so the two spins localise on different sides."""
+    dm = mf.get_init_guess(key="minao")
+    e, c = mf.eig(mf.get_fock(dm=dm), mf.get_ovlp())
+    occ = mf.get_occ(e, c)
+    c = np.array(c, copy=True)
+    for spin, sign in ((0, 1.0), (1, -1.0)):
+        nocc = int(round(occ[spin].sum()))
+        if nocc < 1 or nocc >= c.shape[-1]:
+            continue
+        h, l = c[spin][:, nocc - 1].copy(), c[spin][:, nocc].copy()
+        t = sign * math.pi / 4
+        c[spin][:, nocc - 1] = math.cos(t) * h + math.sin(t) * l
+        c[spin][:, nocc] = -math.sin(t) * h + math.cos(t) * l
+    return mf.make_rdm1(c, occ)
+
+
+def _initial_density(mf, guess: str) -> np.ndarray:
+    if guess == BROKEN_SYMMETRY:
+        return _broken_symmetry_density(mf)
+    if guess == RESTRICTED:
+        rhf = _new_scf(mf.mol, "rhf")
+        _stable_solution(rhf, rhf.get_init_guess(key="minao"))
+        dm = 0.5 * np.asarray(rhf.make_rdm1())
+        return np.stack([dm, dm])
+    with warnings.catch_warnings():  # pyscf's own "atom" guess calls a deprecated helper
+        warnings.simplefilter("ignore", DeprecationWarning)
+        return mf.get_init_guess(key=guess)
+
+
+def _converge(mf, dm0) -> None:
+    mf.kernel(dm0)
+    if not mf.converged:  # fall back on the second-order solver from where DIIS stopped
+        second = mf.newton()
+        second.kernel(mf.mo_coeff, mf.mo_occ)
+        for attr in ("e_tot", "mo_coeff", "mo_occ", "mo_energy", "converged"):
+            setattr(mf, attr, getattr(second, attr))
+
+
+def _s_squared(mf) -> float:
+    from pyscf import scf
+
+    if isinstance(mf, scf.uhf.UHF) or isinstance(mf, scf.rohf.ROHF):
+        return float(mf.spin_square()[0])
+    return 0.0
+
+
+def _state_label(mf) -> str:
+    """Short occupation description: per-spin HOMO character (largest Mulliken share),
+    "non-aufbau" if an empty orbital lies below an occupied one, and for UHF whether
+    Pα = Pβ (spin-restricted-like) or not."""
+    from pyscf import scf
+
+    mol = mf.mol
+    s = mf.get_ovlp()
+    labels = [" ".join(x.split()) for x in mol.ao_labels()]
+    c, e, occ = np.asarray(mf.mo_coeff), np.asarray(mf.mo_energy), np.asarray(mf.mo_occ)
+    if c.ndim == 2:
+        c, e, occ = c[None], e[None], occ[None]
+        names = ("",)
+    else:
+        names = ("α ", "β ")
+    parts, aufbau = [], True
+    for cs, es, ns, name in zip(c, e, occ, names):
+        filled, empty = np.flatnonzero(ns > 0), np.flatnonzero(ns == 0)
+        if filled.size == 0:
+            continue
+        homo = filled[np.argmax(es[filled])]
+        share = cs[:, homo] * (s @ cs[:, homo])
+        parts.append(f"{name}HOMO {labels[int(np.argmax(share))]}")
+        if empty.size and es[empty].min() < es[filled].max() - 1e-6:
+            aufbau = False
+    if isinstance(mf, scf.uhf.UHF) and mol.spin == 0:
+        dm = np.asarray(mf.make_rdm1())
+        parts.append("α = β" if np.abs(dm[0] - dm[1]).max() < 1e-5 else "α ≠ β")
+    if not aufbau:
+        parts.append("non-aufbau")
+    return ", ".join(parts)
+
+
+def _stable_solution(mf, dm0, guess: str = "", states: list | None = None
+                     ) -> tuple[bool, int]:
+    """Converge, then follow internal instabilities (``harness.backend.stability.internal_mode``:
+    λ < −STABILITY_EIGENVALUE). Returns (stable, rounds used); every converged stationary
+    point met is appended to ``states`` as a :class:`FoundState`."""
+    _converge(mf, dm0)
+    for rounds in range(1, MAX_STABILITY_ROUNDS + 1):
+        mode = stab.internal_mode(mf)
+        stable = not mode.eigenvalue < -stab.STABILITY_EIGENVALUE
+        if states is not None and mf.converged:
+            found = guess if rounds == 1 else f"{guess}, followed {rounds - 1}×"
+            states.append(FoundState(energy=float(mf.e_tot), s_squared=_s_squared(mf),
+                                     stable=stable, eigenvalue=float(mode.eigenvalue),
+                                     label=_state_label(mf), found_by=found))
+        if stable:
+            return True, rounds
+        _converge(mf, mf.make_rdm1(stab.rotated_orbitals(mf, mode), mf.mo_occ))
+    return False, MAX_STABILITY_ROUNDS
+
+
+def follow(mol, method: str, mo_coeff, mo_occ) -> tuple[float, float]:
+    """pyscf SCF of ``method`` started from the density of the given orbitals (pyscf AO
+    order of ``mol``), followed until internally stable as for a reference. Returns
+    (total energy in Eh, ⟨S²⟩). Used by ``harness.verdict.states`` to follow an instability of
+    a code's solution (pyscf analysing the code's solution, not checking itself)."""
+    mf = _new_scf(mol, method)
+    _stable_solution(mf, mf.make_rdm1(np.asarray(mo_coeff), np.asarray(mo_occ)))
+    return float(mf.e_tot), _s_squared(mf)
+
+
+
+def _energy_terms(mf) -> dict[str, float]:
+    """E_1 = Tr(P h), E_J = ½ Tr(P J[P]), E_K = −½ Σσ Tr(Pσ K[Pσ]) (RHF: −¼ Tr(P K[P]))."""
+    mol = mf.mol
+    dm = np.asarray(mf.make_rdm1())
+    h1e = mf.get_hcore()
+    if dm.ndim == 2:
+        vj, vk = mf.get_jk(mol, dm)
+        p = dm
+        ek = -0.25 * np.einsum("ij,ji->", dm, vk)
+    else:
+        vj, vk = mf.get_jk(mol, dm)
+        p = dm[0] + dm[1]
+        vj = vj[0] + vj[1]
+        ek = -0.5 * (np.einsum("ij,ji->", dm[0], vk[0]) + np.einsum("ij,ji->", dm[1], vk[1]))
+    return {"nuclear": float(mol.energy_nuc()),
+            "one_electron": float(np.einsum("ij,ji->", p, h1e)),
+            "coulomb": float(0.5 * np.einsum("ij,ji->", p, vj)),
+            "exchange": float(ek)}
+
+
+
+
+def _solve(mol, method: str):
+    """Run every guess through :func:`_stable_solution`; return the kept run, all runs and
+    the stationary states met (in order met).
+
+    A run is ``(guess, mf, converged, stable, rounds)``. Kept: the lowest energy among
+    the converged stable runs (else the converged ones, else all); ties within
+    SAME_SOLUTION Eh go to the earlier guess.
+    """
+    guesses = list(GUESSES)
+    if method == "uhf" and mol.spin == 0:
+        guesses += [BROKEN_SYMMETRY, RESTRICTED]
+    runs, states = [], []
+    for guess in guesses:
+        mf = _new_scf(mol, method)
+        stable, rounds = _stable_solution(mf, _initial_density(mf, guess), guess, states)
+        runs.append((guess, mf, bool(mf.converged), stable, rounds))
+
+    def rank(run):
+        return (not run[2], not run[3])
+
+    best_class = min(rank(r) for r in runs)
+    pool = [r for r in runs if rank(r) == best_class]
+    lowest = min(r[1].e_tot for r in pool)
+    kept = next(r for r in pool if r[1].e_tot < lowest + SAME_SOLUTION)
+    return kept, runs, states
+
+
+def reference_solution(mol, method: str) -> ReferenceSolution:
+    """The reference solution of ``method`` for a pyscf ``Mole`` built in bohr: every
+    guess converged and followed until internally stable, the lowest converged stable
+    run kept (see :func:`_solve`), as plain data."""
+    (guess, mf, converged, stable, rounds), runs, states = _solve(mol, method)
+    return ReferenceSolution(
+        guess=guess, converged=bool(converged), stable=bool(stable), rounds=int(rounds),
+        guesses=tuple(r[0] for r in runs),
+        energy_by_guess={r[0]: float(r[1].e_tot) for r in runs},
+        energy=float(mf.e_tot), terms=_energy_terms(mf), s_squared=_s_squared(mf),
+        dipole=np.asarray(mf.dip_moment(unit="AU", verbose=0), dtype=float),
+        orbital_energies=np.asarray(mf.mo_energy, dtype=float),
+        occupations=np.asarray(mf.mo_occ, dtype=float), nao=int(mol.nao),
+        nmo=int(np.shape(mf.mo_coeff)[-1]), states=tuple(states))
