@@ -33,6 +33,7 @@ import time
 
 import numpy as np
 
+from harness.contract.defaults import STABILITY_MODES
 from harness.checks.spin import density_by_spin, density_from_orbitals, orbitals_by_spin
 from harness.contract.results import CheckResult, Measurement, Status, judge, not_applicable
 
@@ -65,6 +66,14 @@ START_SEED = 20261201
 #: applicable (self-consistency reports the gradient). A code converged to 1e-4 in the
 #: commutator is 10× inside it.
 STATIONARY_GRADIENT_LIMIT = 1e-3
+#: Diagonal-Hessian denominators (Eh/rad²) smaller in magnitude than this are raised to it
+#: in the Davidson preconditioner and the start vector (pyscf's own guard): it only keeps
+#: 1/(H_ii − e) finite; the converged eigenvalue does not depend on it.
+PRECONDITIONER_FLOOR = 1e-8
+#: The external (RHF→UHF) start vector takes 1/H_ii only on diagonal elements above this
+#: (Eh/rad², as pyscf's ``rhf_external``): smaller or negative ones would dominate the start
+#: vector with huge or wrong-signed weights; the smallest element gets weight 1 anyway.
+EXTERNAL_START_DIAGONAL = 1e-5
 
 #: |⟨S²⟩ − ⟨S²⟩_ref| allowed for UHF. ⟨S²⟩ is not variational, so it is off to first order
 #: in the orbital error δκ ≈ gradient / curvature; at the default convergence (1e-6,
@@ -89,7 +98,13 @@ ERROR_BOUND_GRADIENT_LIMIT = 1e-2
 #: estimate finite and errs on the large side.
 CURVATURE_FLOOR = 1e-2
 
-MODES = ("internal", "external", "off")
+#: ⟨S²⟩ above −this prints as 0 rather than a "−0.00" / "−0.0000" from rounding: half the
+#: last printed digit at two decimals (messages, hints) and at four (the spin-squared check).
+S2_ROUNDING_2 = 5e-3
+S2_ROUNDING_4 = 5e-5
+
+#: The analyses :func:`stability` runs (``harness.contract.defaults.STABILITY_MODES``).
+MODES = STABILITY_MODES
 CHECK_STABILITY = "stability"
 CHECK_SPIN = "spin-squared"
 CHECK_ERROR_BOUND = "energy-error-bound"
@@ -150,7 +165,7 @@ def _davidson(hop, hdiag, x0):
 
     def precond(dx, e, _x0):
         d = hdiag - e
-        d[np.abs(d) < 1e-8] = 1e-8
+        d[np.abs(d) < PRECONDITIONER_FLOOR] = PRECONDITIONER_FLOOR
         return dx / d
 
     nroots = min(DAVIDSON_ROOTS, hdiag.size)
@@ -178,7 +193,7 @@ def internal_mode(mf) -> Mode:
     if hdiag.size == 0:
         return Mode(math.inf, np.zeros(0), "internal", 0.0)
     x0 = np.zeros_like(hdiag)
-    x0[g != 0] = 1.0 / np.where(hdiag[g != 0] == 0, 1e-8, hdiag[g != 0])
+    x0[g != 0] = 1.0 / np.where(hdiag[g != 0] == 0, PRECONDITIONER_FLOOR, hdiag[g != 0])
     x0[np.argmin(hdiag)] = 1.0
     e, v = _davidson(lambda x: 2.0 * hop(x).real, hdiag, x0)
     return Mode(e, v, "internal", float(2.0 * np.abs(g).max()))
@@ -196,7 +211,7 @@ def external_mode(mf) -> Mode:
     _, _, hop, hdiag = pyscf_stability._gen_hop_rhf_external(mf, with_symmetry=False)
     hdiag = np.asarray(hdiag, dtype=float)
     x0 = np.zeros_like(hdiag)
-    big = hdiag > 1e-5
+    big = hdiag > EXTERNAL_START_DIAGONAL
     x0[big] = 1.0 / hdiag[big]
     x0[np.argmin(hdiag)] = 1.0
     e, v = _davidson(hop, hdiag, x0)
@@ -358,7 +373,7 @@ def _num5(x: float) -> str:
 
 def _s2(x: float) -> str:
     """⟨S²⟩ to two decimals, without a '−0.00' from rounding."""
-    return f"{max(x, 0.0) if x > -5e-3 else x:.2f}"
+    return f"{max(x, 0.0) if x > -S2_ROUNDING_2 else x:.2f}"
 
 
 # --------------------------------------------------------------------------- ⟨S²⟩
@@ -408,8 +423,9 @@ def spin_check(problem, sol: dict, ints, reference, *,
             return not_applicable(CHECK_SPIN, "no reference", case)
         target, what, tol = float(reference.s_squared), "⟨S²⟩_ref", SPIN_SQUARED_UHF
     tol = tolerance if tolerance is not None else tol
+    shown = max(s2, 0.0) if s2 > -S2_ROUNDING_4 else s2
     m = Measurement(abs(s2 - target), f"|⟨S²⟩ − {what}|",
-                    f"⟨S²⟩ = {max(s2, 0.0) if s2 > -5e-5 else s2:.4f}, expected {target:.4f}")
+                    f"⟨S²⟩ = {shown:.4f}, expected {target:.4f}")
     return judge(CHECK_SPIN, m, tol, case)
 
 
