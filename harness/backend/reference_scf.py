@@ -35,6 +35,13 @@ RESTRICTED = "restricted"
 #: Two solutions from different guesses whose energies differ by less than this (Eh)
 #: are the same solution; the earlier guess is kept so the choice is reproducible.
 SAME_SOLUTION = 1e-8
+#: State labels: an empty orbital more than this (Eh) below an occupied one makes the state
+#: "non-aufbau" (the aufbau check's tolerance, tolerances.AUFBAU: degenerate frontier
+#: orbitals are split by convergence noise only).
+LABEL_AUFBAU_SLACK = 1e-6
+#: State labels: a UHF singlet with max|Pα − Pβ| below this is "α = β" (spin-restricted
+#: like); the reference SCF converges P far tighter than this (CONV_TOL_GRAD).
+LABEL_SAME_SPIN_DENSITY = 1e-5
 
 
 @dataclasses.dataclass(frozen=True)
@@ -160,11 +167,12 @@ def _state_label(mf) -> str:
         homo = filled[np.argmax(es[filled])]
         share = cs[:, homo] * (s @ cs[:, homo])
         parts.append(f"{name}HOMO {labels[int(np.argmax(share))]}")
-        if empty.size and es[empty].min() < es[filled].max() - 1e-6:
+        if empty.size and es[empty].min() < es[filled].max() - LABEL_AUFBAU_SLACK:
             aufbau = False
     if isinstance(mf, scf.uhf.UHF) and mol.spin == 0:
         dm = np.asarray(mf.make_rdm1())
-        parts.append("α = β" if np.abs(dm[0] - dm[1]).max() < 1e-5 else "α ≠ β")
+        parts.append("α = β" if np.abs(dm[0] - dm[1]).max() < LABEL_SAME_SPIN_DENSITY
+                     else "α ≠ β")
     if not aufbau:
         parts.append("non-aufbau")
     return ", ".join(parts)

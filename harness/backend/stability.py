@@ -24,6 +24,14 @@ STABILITY_EIGENVALUE = 1e-5
 #: value only ever lies above the true lowest eigenvalue, so an unconverged λ can hide a
 #: marginal instability (|λ| ~ 1e-5, lowering ≪ 1e-6 Eh) but never invent one.
 DAVIDSON_TOLERANCE = 1e-5
+#: Diagonal-Hessian denominators (Eh/rad²) smaller in magnitude than this are raised to it
+#: in the Davidson preconditioner and the start vector (pyscf's own guard): it only keeps
+#: 1/(H_ii − e) finite; the converged eigenvalue does not depend on it.
+PRECONDITIONER_FLOOR = 1e-8
+#: The external (RHF→UHF) start vector takes 1/H_ii only on diagonal elements above this
+#: (Eh/rad², as pyscf's ``rhf_external``): smaller or negative ones would dominate the start
+#: vector with huge or wrong-signed weights; the smallest element gets weight 1 anyway.
+EXTERNAL_START_DIAGONAL = 1e-5
 #: Lowest roots sought. One: the start vector below reaches every direction, and each
 #: further root costs one more Fock-like build per iteration (benzene/cc-pVDZ: 3 roots
 #: at 1e-6 take 2.6× as long as 1 root at 1e-5, for the same λ to 1e-6).
@@ -90,7 +98,7 @@ def _davidson(hop, hdiag, x0):
 
     def precond(dx, e, _x0):
         d = hdiag - e
-        d[np.abs(d) < 1e-8] = 1e-8
+        d[np.abs(d) < PRECONDITIONER_FLOOR] = PRECONDITIONER_FLOOR
         return dx / d
 
     nroots = min(DAVIDSON_ROOTS, hdiag.size)
@@ -118,7 +126,7 @@ def internal_mode(mf) -> Mode:
     if hdiag.size == 0:
         return Mode(math.inf, np.zeros(0), "internal", 0.0)
     x0 = np.zeros_like(hdiag)
-    x0[g != 0] = 1.0 / np.where(hdiag[g != 0] == 0, 1e-8, hdiag[g != 0])
+    x0[g != 0] = 1.0 / np.where(hdiag[g != 0] == 0, PRECONDITIONER_FLOOR, hdiag[g != 0])
     x0[np.argmin(hdiag)] = 1.0
     e, v = _davidson(lambda x: 2.0 * hop(x).real, hdiag, x0)
     return Mode(e, v, "internal", float(2.0 * np.abs(g).max()))
@@ -136,7 +144,7 @@ def external_mode(mf) -> Mode:
     _, _, hop, hdiag = pyscf_stability._gen_hop_rhf_external(mf, with_symmetry=False)
     hdiag = np.asarray(hdiag, dtype=float)
     x0 = np.zeros_like(hdiag)
-    big = hdiag > 1e-5
+    big = hdiag > EXTERNAL_START_DIAGONAL
     x0[big] = 1.0 / hdiag[big]
     x0[np.argmin(hdiag)] = 1.0
     e, v = _davidson(hop, hdiag, x0)

@@ -1,18 +1,45 @@
 """The check kernels: pure numpy functions on arrays, each with its formula documented.
 
 Each returns a :class:`harness.contract.results.Measurement`; ``harness.verdict.evaluate`` compares it
-with its named tolerance.
+with its named tolerance. The kernels are imported on first use, so that the declared
+table of checks (``harness.checks.table``, standard library only) can be read without
+importing numpy.
 """
 
-from harness.checks.frontier import aufbau
-from harness.checks.density import density_consistency, electron_count, idempotency
-from harness.checks.energy import EnergyTerms, energy_consistency, energy_terms, reference_energy
-from harness.checks.orthonormal import Lowdin, lowdin, matrix_difference, orthonormality
-from harness.checks.stationarity import commutator, roothaan_hall, rohf_conditions
-from harness.checks.wellformed import well_formed
+from __future__ import annotations
 
-__all__ = [
-    "EnergyTerms", "Lowdin", "aufbau", "commutator", "density_consistency", "electron_count",
-    "energy_consistency", "energy_terms", "idempotency", "lowdin", "matrix_difference",
-    "orthonormality", "reference_energy", "rohf_conditions", "roothaan_hall", "well_formed",
-]
+import importlib
+
+_EXPORTS = {
+    "aufbau": "harness.checks.frontier",
+    "density_consistency": "harness.checks.density",
+    "electron_count": "harness.checks.density",
+    "idempotency": "harness.checks.density",
+    "EnergyTerms": "harness.checks.energy",
+    "energy_consistency": "harness.checks.energy",
+    "energy_terms": "harness.checks.energy",
+    "reference_energy": "harness.checks.energy",
+    "Lowdin": "harness.checks.orthonormal",
+    "lowdin": "harness.checks.orthonormal",
+    "matrix_difference": "harness.checks.orthonormal",
+    "orthonormality": "harness.checks.orthonormal",
+    "commutator": "harness.checks.stationarity",
+    "roothaan_hall": "harness.checks.stationarity",
+    "rohf_conditions": "harness.checks.stationarity",
+    "well_formed": "harness.checks.wellformed",
+}
+
+__all__ = sorted(_EXPORTS)
+
+
+def __getattr__(name: str):
+    module = _EXPORTS.get(name)
+    if module is None:
+        raise AttributeError(f"module 'harness.checks' has no attribute {name!r}")
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(__all__))

@@ -112,7 +112,8 @@ def stalled(errors: np.ndarray, convergence: float, *, iterations: int = STALL_I
 
 def history_check(history, *, converged: bool | None, stationarity_value: float | None,
                   stationarity_tolerance: float | None, convergence: float, case: str,
-                  stationarity_quantity: str = STATIONARITY_QUANTITY) -> CheckResult:
+                  stationarity_quantity: str = STATIONARITY_QUANTITY,
+                  energy_step: float | None = None) -> CheckResult:
     """The "history" check: the reported iterations tell a consistent story.
 
     Fails (the first that applies names the failure; the others are listed after it):
@@ -123,9 +124,12 @@ def history_check(history, *, converged: bool | None, stationarity_value: float 
     * energy rising at the end: converged is True and E_n − E_{n−1} > ENERGY_RISE;
     * stalled error: :func:`stalled` of the code's errors with ``convergence``.
 
-    Not applicable when ``history`` is None. Energies in Eh.
+    Not applicable when ``history`` is None. ``energy_step`` (Eh, ``--tol history=...``)
+    replaces both OSCILLATION_AMPLITUDE and ENERGY_RISE when given. Energies in Eh.
     """
     name = "history"
+    amplitude = OSCILLATION_AMPLITUDE if energy_step is None else energy_step
+    rise_limit = ENERGY_RISE if energy_step is None else energy_step
     if history is None:
         return not_applicable(name, "no 'history' key", case)
     h = np.asarray(history, dtype=float).reshape(-1, 2)
@@ -144,20 +148,20 @@ def history_check(history, *, converged: bool | None, stationarity_value: float 
                          f"{stationarity_tolerance:.1e} ({case}); {own} after {n} "
                          f"iteration{'s' if n != 1 else ''}",
                          float(stationarity_value), float(stationarity_tolerance)))
-    osc = oscillation(energies)
+    osc = oscillation(energies, amplitude=amplitude)
     if osc is not None:
         count, step = osc
         tail = energies[-count:]
         findings.append((f"oscillation: the energy alternates between {tail[-2]:.6f} and "
-                         f"{tail[-1]:.6f} Eh (steps ≥ {step:.1e} > {OSCILLATION_AMPLITUDE:.1e}) "
+                         f"{tail[-1]:.6f} Eh (steps ≥ {step:.1e} > {amplitude:.1e}) "
                          f"over the last {count} iterations ({case})",
-                         step, OSCILLATION_AMPLITUDE))
+                         step, amplitude))
     if converged and n >= 2 and np.isfinite(energies[-2:]).all():
         rise = float(energies[-1] - energies[-2])
-        if rise > ENERGY_RISE:
+        if rise > rise_limit:
             findings.append((f"energy rising at the end: the last step raises E by "
-                             f"{rise:.1e} > {ENERGY_RISE:.1e} Eh while the code claims "
-                             f"convergence ({case})", rise, ENERGY_RISE))
+                             f"{rise:.1e} > {rise_limit:.1e} Eh while the code claims "
+                             f"convergence ({case})", rise, rise_limit))
     stall = stalled(errors, convergence)
     if stall is not None:
         first, last = stall
@@ -182,7 +186,7 @@ def history_check(history, *, converged: bool | None, stationarity_value: float 
 
 
 def history_from_results(sol: dict, results: dict, *, convergence: float,
-                         case: str) -> CheckResult:
+                         case: str, energy_step: float | None = None) -> CheckResult:
     """The "history" check wired to evaluate's results (for evaluate to call last).
 
     The harness's stationarity measurement is that of the code's own Fock matrix
@@ -190,6 +194,7 @@ def history_from_results(sol: dict, results: dict, *, convergence: float,
     wrong Hamiltonian is not called falsely converged (the integral and self-consistency
     checks catch that) — else that of the Fock rebuilt from its density
     (``results["self-consistency"]``); value, tolerance and quantity are taken from it.
+    ``energy_step``: as for :func:`history_check`.
     """
     value = tolerance = None
     quantity = STATIONARITY_QUANTITY
@@ -201,4 +206,5 @@ def history_from_results(sol: dict, results: dict, *, convergence: float,
             break
     return history_check(sol.get("history"), converged=sol.get("converged"),
                          stationarity_value=value, stationarity_tolerance=tolerance,
-                         convergence=convergence, case=case, stationarity_quantity=quantity)
+                         convergence=convergence, case=case, stationarity_quantity=quantity,
+                         energy_step=energy_step)

@@ -7,7 +7,8 @@ Two kinds:
 * convergence-derived tolerances guard quantities that vanish only at self-consistency;
   they are ``CONVERGENCE_FACTOR × problem.convergence``.
 
-Every value can be overridden per check (``--tol NAME=VALUE`` on the command line,
+The table of checks (``harness.checks.table``) names each check's tolerance; every
+check with a tolerance can be overridden (``--tol NAME=VALUE`` on the command line,
 ``Tolerances(...).override({...})`` in Python). All energies in hartree (Eh).
 """
 
@@ -17,6 +18,7 @@ import dataclasses
 import math
 from typing import Mapping
 
+from harness.checks import table as _table
 from harness.contract.errors import ToleranceError
 
 #: Derived tolerances are this multiple of the requested convergence. Codes measure
@@ -108,7 +110,8 @@ TWO_ELECTRON_DEFINITE = 1e-8
 #: reasons for them are next to their definitions there (STABILITY_EIGENVALUE in
 #: Eh/rad², SPIN_SQUARED_UHF, ENERGY_ERROR_BOUND in Eh); an override given here replaces
 #: that default (for spin-squared it applies to UHF, ROHF keeps its rounding bound).
-STATE_CHECK_NAMES = ("stability", "spin-squared", "energy-error-bound")
+STATE_CHECK_NAMES = tuple(c.name for c in _table.CHECKS if isinstance(c.tolerance, _table.Fixed)
+                          and c.tolerance.constant.startswith("harness.verdict.states:"))
 
 #: The integral checks (harness.checks.integrals), in table order.
 INTEGRAL_CHECK_NAMES = (
@@ -123,47 +126,23 @@ INTEGRAL_CHECK_NAMES = (
     "two-electron-definite",
 )
 
-#: Every check, in the order evaluate returns them and the table shows them. "basis"
-#: (the AO convention) and "well-formed" have no tolerance; nor has "history", whose
-#: named thresholds are in harness/checks/history.py.
-CHECK_NAMES = (
-    "basis",
-    "well-formed",
-    "converged-flag",
-    "overlap",
-    "orthonormality",
-    "idempotency",
-    "electron-count",
-    "density-consistency",
-    "stationarity",
-    "self-consistency",
-    "roothaan-hall",
-    "energy-consistency",
-    "reference-energy",
-    "aufbau",
-) + STATE_CHECK_NAMES + INTEGRAL_CHECK_NAMES + ("history",)
+#: Every check, in the order evaluate returns them and the table shows them: the names of
+#: the declared table ``harness.checks.table.CHECKS``, where each check's tolerance (a
+#: constant of this module or of the module that uses it, or a convergence-derived rule)
+#: is named.
+CHECK_NAMES = _table.NAMES
+
+#: The checks whose tolerance can be overridden (all but converged-flag, a flag).
+TOLERANCE_NAMES = _table.TOLERANCE_NAMES
 
 #: Checks whose tolerance is CONVERGENCE_FACTOR × convergence.
-DERIVED = ("density-consistency", "stationarity", "self-consistency", "roothaan-hall")
+DERIVED = tuple(c.name for c in _table.CHECKS if isinstance(c.tolerance, _table.Derived))
 
-FIXED = {
-    "overlap": OVERLAP,
-    "orthonormality": ORTHONORMALITY,
-    "idempotency": IDEMPOTENCY,
-    "electron-count": ELECTRON_COUNT,
-    "energy-consistency": ENERGY_CONSISTENCY,
-    "reference-energy": REFERENCE_ENERGY,
-    "aufbau": AUFBAU,
-    "kinetic": KINETIC,
-    "nuclear-attraction": NUCLEAR_ATTRACTION,
-    "core-hamiltonian": CORE_HAMILTONIAN,
-    "overlap-definite": OVERLAP_DEFINITE,
-    "kinetic-definite": KINETIC_DEFINITE,
-    "two-electron": TWO_ELECTRON,
-    "two-electron-symmetry": TWO_ELECTRON_SYMMETRY,
-    "two-electron-schwarz": TWO_ELECTRON_SCHWARZ,
-    "two-electron-definite": TWO_ELECTRON_DEFINITE,
-}
+#: The fixed tolerances defined in this module, by check (the state, basis, well-formed
+#: and history checks name constants of their own modules; see ``harness.checks.table``).
+FIXED = {c.name: globals()[c.tolerance.name] for c in _table.CHECKS
+         if isinstance(c.tolerance, _table.Fixed)
+         and c.tolerance.constant.startswith(__name__ + ":")}
 
 
 def parse_override(text: str) -> tuple[str, float]:
@@ -176,10 +155,12 @@ def parse_override(text: str) -> tuple[str, float]:
 
 
 def _positive(name: str, value) -> float:
-    if name not in FIXED and name not in DERIVED and name not in STATE_CHECK_NAMES:
-        known = ", ".join(n for n in CHECK_NAMES
-                          if n in FIXED or n in DERIVED or n in STATE_CHECK_NAMES)
-        raise ToleranceError(f"unknown check {name!r} (known: {known})", field="--tol")
+    if name in CHECK_NAMES and name not in TOLERANCE_NAMES:
+        raise ToleranceError(f"check {name!r} has no tolerance ({_table.spec(name).reason})",
+                             field="--tol")
+    if name not in TOLERANCE_NAMES:
+        raise ToleranceError(f"unknown check {name!r} (known: {', '.join(TOLERANCE_NAMES)})",
+                             field="--tol")
     try:
         if isinstance(value, bool):  # True would silently become 1.0
             raise TypeError
@@ -214,9 +195,10 @@ class Tolerances:
         """The tolerance used for check ``name`` on a problem with this convergence."""
         if name in self.overrides:
             return self.overrides[name]
-        if name in DERIVED:
-            return self.factor * convergence
-        return FIXED[name]
+        tolerance = _table.spec(name).tolerance
+        if tolerance is None:
+            raise KeyError(f"check {name!r} has no tolerance")
+        return tolerance.value(convergence, self.factor)
 
     def override(self, values: Mapping[str, float]) -> "Tolerances":
         merged = dict(self.overrides)
@@ -224,5 +206,7 @@ class Tolerances:
         return Tolerances(overrides=merged, factor=self.factor)
 
     def table(self, convergence: float) -> dict[str, float]:
+        """The core and integral tolerances at this convergence (the JSON report's
+        "tolerances"), plus every other check whose tolerance is overridden."""
         return {name: self.for_check(name, convergence) for name in CHECK_NAMES
-                if name in FIXED or name in DERIVED}
+                if name in FIXED or name in DERIVED or name in self.overrides}

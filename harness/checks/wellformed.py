@@ -21,7 +21,8 @@ def _shape(a) -> str:
     return str(tuple(a.shape)).replace(",)", ")")
 
 
-def well_formed(sol: dict, nao: int, method: str, n_alpha: int, n_beta: int) -> list[str]:
+def well_formed(sol: dict, nao: int, method: str, n_alpha: int, n_beta: int, *,
+                symmetry: float = SYMMETRY) -> list[str]:
     """List what is wrong with an extracted solution (empty list: well-formed).
 
     Shapes: coefficients (nao, nmo) — (2, nao, nmo) for UHF — with nmo ≤ nao;
@@ -29,7 +30,7 @@ def well_formed(sol: dict, nao: int, method: str, n_alpha: int, n_beta: int) -> 
     electron counts; density and fock (nao, nao) for RHF, (2, nao, nao) otherwise;
     overlap, core_hamiltonian, kinetic, nuclear_attraction (nao, nao); two_electron
     (nao, nao, nao, nao); orbital_energies like occupations; history non-empty.
-    All values finite; square matrices symmetric.
+    All values finite; square matrices symmetric: max|A − Aᵀ| ≤ ``symmetry``.
     """
     problems: list[str] = []
     for key in REQUIRED_KEYS:
@@ -79,10 +80,10 @@ def well_formed(sol: dict, nao: int, method: str, n_alpha: int, n_beta: int) -> 
     for key in ("density", "fock"):
         if key in sol and expect(key, spin_or_total + (nao, nao),
                                  _shape(np.empty(spin_or_total + (nao, nao)))):
-            problems.extend(_symmetry_problems(key, sol[key]))
+            problems.extend(_symmetry_problems(key, sol[key], symmetry))
     for key in ("overlap", "core_hamiltonian", "kinetic", "nuclear_attraction"):
         if key in sol and expect(key, (nao, nao), _shape(np.empty((nao, nao)))):
-            problems.extend(_symmetry_problems(key, sol[key]))
+            problems.extend(_symmetry_problems(key, sol[key], symmetry))
     if "two_electron" in sol:
         expect("two_electron", (nao,) * 4, f"({nao}, {nao}, {nao}, {nao})")
     if "history" in sol and sol["history"].shape[0] == 0:
@@ -90,10 +91,10 @@ def well_formed(sol: dict, nao: int, method: str, n_alpha: int, n_beta: int) -> 
     return problems
 
 
-def _symmetry_problems(key: str, a: np.ndarray) -> list[str]:
+def _symmetry_problems(key: str, a: np.ndarray, symmetry: float = SYMMETRY) -> list[str]:
     dev = float(np.max(np.abs(a - np.swapaxes(a, -1, -2)))) if a.size else 0.0
-    if dev > SYMMETRY:
-        return [f"'{key}' is not symmetric: max|A − Aᵀ| = {dev:.1e} > {SYMMETRY:.0e}"]
+    if dev > symmetry:
+        return [f"'{key}' is not symmetric: max|A − Aᵀ| = {dev:.1e} > {symmetry:.0e}"]
     return []
 
 

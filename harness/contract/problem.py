@@ -8,13 +8,13 @@ from __future__ import annotations
 import dataclasses
 import numpy as np
 
+from harness.contract import defaults as _defaults
 from harness.contract.errors import CaseError
 
 METHODS = ("rhf", "uhf", "rohf")
 
-#: Default stationarity asked of a plug-in: the largest element of the commutator
-#: X^T (F P S - S P F) X in the Löwdin-orthonormal basis (see README, "stationarity").
-DEFAULT_CONVERGENCE = 1e-6
+#: Default stationarity asked of a plug-in (``harness.contract.defaults``).
+DEFAULT_CONVERGENCE = _defaults.DEFAULT_CONVERGENCE
 
 
 def _frozen_array(values, dtype, shape_name: str, case: str) -> np.ndarray:

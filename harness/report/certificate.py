@@ -536,7 +536,7 @@ def _evaluation_options(cert: Mapping[str, Any], issues: list[str]) -> dict[str,
     certified ones; none (its defaults) for a certificate made before they were
     recorded; None, with an issue, when they are not valid options."""
     from harness.verdict.conventions import NAMED
-    from harness.verdict.evaluate import STABILITY_MODES
+    from harness.contract.defaults import STABILITY_MODES
 
     if EVALUATION_KEY not in cert:
         return {}

@@ -23,41 +23,15 @@ from rich.text import Text
 
 from harness.run.atomic import atomic_write
 from harness.contract.results import CaseResult, CheckResult, Status
+from harness.checks.table import COLUMNS as CHECK_COLUMNS
 from harness.checks.tolerances import CHECK_NAMES
 
 #: Width used when the output is not a terminal and COLUMNS is not set (CI logs).
 PLAIN_WIDTH = 140
 
-#: Column headers of the verdict table, in CHECK_NAMES order.
-SHORT_NAMES = {
-    "well-formed": "form",
-    "converged-flag": "conv",
-    "overlap": "ovlp",
-    "orthonormality": "orth",
-    "idempotency": "idem",
-    "electron-count": "nelec",
-    "density-consistency": "dens",
-    "stationarity": "stat",
-    "self-consistency": "self",
-    "roothaan-hall": "RH",
-    "energy-consistency": "Econs",
-    "reference-energy": "Eref",
-    "aufbau": "aufb",
-    "basis": "AO",
-    "stability": "stab",
-    "spin-squared": "S²",
-    "energy-error-bound": "Eerr",
-    "kinetic": "T",
-    "nuclear-attraction": "V",
-    "core-hamiltonian": "H",
-    "overlap-definite": "S>0",
-    "kinetic-definite": "T>0",
-    "two-electron": "ERI",
-    "two-electron-symmetry": "ERIsym",
-    "two-electron-schwarz": "Schwarz",
-    "two-electron-definite": "ERI≥0",
-    "history": "hist",
-}
+#: Column headers of the verdict table, by check: the ``column`` of each entry of the
+#: declared table of checks (``harness.checks.table.CHECKS``).
+SHORT_NAMES = dict(CHECK_COLUMNS)
 
 #: Width of one check column in the verdict table (a ``.0e`` value and a mark).
 COLUMN_WIDTH = 8

@@ -33,6 +33,7 @@ import traceback
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
+from harness.contract import defaults as _defaults
 from harness.contract.errors import PluginLoadError
 from harness.run.plugins import load_plugin
 from harness.contract.results import CaseResult, CheckResult, failed
@@ -44,8 +45,8 @@ PRELOAD = ["numpy", "pyscf", "harness.contract.solution"]
 #: interrupted runs): time for a plug-in's clean-up, such as removing a scratch folder.
 TERMINATE_GRACE = 2.0
 
-#: Default per-case timeout of the plug-in call, in seconds.
-DEFAULT_TIMEOUT = 600.0
+#: Default per-case timeout of the plug-in call, in seconds (``harness.contract.defaults``).
+DEFAULT_TIMEOUT = _defaults.DEFAULT_TIMEOUT
 
 #: Longest the run loop waits (seconds) before it looks at the interrupt flag again.
 INTERRUPT_POLL = 0.25

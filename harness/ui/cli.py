@@ -21,7 +21,7 @@ from pathlib import Path
 from typing import Sequence
 
 from harness.contract.errors import HarnessError
-from harness.contract.problem import DEFAULT_CONVERGENCE
+from harness.contract.defaults import DEFAULT_CONVERGENCE, DEFAULT_TIMEOUT
 
 PROG = "scf-harness"
 DEFAULT_PLUGIN = "harness.testing.example_scf:solve"
@@ -108,20 +108,23 @@ def _baselines(text: str) -> tuple[str, ...]:
 
 def _add_checking(group) -> None:
     """Options shared by certify and check-result: tolerances, AO convention, stability."""
+    from harness.checks.table import TOLERANCE_NAMES
+    from harness.contract.defaults import DEFAULT_STABILITY, STABILITY_MODES
     from harness.verdict.conventions import NAMED
-    from harness.verdict.evaluate import STABILITY_MODES
 
     group.add_argument("--tol", action="append", default=[], metavar="CHECK=VALUE",
                        help="override the tolerance of one check (repeatable), e.g. "
-                       "reference-energy=1e-5 (Eh for energies; default: the documented "
-                       "values in harness.checks.tolerances)")
+                       "reference-energy=1e-5 (Eh for energies); CHECK is one of "
+                       f"{', '.join(TOLERANCE_NAMES)} (default: the documented values, "
+                       "see docs/checks.md)")
     group.add_argument("--ao-convention", choices=NAMED, default=None, metavar="NAME",
                        help="the code's AO convention (order, signs, normalisation), "
                        f"one of {', '.join(NAMED)}; applied as given (default: detected "
                        "from the reported overlap matrix, else pyscf's order)")
-    group.add_argument("--stability", choices=STABILITY_MODES, default="internal",
+    group.add_argument("--stability", choices=STABILITY_MODES, default=DEFAULT_STABILITY,
                        help="stability analysis of the converged state: internal (same "
-                       "method), external (RHF also against UHF) or off (default: internal)")
+                       "method), external (RHF also against UHF) or off (default: "
+                       f"{DEFAULT_STABILITY})")
 
 
 def _add_selection(parser: argparse.ArgumentParser, default_text: str, *,
@@ -167,8 +170,9 @@ def build_parser() -> argparse.ArgumentParser:
                      "X = S^-1/2, dimensionless in Eh-based atomic units "
                      f"(default: {DEFAULT_CONVERGENCE:g})")
     _add_checking(run)
-    run.add_argument("--timeout", type=_positive_float, default=600.0, metavar="S",
-                     help="seconds allowed for the plug-in on one case (default: 600)")
+    run.add_argument("--timeout", type=_positive_float, default=DEFAULT_TIMEOUT, metavar="S",
+                     help="seconds allowed for the plug-in on one case "
+                     f"(default: {DEFAULT_TIMEOUT:g})")
     run.add_argument("--jobs", type=_positive_int, default=1, metavar="N",
                      help="cases run at once, each in its own process (default: 1)")
     ext = cert.add_argument_group("an external code instead of PLUGIN")

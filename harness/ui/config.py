@@ -16,8 +16,9 @@ over its key, and ``--scf-tol`` wins per check over ``tolerances``)::
     convergence = 1e-6                 # stationarity asked of the plug-in (atomic units)
     stability = "internal"             # internal | external | off (as certify --stability)
 
-This module imports only the standard library and ``harness.contract.errors`` /
-``harness.checks.tolerances`` (both light), so that reading the table costs nothing heavy.
+This module imports only the standard library, ``harness.contract.errors``,
+``harness.contract.defaults`` and, when needed, ``harness.checks.tolerances`` (all light),
+so that reading the table costs nothing heavy.
 Units: tolerances are absolute (Eh for energies), timeout in seconds, convergence is the
 dimensionless largest element of X(FPS − SPF)X in Eh-based atomic units.
 """
@@ -32,6 +33,7 @@ import tomllib
 from pathlib import Path
 from typing import Any, Mapping, Sequence
 
+from harness.contract import defaults as _defaults
 from harness.contract.errors import HarnessError
 
 #: Name of the table in pyproject.toml.
@@ -41,18 +43,13 @@ TABLE = "tool.scf-harness"
 #: (``harness.ui.cli.DEFAULT_SUITE``; a test keeps the two equal).
 DEFAULT_SUITE = "smoke"
 
-#: Seconds allowed for the plug-in on one case: ``harness.run.runner.DEFAULT_TIMEOUT``
-#: (a test keeps the two equal; this module must not import the runner).
-DEFAULT_TIMEOUT = 600.0
-
-#: The stationarity asked of a plug-in when none is configured:
-#: ``harness.contract.problem.DEFAULT_CONVERGENCE`` (a test keeps the two equal).
-DEFAULT_CONVERGENCE = 1e-6
-
-#: Accepted values of ``stability``: ``harness.ui.cli.STABILITY_MODES``, and the same
-#: default as ``scf-harness certify --stability`` (a test keeps them equal).
-STABILITY_CHOICES = ("internal", "external", "off")
-DEFAULT_STABILITY = "internal"
+#: Seconds allowed for the plug-in on one case, the stationarity asked of a plug-in when
+#: none is configured, the accepted values of ``stability`` and its default: the one
+#: definition of each in ``harness.contract.defaults`` (standard library only).
+DEFAULT_TIMEOUT = _defaults.DEFAULT_TIMEOUT
+DEFAULT_CONVERGENCE = _defaults.DEFAULT_CONVERGENCE
+STABILITY_CHOICES = _defaults.STABILITY_MODES
+DEFAULT_STABILITY = _defaults.DEFAULT_STABILITY
 
 #: The keys of the table, in the order the documentation lists them.
 KEYS = ("plugin", "suite", "cases_file", "tolerances", "timeout", "convergence", "stability")

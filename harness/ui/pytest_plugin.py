@@ -35,6 +35,7 @@ from typing import Any
 
 import pytest
 
+from harness.checks import table as _table
 from harness.ui import config as _config
 from harness.contract.errors import CaseError, HarnessError
 
@@ -73,8 +74,9 @@ def pytest_addoption(parser: pytest.Parser) -> None:
                     metavar="CHECK=VALUE",
                     help="absolute tolerance of one check, e.g. reference-energy=1e-5 (Eh for "
                     "energies; repeatable; replaces the key's value for that check only). "
-                    "Key: tolerances = {check = value}. Default: the documented values in "
-                    "harness.checks.tolerances")
+                    f"Key: tolerances = {{check = value}}. CHECK is one of "
+                    f"{', '.join(_table.TOLERANCE_NAMES)}. Default: the documented values "
+                    "(docs/checks.md)")
     group.addoption("--scf-timeout", dest="scf_timeout", default=None, metavar="S",
                     help="seconds allowed for the plug-in on one case. Key: timeout. "
                     f"Default: {_config.DEFAULT_TIMEOUT:g}")

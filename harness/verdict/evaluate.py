@@ -31,6 +31,7 @@ from harness.backend.integrals import AOIntegrals, integrals_for
 from harness.contract.problem import Problem
 from harness.contract.results import CheckResult, Status, failed, judge, not_applicable, skipped
 from harness.checks.tolerances import CHECK_NAMES, Tolerances
+from harness.contract.defaults import DEFAULT_STABILITY, STABILITY_MODES
 
 
 #: A reported overlap within this of pyscf's, element by element, is taken to be in
@@ -39,14 +40,16 @@ from harness.checks.tolerances import CHECK_NAMES, Tolerances
 SAME_ORDER_INACCURATE_OVERLAP = 1e-3
 
 
-def _basis(problem: Problem, sol: dict, ints: AOIntegrals, ao_convention: str | None):
+def _basis(problem: Problem, sol: dict, ints: AOIntegrals, ao_convention: str | None,
+           tolerance: float = CONVENTION_MATCH):
     """The "basis" check: map the code's AO convention onto pyscf's.
 
     Returns (result, solution in pyscf's AO order, go_on). A user-named convention is
     applied as given; otherwise a reported overlap that differs from pyscf's is matched by
     per-shell signed permutations and scalings (``harness.verdict.conventions``). A basis that no
     such mapping explains fails; with a different number of functions nothing else can
-    be checked.
+    be checked. ``tolerance``: max|Mᵀ S_ref M − S_code| for a mapping to count
+    (CONVENTION_MATCH unless overridden, ``--tol basis=...``).
     """
     case = problem.name
     if ao_convention is not None:
@@ -64,7 +67,7 @@ def _basis(problem: Problem, sol: dict, ints: AOIntegrals, ao_convention: str | 
             isinstance(c, np.ndarray) and c.ndim >= 2 and c.shape[-2] == s_code.shape[0]):
         return (not_applicable("basis", "the overlap's size disagrees with the coefficients",
                                case), sol, True)
-    if s_code.shape == ints.s.shape and np.max(np.abs(s_code - ints.s)) <= CONVENTION_MATCH:
+    if s_code.shape == ints.s.shape and np.max(np.abs(s_code - ints.s)) <= tolerance:
         return (CheckResult("basis", Status.PASSED, 0.0, None,
                             f"basis: the code's overlap is pyscf's, same AO order ({case})"),
                 sol, True)
@@ -73,7 +76,7 @@ def _basis(problem: Problem, sol: dict, ints: AOIntegrals, ao_convention: str | 
         return (not_applicable("basis", "the overlap is pyscf's in pyscf's AO order up to "
                                "integral accuracy; see the overlap check", case), sol, True)
     try:
-        conv = detect_convention(s_code, ints.mol, s_ref=ints.s)
+        conv = detect_convention(s_code, ints.mol, s_ref=ints.s, tolerance=tolerance)
     except HarnessError as exc:
         return not_applicable("basis", str(exc), case), sol, True
     if isinstance(conv, BasisMismatch):
@@ -97,14 +100,12 @@ class Verdict:
     analysis: dict
 
 
-STABILITY_MODES = ("internal", "external", "off")
-
 
 def evaluate(problem: Problem, extracted: dict, reference=None,
              tolerances: Tolerances | None = None,
              integrals: AOIntegrals | None = None, *,
              ao_convention: str | None = None,
-             stability: str = "internal") -> tuple[CheckResult, ...]:
+             stability: str = DEFAULT_STABILITY) -> tuple[CheckResult, ...]:
     """All checks of one case (see :func:`evaluate_case`); the checks only."""
     return evaluate_case(problem, extracted, reference, tolerances, integrals,
                          ao_convention=ao_convention, stability=stability).checks
@@ -114,7 +115,7 @@ def evaluate_case(problem: Problem, extracted: dict, reference=None,
                   tolerances: Tolerances | None = None,
                   integrals: AOIntegrals | None = None, *,
                   ao_convention: str | None = None,
-                  stability: str = "internal") -> Verdict:
+                  stability: str = DEFAULT_STABILITY) -> Verdict:
     """All checks of one case, with hints on failures.
 
     ``reference`` (a ``harness.catalogue.references.Reference``) may be None, then
@@ -142,13 +143,15 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
         return judge(name, measurement, tol.for_check(name, problem.convergence), case)
 
     ints = integrals or integrals_for(problem)
-    basis, sol, go_on = _basis(problem, extracted, ints, ao_convention)
+    basis, sol, go_on = _basis(problem, extracted, ints, ao_convention,
+                              tol.for_check("basis", problem.convergence))
     if not go_on:
         rest = [skipped(n, "the code's basis differs from the case's", case)
                 for n in CHECK_NAMES if n != "basis"]
         return (basis, *rest), {}
 
-    problems = well_formed(sol, problem.nao, method, problem.n_alpha, problem.n_beta)
+    problems = well_formed(sol, problem.nao, method, problem.n_alpha, problem.n_beta,
+                          symmetry=tol.for_check("well-formed", problem.convergence))
     if problems:
         more = f" (and {len(problems) - 1} more: {'; '.join(problems[1:])})" if len(problems) > 1 else ""
         head = failed("well-formed", f"well-formed: {problems[0]} ({case}){more}",
@@ -245,8 +248,9 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
 
     results.update(integral_checks(sol, ints, tol, case))
     results.update(_state_checks(problem, sol, reference, ints, tol, stability, d, rebuilt))
-    results["history"] = history_from_results(sol, results, convergence=problem.convergence,
-                                              case=case)
+    results["history"] = history_from_results(
+        sol, results, convergence=problem.convergence, case=case,
+        energy_step=tol.overrides.get("history"))
 
     analysis: dict = {}
     if any(r.status is Status.FAILED for r in results.values()):
@@ -274,14 +278,13 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
 def _state_checks(problem, sol, reference, ints, tol: Tolerances, mode: str, d, fock):
     """stability, spin-squared and energy-error-bound (``harness.verdict.states``), with any
     tolerance overrides applied."""
-    over = tol.overrides
+    conv = problem.convergence
     out = {}
     out["stability"] = _stability.stability_check(
-        problem, sol, ints, mode=mode,
-        threshold=over.get("stability", _stability.STABILITY_EIGENVALUE))
+        problem, sol, ints, mode=mode, threshold=tol.for_check("stability", conv))
+    # None unless overridden: spin_check picks the UHF or the ROHF bound itself
     out["spin-squared"] = _stability.spin_check(problem, sol, ints, reference,
-                                                tolerance=over.get("spin-squared"))
+                                                tolerance=tol.overrides.get("spin-squared"))
     out["energy-error-bound"] = _stability.energy_error_check(
-        problem, sol, ints, d, fock,
-        tolerance=over.get("energy-error-bound", _stability.ENERGY_ERROR_BOUND))
+        problem, sol, ints, d, fock, tolerance=tol.for_check("energy-error-bound", conv))
     return out

@@ -33,6 +33,7 @@ import time
 
 import numpy as np
 
+from harness.contract.defaults import STABILITY_MODES
 from harness.checks.spin import density_by_spin, density_from_orbitals, orbitals_by_spin
 from harness.contract.results import CheckResult, Measurement, Status, judge, not_applicable
 # pyscf's Hessian and the λ threshold live in the backend; re-exported under their old names
@@ -75,7 +76,13 @@ ERROR_BOUND_GRADIENT_LIMIT = 1e-2
 #: estimate finite and errs on the large side.
 CURVATURE_FLOOR = 1e-2
 
-MODES = ("internal", "external", "off")
+#: ⟨S²⟩ above −this prints as 0 rather than a "−0.00" / "−0.0000" from rounding: half the
+#: last printed digit at two decimals (messages, hints) and at four (the spin-squared check).
+S2_ROUNDING_2 = 5e-3
+S2_ROUNDING_4 = 5e-5
+
+#: The analyses :func:`stability` runs (``harness.contract.defaults.STABILITY_MODES``).
+MODES = STABILITY_MODES
 CHECK_STABILITY = "stability"
 CHECK_SPIN = "spin-squared"
 CHECK_ERROR_BOUND = "energy-error-bound"
@@ -202,7 +209,7 @@ def _num5(x: float) -> str:
 
 def _s2(x: float) -> str:
     """⟨S²⟩ to two decimals, without a '−0.00' from rounding."""
-    return f"{max(x, 0.0) if x > -5e-3 else x:.2f}"
+    return f"{max(x, 0.0) if x > -S2_ROUNDING_2 else x:.2f}"
 
 
 # --------------------------------------------------------------------------- ⟨S²⟩
@@ -252,8 +259,9 @@ def spin_check(problem, sol: dict, ints, reference, *,
             return not_applicable(CHECK_SPIN, "no reference", case)
         target, what, tol = float(reference.s_squared), "⟨S²⟩_ref", SPIN_SQUARED_UHF
     tol = tolerance if tolerance is not None else tol
+    shown = max(s2, 0.0) if s2 > -S2_ROUNDING_4 else s2
     m = Measurement(abs(s2 - target), f"|⟨S²⟩ − {what}|",
-                    f"⟨S²⟩ = {max(s2, 0.0) if s2 > -5e-5 else s2:.4f}, expected {target:.4f}")
+                    f"⟨S²⟩ = {shown:.4f}, expected {target:.4f}")
     return judge(CHECK_SPIN, m, tol, case)
 
 

@@ -121,13 +121,16 @@ class TestUsageErrors:
         assert only_error_line(result).startswith(ERROR + "case: unknown case 'no-such-case' (")
 
     @pytest.mark.parametrize("tol, message", [
-        ("foo=1", "--tol: unknown check 'foo' (known: overlap, orthonormality, idempotency, "
+        ("foo=1", "--tol: unknown check 'foo' (known: basis, well-formed, overlap, "
+                  "orthonormality, idempotency, "
                   "electron-count, density-consistency, stationarity, self-consistency, "
                   "roothaan-hall, energy-consistency, reference-energy, aufbau, stability, "
                   "spin-squared, energy-error-bound, kinetic, "
                   "nuclear-attraction, core-hamiltonian, overlap-definite, kinetic-definite, "
                   "two-electron, two-electron-symmetry, two-electron-schwarz, "
-                  "two-electron-definite)"),
+                  "two-electron-definite, history)"),
+        ("converged-flag=1", "--tol: check 'converged-flag' has no tolerance (a flag: "
+                             "nothing to tolerate)"),
         ("stationarity", "--tol: expected NAME=VALUE, got 'stationarity'"),
         ("stationarity=abc", "--tol: tolerance for stationarity must be a number, got 'abc'"),
         ("stationarity=-1", "--tol: tolerance for stationarity must be positive and finite, "

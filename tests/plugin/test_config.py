@@ -20,15 +20,19 @@ def write(tmp_path, text: str):
 
 def test_defaults_match_the_modules_they_mirror():
     from harness.ui import cli
-    from harness.contract import problem
+    from harness.contract import defaults, problem
     from harness.run import runner
+    from harness.verdict import evaluate, states
     assert config.DEFAULT_SUITE == cli.DEFAULT_SUITE
-    assert config.DEFAULT_TIMEOUT == runner.DEFAULT_TIMEOUT
-    assert config.DEFAULT_CONVERGENCE == problem.DEFAULT_CONVERGENCE
-    from harness.verdict.evaluate import STABILITY_MODES
-
-    assert config.STABILITY_CHOICES == STABILITY_MODES
-    assert config.DEFAULT_STABILITY == cli.build_parser().parse_args(["certify"]).stability
+    # one definition each (harness.contract.defaults), re-exported under the old names
+    assert config.DEFAULT_TIMEOUT is runner.DEFAULT_TIMEOUT is defaults.DEFAULT_TIMEOUT
+    assert config.DEFAULT_CONVERGENCE is problem.DEFAULT_CONVERGENCE \
+        is defaults.DEFAULT_CONVERGENCE
+    assert config.STABILITY_CHOICES is evaluate.STABILITY_MODES is states.MODES \
+        is defaults.STABILITY_MODES
+    parsed = cli.build_parser().parse_args(["certify"])
+    assert config.DEFAULT_STABILITY == parsed.stability == defaults.DEFAULT_STABILITY
+    assert parsed.timeout == defaults.DEFAULT_TIMEOUT
 
 
 def test_cases_file_key_is_relative_to_the_pyproject(tmp_path):
