@@ -532,7 +532,7 @@ def _integrity(cert: dict, folder: Path, issues: list[str]) -> dict[str, np.ndar
 
 
 def _evaluation_options(cert: Mapping[str, Any], issues: list[str]) -> dict[str, Any] | None:
-    """The keyword options to recompute with (``harness.verdict.evaluate.evaluate_case``): the
+    """The keyword options to recompute with (``harness.verdict.judge.JudgeSettings``): the
     certified ones; none (its defaults) for a certificate made before they were
     recorded; None, with an issue, when they are not valid options."""
     from harness.verdict.conventions import NAMED
@@ -584,9 +584,9 @@ def _recompute(cert: dict, arrays, issues: list[str], reference_dir) -> None:
 
 def _recompute_case(entry: dict, record: dict, arrays, tolerances, options: dict,
                     issues: list[str], reference_dir) -> None:
-    from harness.verdict.evaluate import evaluate
     from harness.contract.problem import Problem
     from harness.catalogue.references import reference_for
+    from harness.verdict.judge import JudgeSettings, judge
 
     name = entry.get("name")
     inputs = entry["inputs"]
@@ -603,8 +603,12 @@ def _recompute_case(entry: dict, record: dict, arrays, tolerances, options: dict
             issues.append(f"cases/{name}/reference: the reference energy is now "
                           f"{reference.energy:.10f} Eh, certified {certified:.10f} Eh")
     solution = _solution_from_sidecar(name, record, arrays)
-    checks = {c.name: c for c in evaluate(problem, solution, reference, tolerances,
-                                          **options)}
+    result = judge(problem, solution, reference,
+                   JudgeSettings(tolerances=tolerances, **options))
+    if result.error is not None:
+        issues.append(f"cases/{name}: could not be recomputed ({result.error})")
+        return
+    checks = {c.name: c for c in result.checks}
     for old in entry.get("checks") or []:
         old = old if isinstance(old, dict) else {"name": old}
         new = checks.get(old.get("name"))
@@ -628,8 +632,8 @@ def verify_certificate(path, *, recompute: bool = False,
     Integrity: the format tag, the whole-certificate hash, every field's digest (an
     edited, added or removed field is named; a case removed or added as a whole is one
     issue), the sidecar file's SHA-256 and each case's solution hash recomputed from
-    the sidecar's arrays. Recompute: each case with a solution is re-evaluated
-    (``harness.verdict.evaluate.evaluate``) with the certified tolerances and evaluation
+    the sidecar's arrays. Recompute: each case with a solution is re-judged
+    (``harness.verdict.judge.judge``) with the certified tolerances and evaluation
     options (:data:`EVALUATION_KEY`; the defaults when absent) and the reference from
     ``harness.catalogue.references.reference_for`` (stored under ``reference_dir`` when its hash
     matches, else computed); every status must be the same, every value agree within

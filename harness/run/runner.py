@@ -36,7 +36,9 @@ from typing import Any, Callable, Iterable
 from harness.contract import defaults as _defaults
 from harness.contract.errors import PluginLoadError
 from harness.run.plugins import load_plugin
-from harness.contract.results import CaseResult, CheckResult, failed
+from harness.contract.results import CaseResult
+from harness.run.outcome import RunOutcome  # noqa: F401  (re-exported: run_cases returns it)
+from harness.verdict.judge import JudgeSettings, judge, reference_energy
 
 #: Modules the fork server imports once, so each child starts without re-importing them.
 PRELOAD = ["numpy", "pyscf", "harness.contract.solution"]
@@ -62,35 +64,6 @@ def request_interrupt() -> None:
     _interrupt.set()
 
 
-@dataclasses.dataclass(frozen=True)
-class RunOutcome:
-    """The finished cases (input order), whether the run was interrupted, wall time (s).
-
-    For certificates (``harness.report.certificate.write_certificate``), keyed by case name:
-    ``problems`` (the ``Problem`` each launched case was given, bohr), ``solutions``
-    (the extracted solution, ``harness.contract.solution.extract``; None when the plug-in sent
-    none) and ``references`` (the ``Reference`` used, or None when there was none).
-    """
-
-    cases: tuple[CaseResult, ...]
-    interrupted: bool
-    seconds: float
-    problems: dict = dataclasses.field(default_factory=dict)
-    solutions: dict = dataclasses.field(default_factory=dict)
-    references: dict = dataclasses.field(default_factory=dict)
-
-    @property
-    def passed(self) -> bool:
-        """True when the run finished and every case passed (an empty run does not pass)."""
-        return bool(self.cases) and not self.interrupted and all(c.passed for c in self.cases)
-
-    @property
-    def counts(self) -> tuple[int, int]:
-        """(passed, failed) among the finished cases."""
-        n_pass = sum(1 for c in self.cases if c.passed)
-        return n_pass, len(self.cases) - n_pass
-
-
 # --------------------------------------------------------------------------- child side
 
 _LIBRARY_DIRS = tuple(
@@ -108,8 +81,8 @@ def _is_library(filename: str) -> bool:
 
 
 def plugin_frame(tb) -> traceback.FrameSummary | None:
-    """The innermost traceback frame that belongs to the plug-in (or, for an error in
-    the harness's checks, to the check code).
+    """The innermost traceback frame that belongs to the plug-in. (An error in the
+    harness's checks is located by ``harness.verdict.judge``, with the same rules.)
 
     Frames up to and including the runner's own call are dropped; of the rest, the
     innermost frame outside the standard library and site-packages is taken (so an
@@ -347,12 +320,6 @@ def _reference(case, directory, write: bool):
     return reference_for(case, directory, write=write)
 
 
-def _evaluate(problem, extracted, reference, tolerances, options):
-    """``harness.verdict.evaluate.evaluate_case``, imported when first needed."""
-    from harness.verdict.evaluate import evaluate_case
-    return evaluate_case(problem, extracted, reference, tolerances, **options)
-
-
 def death_reason(exitcode: int | None) -> str:
     """Why a child that sent nothing ended: the signal's name or its exit code."""
     if exitcode is None:
@@ -386,8 +353,9 @@ def _base_result(case, **fields) -> CaseResult:
 
 
 def _finish(run: _Running, message: dict | None, error: str | None,
-            tolerances, options) -> CaseResult:
-    """Turn what the child sent (or why it sent nothing) into a CaseResult."""
+            settings: JudgeSettings) -> CaseResult:
+    """Turn what the child sent (or why it sent nothing) into a CaseResult: an error
+    as it is, a solution through ``harness.verdict.judge.judge``."""
     if error is None and message is not None and "error" in message:
         error = message["error"]
     seconds = message.get("seconds") if message else None
@@ -395,46 +363,9 @@ def _finish(run: _Running, message: dict | None, error: str | None,
         return _base_result(run.case, error=error, plugin_seconds=seconds,
                             reference_energy=_ref_energy(run),
                             reference_source=run.reference_source)
-    return judge_solution(run.case, run.problem, message["solution"], tolerances,
-                          reference=run.reference, reference_source=run.reference_source,
-                          reference_error=run.reference_error, plugin_seconds=seconds,
-                          **options)
-
-
-def judge_solution(case, problem, extracted: dict, tolerances, *, reference=None,
-                   reference_source: str | None = None, reference_error: str | None = None,
-                   plugin_seconds: float | None = None, ao_convention: str | None = None,
-                   stability: str = "internal") -> CaseResult:
-    """The CaseResult of an extracted solution (``harness.contract.solution.extract``) of
-    ``case``'s ``problem`` (bohr): every check of ``harness.verdict.evaluate.evaluate_case``
-    against ``reference`` (energies in Eh). ``reference_error`` (one line: why there is
-    no reference) makes reference-energy fail with it. An exception inside the checks
-    becomes the case's one-line error. Used by :func:`run_cases` and by ``check-result``.
-    """
-    options = {"ao_convention": ao_convention, "stability": stability}
-    common = dict(reference_energy=_reference_energy(reference),
-                  reference_source=reference_source)
-    energy = extracted.get("energy")
-    energy = energy if isinstance(energy, float) else None
-    start = time.perf_counter()
-    try:
-        verdict = _evaluate(problem, extracted, reference, tolerances, options)
-        checks = verdict.checks
-    except Exception as exc:
-        frame = plugin_frame(exc.__traceback__)  # innermost check-code frame
-        where = f"{frame.name} ({frame.filename}:{frame.lineno})" if frame else "evaluate"
-        return _base_result(case, error=f"internal error in check {where}: "
-                            f"{type(exc).__name__}: {exc}".splitlines()[0],
-                            energy=energy, plugin_seconds=plugin_seconds,
-                            check_seconds=time.perf_counter() - start, **common)
-    if reference_error is not None:
-        checks = tuple(
-            failed("reference-energy", f"reference-energy: no reference ({case.name}): "
-                   f"{reference_error}") if c.name == "reference-energy" else c
-            for c in checks)
-    return _base_result(case, checks=checks, energy=energy, plugin_seconds=plugin_seconds,
-                        check_seconds=time.perf_counter() - start, analysis=verdict.analysis,
-                        **common)
+    return judge(run.problem, message["solution"], run.reference, dataclasses.replace(
+        settings, reference_source=run.reference_source,
+        reference_error=run.reference_error, plugin_seconds=seconds))
 
 
 def _ended(exitcode: int | None) -> str:
@@ -593,7 +524,8 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     when a case starts, ``on_result(case_result)`` when it is finished. Ctrl-C stops
     the children and returns the finished cases with ``interrupted=True``.
 
-    ``ao_convention`` and ``stability`` are passed to ``harness.verdict.evaluate.evaluate_case``.
+    ``ao_convention`` and ``stability`` are passed to ``harness.verdict.judge.judge``, which
+    judges each solution here, in the harness process.
 
     The outcome also holds, per case name, the problems, the extracted solutions and
     the references (for ``harness.report.certificate``).
@@ -604,7 +536,8 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     :func:`check_plugin` already). Ctrl-C during that check returns an empty,
     interrupted outcome.
     """
-    options = {"ao_convention": ao_convention, "stability": stability}
+    settings = JudgeSettings(tolerances=tolerances, ao_convention=ao_convention,
+                             stability=stability)
     cases = list(cases)
     _interrupt.clear()
     jobs = max(1, int(jobs))
@@ -681,7 +614,7 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
             error = f"plug-in process sent an unexpected message ({type(message).__name__})"
         if error is None and isinstance(message, dict) and "solution" in message:
             solutions[run.case.name] = message["solution"]
-        record(run.index, _finish(run, message, error, tolerances, options))
+        record(run.index, _finish(run, message, error, settings))
 
     try:
         while pending or running:
@@ -725,15 +658,4 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
 
 def _ref_energy(run: _Running) -> float | None:
     """The reference total energy in Eh of a running case, if any."""
-    return _reference_energy(run.reference)
-
-
-def _reference_energy(ref) -> float | None:
-    """The reference total energy in Eh (``energies["total"]``, or ``energy``), if any."""
-    if ref is None:
-        return None
-    try:
-        return float(ref.energies["total"])
-    except (AttributeError, KeyError, TypeError):
-        value = getattr(ref, "energy", None)
-        return float(value) if isinstance(value, (int, float)) else None
+    return reference_energy(run.reference)

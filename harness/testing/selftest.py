@@ -1,7 +1,7 @@
 """``scf-harness selftest``: run every planted-bug plug-in and check the harness's verdicts.
 
 For each entry of :func:`harness.testing.planted.catalogue` the plug-in runs (in this process) on
-its catalogue case, :func:`harness.verdict.evaluate.evaluate` judges the result against the stored
+its catalogue case, :func:`harness.verdict.judge.judge` judges the result against the stored
 reference, and the verdict is compared with what the entry expects: exactly the checks in
 ``entry.fails`` fail, the expected hint is given (and none where none may be), and the
 detected AO convention is the one planted. A harness whose checks stop catching what they
@@ -107,20 +107,23 @@ def compare(entry, results: dict) -> tuple[str, ...]:
 def run_entry(entry, catalogue=None) -> EntryOutcome:
     """Run one entry's plug-in on its case, evaluate it, and compare. Never raises."""
     from harness.catalogue.cases import load_catalogue
-    from harness.verdict.evaluate import evaluate
     from harness.catalogue.references import reference_for
     from harness.contract.solution import extract
+    from harness.verdict.judge import JudgeSettings, judge
 
     try:
         case = (catalogue or load_catalogue()).case(entry.case)
         problem = case.problem()
-        reference, _ = reference_for(case)
-        results = {r.name: r for r in evaluate(problem, extract(entry.solve(problem)),
-                                               reference)}
+        reference, source = reference_for(case)
+        verdict = judge(problem, extract(entry.solve(problem)), reference,
+                        JudgeSettings(reference_source=source))
     except Exception as exc:  # one broken entry must not stop the self-test
         where = traceback.extract_tb(exc.__traceback__)[-1]
         return EntryOutcome(entry, error=f"{type(exc).__name__}: {exc} "
                                          f"({where.filename.rsplit('/', 1)[-1]}:{where.lineno})")
+    if verdict.error is not None:  # a check raised: judge's one-line error
+        return EntryOutcome(entry, error=verdict.error)
+    results = {r.name: r for r in verdict.checks}
     failed = frozenset(n for n, r in results.items() if r.status is Status.FAILED)
     hints = {n: r.hint for n, r in results.items() if r.hint}
     return EntryOutcome(entry, failed=failed, hints=hints, mismatches=compare(entry, results))

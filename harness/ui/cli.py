@@ -534,8 +534,9 @@ def _check_result(args, console) -> int:
     from harness.report import terminal as report
     from harness.run.files import SolutionFileError, read_solution, result_case
     from harness.catalogue.references import reference_for
-    from harness.run.runner import RunOutcome, judge_solution
+    from harness.run.outcome import RunOutcome
     from harness.contract.results import CaseResult
+    from harness.verdict.judge import JudgeSettings, judge
     from harness.contract.solution import extract
 
     started = time.perf_counter()
@@ -573,9 +574,9 @@ def _check_result(args, console) -> int:
                             error=str(exc), reference_energy=_energy_of(reference),
                             reference_source=source)
     else:
-        result = judge_solution(case, problem, extracted, tolerances, reference=reference,
-                                reference_source=source, reference_error=reference_error,
-                                ao_convention=args.ao_convention, stability=args.stability)
+        result = judge(problem, extracted, reference, JudgeSettings(
+            tolerances=tolerances, ao_convention=args.ao_convention, stability=args.stability,
+            reference_source=source, reference_error=reference_error))
     outcome = RunOutcome(cases=(result,), interrupted=False,
                          seconds=time.perf_counter() - started,
                          problems={case.name: problem}, solutions={case.name: extracted},

@@ -293,24 +293,29 @@ def scf_reference(scf_case):
 
 @pytest.fixture
 def scf_check(request, scf_case):
-    """``scf_check(solution, case, *, reference=None)`` runs every harness check.
+    """``scf_check(solution, case, *, reference=None, ao_convention=None)`` runs every
+    harness check (``harness.verdict.judge.judge``, as ``certify`` does).
 
     ``solution`` is a plug-in return value (Eh); ``case`` a Case, a case name or a
-    Problem (bohr). The reference energy is the stored reference of a Case when it
-    matches (pass ``reference=`` to give one; a Problem has none). Tolerances and
-    convergence and the stability mode come from ``--scf-tol`` / ``--scf-convergence`` /
-    ``--scf-stability`` or [tool.scf-harness].
+    Problem (bohr). The reference of a Case is found as ``certify`` finds it (the stored
+    one when it matches, else computed by pyscf); when there is none, reference-energy
+    fails with the reason. Pass ``reference=`` to give one; a Problem has none
+    (reference-energy is then not applicable). ``ao_convention`` names the code's AO
+    convention (as ``certify --ao-convention``). Tolerances and convergence and the
+    stability mode come from ``--scf-tol`` / ``--scf-convergence`` / ``--scf-stability``
+    or [tool.scf-harness].
     Returns the CheckResults when no check fails; otherwise raises AssertionError whose
-    first line is the first failing check's message, followed by the others.
+    first line is the case's error or the first failing check's message, followed by
+    the others.
     """
     settings = settings_of(request.config)
 
-    def check(solution, case, *, reference=None):
+    def check(solution, case, *, reference=None, ao_convention=None):
         __tracebackhide__ = True
-        from harness.verdict.evaluate import evaluate
         from harness.contract.problem import Problem
         from harness.contract.solution import extract
         from harness.checks.tolerances import Tolerances
+        from harness.verdict.judge import JudgeSettings, judge
 
         from harness.catalogue.cases import Case
 
@@ -322,38 +327,42 @@ def scf_check(request, scf_case):
         if reference is not None and not hasattr(reference, "energy"):
             raise CaseError(f"reference: expected a Reference (from scf_reference), got "
                             f"{type(reference).__name__}", field="scf_check")
+        source, reference_error = None, None
         if isinstance(case, Problem):
             problem = case
         else:
             problem = (case.problem() if settings.convergence is None
                        else case.problem(convergence=settings.convergence))
             if reference is None:
-                reference = _stored_reference(case)
+                reference, source, reference_error = _reference_of(case)
         try:
             extracted = extract(solution)
         except (TypeError, HarnessError) as exc:
             raise AssertionError(f"the solution is not readable: {exc}") from None
-        results = evaluate(problem, extracted, reference,
-                           Tolerances(overrides=dict(settings.tolerances)),
-                           stability=settings.stability)
-        failures = [r for r in results if r.passed is False]
-        if failures:
-            lines = []
-            for r in failures:
-                lines.append(r.message)
-                if r.hint:
-                    lines.append(f"  hint: {r.hint}")
+        result = judge(problem, extracted, reference, JudgeSettings(
+            tolerances=Tolerances(overrides=dict(settings.tolerances)),
+            ao_convention=ao_convention, stability=settings.stability,
+            reference_source=source, reference_error=reference_error))
+        lines = [result.error] if result.error is not None else []
+        for r in result.failures:
+            lines.append(r.message)
+            if r.hint:
+                lines.append(f"  hint: {r.hint}")
+        if lines:
             raise AssertionError("\n".join(lines))
-        return results
+        return result.checks
 
     return check
 
 
-def _stored_reference(case):
-    from harness.contract.errors import ReferenceDataError
-    from harness.catalogue.references import load_reference
+def _reference_of(case):
+    """``(reference, source, None)`` as the runner finds it
+    (``harness.catalogue.references.reference_for``: stored, else computed), or
+    ``(None, None, one-line reason)`` when there is none."""
+    from harness.catalogue.references import reference_for
 
     try:
-        return load_reference(case)
-    except ReferenceDataError:
-        return None
+        reference, source = reference_for(case)
+    except Exception as exc:
+        return None, None, f"{type(exc).__name__}: {exc}".splitlines()[0]
+    return reference, source, None

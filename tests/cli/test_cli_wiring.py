@@ -124,6 +124,18 @@ class TestCheckResult:
         assert checks["reference-energy"]["value"] == pytest.approx(1e-3, rel=1e-3)
         assert "1 passed, 0 failed" not in out and "0 passed, 1 failed" in out
 
+    def test_starts_no_process_and_imports_no_runner(self, tmp_path, h2_case, h2_solution):
+        """check-result judges in its own process: harness.run.runner is never imported."""
+        path = write_solution(tmp_path / "s.npz", h2_solution)
+        code = ("import sys; from harness.ui.cli import main; "
+                f"code = main({check_result_args(path, h2_case, '--quiet')!r}); "
+                "print(code, 'harness.run.runner' in sys.modules)")
+        env = dict(os.environ)
+        env["PYTHONPATH"] = os.pathsep.join(p for p in (str(REPO), env.get("PYTHONPATH")) if p)
+        run = subprocess.run([sys.executable, "-c", code], cwd=tmp_path, env=env,
+                             capture_output=True, text=True, timeout=180)
+        assert run.stdout.splitlines()[-1] == "0 False", run.stdout + run.stderr
+
     def test_name_and_tolerance_options(self, capsys, tmp_path, h2_case, h2_solution):
         """--name names the case; a loose --tol lets the 1 mEh error pass reference-energy."""
         energy = float(h2_solution["energy"]) + 1e-3

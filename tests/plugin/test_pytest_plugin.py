@@ -62,19 +62,19 @@ def harness_lines(name: str) -> list[str]:
     """The failing checks' messages (each followed by its hint, if any) that the harness
     itself gives the planted bug on ``name``."""
     from harness.catalogue.cases import load_catalogue
-    from harness.verdict.evaluate import evaluate
-    from harness.catalogue.references import load_reference
+    from harness.catalogue.references import reference_for
     from harness.contract.solution import extract
+    from harness.verdict.judge import JudgeSettings, judge
 
     case = load_catalogue().case(name)
-    checks = evaluate(case.problem(), extract(missing_nuclear_repulsion(case.problem())),
-                      load_reference(case))
+    reference, source = reference_for(case)
+    result = judge(case.problem(), extract(missing_nuclear_repulsion(case.problem())),
+                   reference, JudgeSettings(reference_source=source))
     lines = []
-    for check in checks:
-        if check.passed is False:
-            lines.append(check.message)
-            if check.hint:
-                lines.append(f"  hint: {check.hint}")
+    for check in result.failures:
+        lines.append(check.message)
+        if check.hint:
+            lines.append(f"  hint: {check.hint}")
     return lines
 
 
@@ -387,3 +387,39 @@ def test_check_of_nothing(scf_check):
 def test_fixtures_misused_give_one_clear_line(project):
     project.makepyfile(test_misuse=MISUSE_TESTS)
     project.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=4)
+
+
+JUDGE_TESTS = '''
+import pytest
+
+from harness.testing.example_scf import solve
+
+
+def test_missing_reference_fails_with_its_reason(scf_case, scf_check, monkeypatch):
+    import harness.catalogue.references as references
+
+    def unavailable(case, directory=None, *, write=False):
+        raise ValueError("reference store unreadable")
+
+    monkeypatch.setattr(references, "reference_for", unavailable)
+    case = scf_case("h2-sto-3g-rhf")
+    with pytest.raises(AssertionError) as info:
+        scf_check(solve(case.problem()), case)
+    assert str(info.value) == ("reference-energy: no reference (h2-sto-3g-rhf): "
+                               "ValueError: reference store unreadable")
+
+
+def test_ao_convention_reaches_the_checks(scf_case, scf_check):
+    case = scf_case("h2-sto-3g-rhf")
+    results = {r.name: r for r in scf_check(solve(case.problem()), case,
+                                            ao_convention="pyscf")}
+    assert results["basis"].message.startswith(
+        "basis: AO convention 'pyscf' as given (h2-sto-3g-rhf): ")
+'''
+
+
+def test_check_judges_as_certify_does(project):
+    """scf_check finds references as certify does (a missing one fails reference-energy
+    with its reason) and passes an AO convention on to the checks."""
+    project.makepyfile(test_judge=JUDGE_TESTS)
+    project.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=2)

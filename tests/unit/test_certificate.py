@@ -12,10 +12,9 @@ from harness.catalogue.cases import load_catalogue
 from harness.report.certificate import (CERTIFICATE_FORMAT, HASH_KEY, _digests, _whole_hash,
                                  sidecar_path, solution_hash, summary_markdown,
                                  verify_certificate, write_certificate)
-from harness.verdict.evaluate import evaluate
+from harness.verdict.judge import JudgeSettings, judge
 from harness.testing.example_scf import solve
 from harness.catalogue.references import reference_for
-from harness.contract.results import CaseResult
 from harness.contract.solution import Malformed, extract
 from harness.checks.tolerances import Tolerances
 
@@ -33,10 +32,8 @@ def run():
         p = case.problem()
         ex = extract(solve(p))
         ref, source = reference_for(case)
-        checks = evaluate(p, ex, ref, tol)
-        results.append(CaseResult(name=name, method=p.method, basis=p.basis, checks=checks,
-                                  energy=ex["energy"], reference_energy=ref.energy,
-                                  reference_source=source))
+        results.append(judge(p, ex, ref, JudgeSettings(tolerances=tol,
+                                                      reference_source=source)))
         problems[name], solutions[name], references[name] = p, ex, ref
     return results, problems, solutions, references, tol
 

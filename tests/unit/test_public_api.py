@@ -9,9 +9,9 @@ import harness
 
 EXPECTED = {
     "CHECK_NAMES", "Case", "CaseError", "CaseResult", "CheckResult", "DEFAULT_CONVERGENCE",
-    "HarnessError", "Measurement", "PluginLoadError", "Problem", "Reference",
+    "HarnessError", "JudgeSettings", "Measurement", "PluginLoadError", "Problem", "Reference",
     "ReferenceDataError", "RunOutcome", "Status", "ToleranceError", "Tolerances",
-    "__version__", "compute_reference", "evaluate", "extract", "load_catalogue",
+    "__version__", "compute_reference", "evaluate", "extract", "judge", "load_catalogue",
     "load_plugin", "load_suite_file", "reference_for", "run_cases",
 }
 

@@ -20,6 +20,8 @@ import pytest
 from harness.verdict.evaluate import Verdict
 
 from harness.run import runner
+from harness.verdict import judge as judge_module
+from harness.verdict.judge import JudgeSettings
 from harness.contract.errors import PluginLoadError
 from harness.contract.problem import Problem
 from harness.contract.results import CheckResult, Status
@@ -59,7 +61,7 @@ class FakeReference:
     energies: dict
 
 
-def fake_evaluate(problem, extracted, reference, tolerances, options=None):
+def fake_evaluate(problem, extracted, reference, settings=None):
     """Passes when the plug-in sent an energy; reference-energy compares it if given."""
     energy = extracted.get("energy")
     ok = isinstance(energy, float)
@@ -79,7 +81,7 @@ def fake_evaluate(problem, extracted, reference, tolerances, options=None):
 @pytest.fixture(autouse=True)
 def fakes(monkeypatch):
     """References and checks replaced by fakes; every reference 'stored' at -1.1167 Eh."""
-    monkeypatch.setattr(runner, "_evaluate", fake_evaluate)
+    monkeypatch.setattr(judge_module, "_evaluate", fake_evaluate)
     monkeypatch.setattr(runner, "_reference",
                         lambda case, directory, write: (FakeReference({"total": -1.1167}),
                                                         "stored"))
@@ -171,13 +173,13 @@ class TestRunCases:
         """An exception in the harness's own checks fails that case only."""
         calls = []
 
-        def flaky(problem, extracted, reference, tolerances, options):
+        def flaky(problem, extracted, reference, settings):
             calls.append(problem.name)
             if problem.name == "first":
                 raise RuntimeError("kernel broke")
-            return fake_evaluate(problem, extracted, reference, tolerances, options)
+            return fake_evaluate(problem, extracted, reference, settings)
 
-        monkeypatch.setattr(runner, "_evaluate", flaky)
+        monkeypatch.setattr(judge_module, "_evaluate", flaky)
         out = run("constant", names=("first", "second"))
         first, second = out.cases
         assert first.error.startswith("internal error in check flaky (")
@@ -306,14 +308,14 @@ class TestCallablePluginsAndRecords:
         assert out.solutions["b"]["energy"] == second.energy
         assert out.references["b"].energies["total"] == pytest.approx(-1.1167)
 
-    def test_judge_solution_matches_the_runner(self):
-        """check-result's path (judge_solution) gives the runner's verdict."""
+    def test_judge_matches_the_runner(self):
+        """check-result's path (judge on the extracted solution) gives the runner's verdict."""
         out = run("constant")
         (case,) = out.cases
-        again = runner.judge_solution(FakeCase("h2-sto-3g-rhf"), out.problems["h2-sto-3g-rhf"],
-                                      out.solutions["h2-sto-3g-rhf"], Tolerances(),
-                                      reference=out.references["h2-sto-3g-rhf"],
-                                      reference_source="stored")
+        again = judge_module.judge(out.problems["h2-sto-3g-rhf"], out.solutions["h2-sto-3g-rhf"],
+                                   out.references["h2-sto-3g-rhf"],
+                                   JudgeSettings(tolerances=Tolerances(),
+                                                 reference_source="stored"))
         assert [c.to_json() for c in again.checks] == [c.to_json() for c in case.checks]
         assert again.energy == case.energy and again.reference_energy == case.reference_energy
 
