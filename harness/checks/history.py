@@ -110,6 +110,33 @@ def stalled(errors: np.ndarray, convergence: float, *, iterations: int = STALL_I
     return None
 
 
+def _nan_or_missing(x: float) -> str:
+    return "NaN (or missing)" if math.isnan(x) else f"{x}"
+
+
+def non_finite(h: np.ndarray) -> tuple[int, str, float, int] | None:
+    """The first record (0-based index, field, value, number of further bad records) whose
+    value cannot belong to a converged run, or None.
+
+    Every energy must be finite (a missing energy reads as NaN). An error may be NaN (not
+    given) before the code's first finite error — iteration 0 of a ΔE or ΔD measure has
+    none — or throughout (no error measure); an infinite error, or a NaN error after a
+    finite one, is refused.
+    """
+    energies, errors = h[:, 0], h[:, 1]
+    bad_energy = ~np.isfinite(energies)
+    finite = np.isfinite(errors)
+    started = np.cumsum(finite) > 0  # at or after the first finite error
+    bad_error = np.isinf(errors) | (np.isnan(errors) & started)
+    bad = np.column_stack([bad_energy, bad_error])
+    hits = np.argwhere(bad)  # row-major: by record, energy before error
+    if hits.size == 0:
+        return None
+    k, j = (int(i) for i in hits[0])
+    more = int(np.count_nonzero(bad.any(axis=1))) - 1
+    return k, ("energy", "error")[j], float(h[k, j]), more
+
+
 def history_check(history, *, converged: bool | None, stationarity_value: float | None,
                   stationarity_tolerance: float | None, convergence: float, case: str,
                   stationarity_quantity: str = STATIONARITY_QUANTITY) -> CheckResult:
@@ -117,6 +144,8 @@ def history_check(history, *, converged: bool | None, stationarity_value: float 
 
     Fails (the first that applies names the failure; the others are listed after it):
 
+    * non-finite value: ``converged`` is True but a record has a NaN/infinite energy or
+      error (:func:`non_finite`), naming the first such record (0-based) and field;
     * false convergence: ``converged`` is True but the harness's ``stationarity_value``
       > ``stationarity_tolerance``;
     * oscillation: :func:`oscillation` of the energies;
@@ -136,7 +165,14 @@ def history_check(history, *, converged: bool | None, stationarity_value: float 
     own = (f"its own last error is {last_error:.1e}" if finite_errors.size
            else "it reports no error measure")
 
-    findings: list[tuple[str, float, float]] = []  # (message body, value, tolerance)
+    findings: list[tuple[str, float | None, float | None]] = []  # (body, value, tolerance)
+    bad = non_finite(h) if converged else None
+    if bad is not None:
+        k, field, x, more = bad
+        findings.append((f"non-finite value: record {k} of {n} has '{field}' = "
+                         f"{_nan_or_missing(x)} while the code claims convergence ({case})"
+                         + (f"; {more} more record{'s' if more != 1 else ''} like it"
+                            if more else ""), None, None))
     if (converged and stationarity_value is not None and stationarity_tolerance is not None
             and not stationarity_value <= stationarity_tolerance):
         findings.append((f"false convergence: the code claims convergence but "
