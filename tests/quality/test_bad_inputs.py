@@ -255,6 +255,14 @@ def escaping_symlink(tmp):
     return CommandPlugin(f"{PY} {sf.BAD_CODE} escape --out {{solution}}"), CASE
 
 
+def hard_link(tmp):
+    return CommandPlugin(f"{PY} {sf.BAD_CODE} hardlink --out {{solution}}"), CASE
+
+
+def moved_in(tmp):
+    return CommandPlugin(f"{PY} {sf.BAD_CODE} moved --out {{solution}}"), CASE
+
+
 def exits_3(tmp):
     return CommandPlugin(f"{PY} {sf.BAD_CODE} exit3"), CASE
 
@@ -330,6 +338,10 @@ CATALOGUE = [
                           "(4, 3)", "solution.npz: "),
     (escaping_symlink, "solution path solution.npz escapes the scratch directory (it resolves "
                        "to /", ""),
+    (hard_link, "solution file solution.npz has 2 links (a hard link to a file elsewhere?): "
+                "refused; write the file itself | stderr: (empty)", ""),
+    (moved_in, "solution file solution.npz was not written during the run (last modified ",
+     ""),
     (exits_3, "exited with status 3 | stderr: bad_code: exiting with status 3", ""),
     (segfaults, "killed by signal SIGSEGV | stderr: ", ""),
     (times_out, "timed out after 1 s | stderr: bad_code: sleeping", ""),
