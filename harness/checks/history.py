@@ -13,7 +13,7 @@ import math
 
 import numpy as np
 
-from harness.contract.results import CheckResult, Status, failed, not_applicable
+from harness.contract.results import CheckResult, Status, failed, fixed, not_applicable
 
 #: Oscillation: at least this many trailing energies must alternate (rise, fall, rise…)
 #: to count as a two-state oscillation — 4 energies are 3 steps, enough to see the
@@ -184,8 +184,8 @@ def history_check(history, *, converged: bool | None, stationarity_value: float 
     if osc is not None:
         count, step = osc
         tail = energies[-count:]
-        findings.append((f"oscillation: the energy alternates between {tail[-2]:.6f} and "
-                         f"{tail[-1]:.6f} Eh (steps ≥ {step:.1e} > {OSCILLATION_AMPLITUDE:.1e}) "
+        findings.append((f"oscillation: the energy alternates between {fixed(tail[-2], 6)} and "
+                         f"{fixed(tail[-1], 6)} Eh (steps ≥ {step:.1e} > {OSCILLATION_AMPLITUDE:.1e}) "
                          f"over the last {count} iterations ({case})",
                          step, OSCILLATION_AMPLITUDE))
     if converged and n >= 2 and np.isfinite(energies[-2:]).all():

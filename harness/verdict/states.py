@@ -34,7 +34,7 @@ import time
 import numpy as np
 
 from harness.checks.spin import density_by_spin, density_from_orbitals, orbitals_by_spin
-from harness.contract.results import CheckResult, Measurement, Status, judge, not_applicable
+from harness.contract.results import CheckResult, Measurement, Status, fixed, judge, not_applicable
 
 #: λ below −STABILITY_EIGENVALUE (Eh/rad²) makes a solution a candidate saddle point. pyscf
 #: uses 1e-5 for the same decision; eigenvalues of a converged minimum are ≥ ~1e-2 except
@@ -353,12 +353,12 @@ def _num(x: float) -> str:
 
 
 def _num5(x: float) -> str:
-    return _minus(f"{x:.5f}")
+    return _minus(fixed(x, 5))
 
 
 def _s2(x: float) -> str:
     """⟨S²⟩ to two decimals, without a '−0.00' from rounding."""
-    return f"{max(x, 0.0) if x > -5e-3 else x:.2f}"
+    return fixed(max(x, 0.0) if x > -5e-3 else x, 2)
 
 
 # --------------------------------------------------------------------------- ⟨S²⟩
@@ -409,7 +409,7 @@ def spin_check(problem, sol: dict, ints, reference, *,
         target, what, tol = float(reference.s_squared), "⟨S²⟩_ref", SPIN_SQUARED_UHF
     tol = tolerance if tolerance is not None else tol
     m = Measurement(abs(s2 - target), f"|⟨S²⟩ − {what}|",
-                    f"⟨S²⟩ = {max(s2, 0.0) if s2 > -5e-5 else s2:.4f}, expected {target:.4f}")
+                    f"⟨S²⟩ = {fixed(max(s2, 0.0) if s2 > -5e-5 else s2, 4)}, expected {fixed(target, 4)}")
     return judge(CHECK_SPIN, m, tol, case)
 
 
@@ -559,7 +559,7 @@ def match_state(energy: float, s2: float | None, reference, *,
         k, st = near[0]
         spin = f" (⟨S²⟩ {_s2(s2)} vs {_s2(st.s_squared)})" if s2 is not None else ""
         kind = "" if st.stable else ", a saddle point"
-        return (f"your solution is the known state {k}{kind}, {st.energy - ground:.4f} Eh "
+        return (f"your solution is the known state {k}{kind}, {fixed(st.energy - ground, 4)} Eh "
                 f"above the ground state{spin}")
     if states:
         k, st = min(enumerate(states), key=lambda ks: abs(ks[1].energy - energy))

@@ -488,3 +488,31 @@ def test_huge_energy_through_the_runner(tmp_path):
 def test_a_correct_file_passes(tmp_path):
     """The same path with a correct file passes: the catalogue's failures are the defects'."""
     assert outcome(copy_plugin(sf.write_npz(tmp_path / "ok.npz", good()))) == "passed"
+
+
+def test_huge_numbers_are_written_with_an_exponent():
+    """An energy of 1e308 is not written with 300+ digits: magnitudes ≥ 1e6 get an
+    exponent with the same number of decimals; ordinary values keep their fixed decimals."""
+    from harness.catalogue.cases import load_catalogue
+    from harness.catalogue.references import reference_for
+
+    reference, _ = reference_for(load_catalogue().case(CASE))
+    raw = dict(good(), energy=1e308)
+    failed = {c.name: c.message for c in evaluate(sf.problem(CASE), extract(raw), reference)
+              if c.passed is False}
+    assert failed == {
+        "energy-consistency": "energy-consistency: |E − E[P]| = 1.0e+308 > 1.0e-08 "
+                              "(h2-sto-3g-rhf), E = 1.0000000000e+308, E[P] = -1.1167143251 Eh",
+        "reference-energy": "reference-energy: |E − E_ref| = 1.0e+308 > 1.0e-06 "
+                            "(h2-sto-3g-rhf), E = 1.0000000000e+308 Eh is 1.000e+308 Eh above "
+                            "E_ref = -1.1167143251 Eh"}
+
+
+def test_fixed_switches_to_an_exponent_at_a_million():
+    from harness.contract.results import fixed
+
+    assert fixed(-1.1167143251) == "-1.1167143251"
+    assert fixed(999999.5, 2) == "999999.50"
+    assert fixed(-1e6, 6) == "-1.000000e+06"
+    assert fixed(2.5e300, 4, sign=True) == "+2.5000e+300"
+    assert fixed(float("nan")) == "nan" and fixed(float("-inf"), 2) == "-inf"
