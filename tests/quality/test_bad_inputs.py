@@ -450,6 +450,24 @@ def test_a_misspelt_key_is_named_not_ignored(old, new):
                                           "lower-case) (h2-sto-3g-rhf)")
 
 
+@pytest.mark.parametrize("old, new", [("fock", "fock_matrix"), ("overlap", "Overlap_AO"),
+                                      ("density", "density_mat")])
+def test_a_key_with_a_restating_suffix_is_named_not_ignored(old, new):
+    """'fock_matrix' is too far from 'fock' for difflib (0.53) but plainly meant it."""
+    assert outcome(renamed(old, new)) == (f"well-formed: '{old}' not given, but '{new}' was: "
+                                          f"did you mean '{old}'? (keys are exact and "
+                                          "lower-case) (h2-sto-3g-rhf)")
+
+
+@pytest.mark.parametrize("key", ["fock", "history", "converged", "energy"])
+def test_a_key_given_as_none_is_named_not_dropped(key):
+    """'fock': None used to drop the stationarity column silently; like a JSON null it
+    fails well-formed, naming the key (so every numerical check is reported skipped)."""
+    assert outcome(returning(**{key: None})) == (
+        f"well-formed: '{key}' is None: leave out a key you have no value for (None is not "
+        f"read as absent) (h2-sto-3g-rhf)")
+
+
 def test_unrelated_extra_keys_are_still_ignored():
     sol = dict(good(), mo_energy=[1.0], e_tot=-1.0, kinetic_energy=0.5, note="lab run 7")
     assert outcome(lambda problem: sol) == "passed"
