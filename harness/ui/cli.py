@@ -62,6 +62,12 @@ def _output_file(text: str) -> Path:
     if path.exists() and not path.is_file():
         what = "a folder" if path.is_dir() else "not a regular file"
         raise argparse.ArgumentTypeError(f"{text} is {what}; give the path of a file")
+    for parent in path.parents:  # checked now, not after a long run has nowhere to go
+        if parent.exists():
+            if not parent.is_dir():
+                raise argparse.ArgumentTypeError(f"{text}: its parent {parent} is not a "
+                                                 f"folder")
+            break
     return path
 
 

@@ -133,3 +133,30 @@ def test_check_result_refuses_an_empty_path(capsys, option):
             "sto-3g", "--method", "rhf", "--energy-file", args["--energy-file"]]
     line = usage_error(capsys, *argv)
     assert line.startswith(f"argument {option}: expected a file path, got ''")
+
+
+@pytest.mark.parametrize("command, option", [("certify", "--json"), ("certify", "--certificate"),
+                                             ("check-result", "--json")])
+def test_an_output_under_a_file_names_the_path_and_its_parent(capsys, tmp_path, command,
+                                                               option):
+    """Was 'File exists: <some file>' after the whole run; now refused before it starts."""
+    afile = tmp_path / "afile"
+    afile.write_text("keep me\n")
+    target = afile / "sub" / "out.json"
+    head = (["certify", "--case", H2] if command == "certify" else
+            ["check-result", "x.npz", "--geometry", "x.xyz", "--basis", "sto-3g", "--method",
+             "rhf"])
+    line = usage_error(capsys, *head, option, str(target))
+    assert line.startswith(f"argument {option}: {target}: its parent {afile} is not a folder")
+    assert afile.read_text() == "keep me\n"
+
+
+def test_atomic_write_under_a_file_says_the_parent_is_not_a_folder(tmp_path):
+    from harness.run.atomic import atomic_write
+
+    afile = tmp_path / "afile"
+    afile.touch()
+    with pytest.raises(NotADirectoryError) as err:
+        atomic_write(afile / "out.json", lambda tmp: None)
+    assert err.value.strerror == f"its parent {afile} is not a folder"
+    assert err.value.filename == str(afile / "out.json")
