@@ -435,6 +435,7 @@ class CommandPlugin:
             except BaseException:  # interrupted: leave nothing running
                 _kill_group(proc)
                 raise
+            _kill_group(proc)  # what the command left running in its group ends with it
         if code < 0:
             raise fail(f"killed by signal {_signal_name(-code)}", code)
         if code > 0:

@@ -202,9 +202,29 @@ def _die_with_harness(conn) -> None:
             select.select([conn.fileno()], [], [])
         except (OSError, ValueError):
             pass
+        _kill_own_group()
         os._exit(1)
 
     threading.Thread(target=watch, name="scf-harness-orphan-watch", daemon=True).start()
+
+
+def _own_group() -> None:
+    """Make this child the leader of its own session and process group, so the parent
+    can end whatever the plug-in started (a ``sleep 97 &`` of a shell it ran) with the
+    child: :func:`_end_process` kills the group."""
+    try:
+        os.setsid()
+    except OSError:  # already a group leader: left as it is (_end_process then skips it)
+        pass
+
+
+def _kill_own_group() -> None:
+    """SIGKILL this process's group, itself included — only when it leads the group."""
+    try:
+        if os.getpgid(0) == os.getpid():
+            os.killpg(os.getpid(), signal.SIGKILL)
+    except OSError:
+        pass
 
 
 def _share_cores(jobs: int) -> None:
@@ -232,6 +252,7 @@ def _enter(conn, path: list[str], cwd: str) -> None:
     """Common start of every child: Ctrl-C is the parent's, end with the harness, work in
     the harness's ``cwd`` with its ``sys.path``."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C
+    _own_group()
     _die_with_harness(conn)
     try:
         os.chdir(cwd)
@@ -449,7 +470,10 @@ def _ended(exitcode: int | None) -> str:
 
 
 def _end_process(proc, grace: float) -> None:
-    """SIGTERM, ``grace`` seconds, SIGKILL (at once when ``grace`` is 0); then reap ``proc``."""
+    """SIGTERM, ``grace`` seconds, SIGKILL (at once when ``grace`` is 0); then reap ``proc``
+    and SIGKILL what is left of its process group (the child leads its own: what the
+    plug-in started and left running, so nothing outlives its case)."""
+    pid = proc.pid
     if proc.is_alive():
         if grace > 0:
             proc.terminate()
@@ -457,9 +481,21 @@ def _end_process(proc, grace: float) -> None:
         if proc.is_alive():
             proc.kill()
     proc.join()
+    _kill_group(pid)
     try:
         proc.close()
     except ValueError:  # pragma: no cover - still running (cannot happen after join)
+        pass
+
+
+def _kill_group(pgid: int | None) -> None:
+    """SIGKILL the process group ``pgid`` if it still has members (none: nothing to do).
+    The group of a child that failed to lead its own does not exist: nothing is hit."""
+    if pgid is None:
+        return
+    try:
+        os.killpg(pgid, signal.SIGKILL)
+    except (ProcessLookupError, PermissionError):
         pass
 
 

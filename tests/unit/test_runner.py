@@ -318,6 +318,41 @@ class TestCallablePluginsAndRecords:
         assert again.energy == case.energy and again.reference_energy == case.reference_energy
 
 
+def _alive(pid: int) -> bool:
+    try:
+        state = Path(f"/proc/{pid}/status").read_text()
+    except FileNotFoundError:
+        return False
+    return "State:\tZ" not in state
+
+
+def _gone_soon(pid: int, seconds: float = 5.0) -> bool:
+    deadline = time.monotonic() + seconds
+    while _alive(pid) and time.monotonic() < deadline:
+        time.sleep(0.05)
+    return not _alive(pid)
+
+
+class TestNothingOutlivesItsCase:
+    def test_a_detached_grandchild_is_killed_with_the_case(self, tmp_path):
+        """A plug-in that runs ``sleep 97 &`` through a shell: the case passes, and the
+        sleep (in the child's own process group) is gone when run_cases returns."""
+        import tempfile
+
+        name = f"h2-grandchild-{os.getpid()}"
+        pidfile = Path(tempfile.gettempdir()) / f"{name}.grandchild.pid"
+        pidfile.unlink(missing_ok=True)
+        out = run("leaves_a_grandchild", names=(name,))
+        pid = int(pidfile.read_text())
+        pidfile.unlink()
+        try:
+            assert out.cases[0].passed
+            assert _gone_soon(pid), f"sleep 97 (pid {pid}) outlived its case"
+        finally:
+            if _alive(pid):
+                os.kill(pid, 9)
+
+
 class TestDeathReason:
     def test_signal_and_code(self):
         """Negative exit codes are signals, named; positive ones are codes."""
