@@ -331,6 +331,7 @@ def _child_main(conn, plugin_spec, path: list[str], cwd: str, problem,
     else:
         function = plugin_spec
     start = time.perf_counter()
+    parent = os.getppid()
     # Only while the plug-in runs: before and after, SIGTERM ends the child quietly.
     signal.signal(signal.SIGTERM, _stop_on_sigterm)
     try:
@@ -340,6 +341,9 @@ def _child_main(conn, plugin_spec, path: list[str], cwd: str, problem,
     except BaseException as exc:  # SystemExit from a plug-in is a failure too
         raw, error = None, exc
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    if os.getppid() != parent:  # the fork server died under the plug-in
+        _send(conn, {"error": PARENT_KILLED}, "cannot send that the fork server died")
+        return
     if error is not None:
         _send(conn, {"error": describe_exception(error)}, "cannot send the plug-in's error")
         return
@@ -371,6 +375,38 @@ def _evaluate(problem, extracted, reference, tolerances, options):
     """``harness.verdict.evaluate.evaluate_case``, imported when first needed."""
     from harness.verdict.evaluate import evaluate_case
     return evaluate_case(problem, extracted, reference, tolerances, **options)
+
+
+#: Why a case failed whose worker process lost its parent, the fork server (the
+#: plug-in ran ``os.kill(os.getppid(), ...)``): its exit status is then unknown (the
+#: fork server reports it), and multiprocessing reads it as 255.
+PARENT_KILLED = ("the plug-in's worker process lost its parent, the harness's fork server "
+                 "(killed from inside the plug-in? os.getppid() is not the harness): result "
+                 "unknown")
+
+
+def _fork_server_died(wait: float = 1.0) -> bool:
+    """Whether multiprocessing's fork server (a child of this process) has ended, waiting
+    up to ``wait`` seconds for it to become a zombie (its socket closes a moment before).
+    It is not reaped here (WNOWAIT), so multiprocessing sees it and starts a new one."""
+    try:
+        from multiprocessing import forkserver
+
+        pid = forkserver._forkserver._forkserver_pid
+    except AttributeError:  # pragma: no cover - another multiprocessing
+        return False
+    if pid is None:
+        return False
+    deadline = time.monotonic() + wait
+    while True:
+        try:
+            if os.waitid(os.P_PID, pid, os.WEXITED | os.WNOHANG | os.WNOWAIT) is not None:
+                return True
+        except OSError:  # not our child, or reaped already
+            return False
+        if time.monotonic() >= deadline:
+            return False
+        time.sleep(0.01)
 
 
 def death_reason(exitcode: int | None) -> str:
@@ -710,6 +746,8 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
         if message is None:
             run.process.join(TERMINATE_GRACE)
             error = death_reason(run.process.exitcode)
+            if run.process.exitcode == 255 and _fork_server_died():
+                error = PARENT_KILLED
         running.remove(run)
         _stop(run, grace=TERMINATE_GRACE)
         if not isinstance(message, dict) and error is None:

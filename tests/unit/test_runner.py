@@ -353,6 +353,18 @@ class TestNothingOutlivesItsCase:
                 os.kill(pid, 9)
 
 
+class TestParentKilled:
+    def test_a_plugin_that_kills_the_fork_server_is_named(self):
+        """Was 'plug-in process exited with code 255 without sending a result'; the next
+        case runs in a new fork server and passes."""
+        out = run("kills_its_parent_on_first", names=("h2-sto-3g-rhf", "h2-again"))
+        first, second = out.cases
+        assert first.error == ("the plug-in's worker process lost its parent, the harness's "
+                               "fork server (killed from inside the plug-in? os.getppid() is "
+                               "not the harness): result unknown")
+        assert second.passed
+
+
 class TestDeathReason:
     def test_signal_and_code(self):
         """Negative exit codes are signals, named; positive ones are codes."""

@@ -100,3 +100,12 @@ def leaves_a_grandchild(problem):
     pidfile = os.path.join(tempfile.gettempdir(), f"{problem.name}.grandchild.pid")
     subprocess.run(f"sleep 97 & echo $! > {pidfile}", shell=True, check=True)
     return constant(problem)
+
+
+def kills_its_parent_on_first(problem):
+    """Kills its own parent process (the harness's fork server) on the first case and
+    then answers anyway; the other cases get constant's answer."""
+    if problem.name == FIRST_CASE:
+        os.kill(os.getppid(), signal.SIGKILL)
+        time.sleep(0.5)
+    return constant(problem)
