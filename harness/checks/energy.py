@@ -10,7 +10,7 @@ import dataclasses
 
 import numpy as np
 
-from harness.contract.results import Measurement
+from harness.contract.results import Measurement, fixed
 
 
 @dataclasses.dataclass(frozen=True)
@@ -56,7 +56,7 @@ def energy_consistency(e_reported: float, terms: EnergyTerms) -> Measurement:
     """|E_reported − E[P_reported]|: the reported energy is the functional of the density."""
     diff = e_reported - terms.total
     return Measurement(abs(diff), "|E − E[P]|",
-                       f"E = {e_reported:.10f}, E[P] = {terms.total:.10f} Eh")
+                       f"E = {fixed(e_reported)}, E[P] = {fixed(terms.total)} Eh")
 
 
 def reference_energy(e_reported: float, e_ref: float) -> Measurement:
@@ -64,5 +64,5 @@ def reference_energy(e_reported: float, e_ref: float) -> Measurement:
     diff = e_reported - e_ref
     side = "above" if diff > 0 else "below"
     return Measurement(abs(diff), "|E − E_ref|",
-                       f"E = {e_reported:.10f} Eh is {abs(diff):.3e} Eh {side} "
-                       f"E_ref = {e_ref:.10f} Eh")
+                       f"E = {fixed(e_reported)} Eh is {abs(diff):.3e} Eh {side} "
+                       f"E_ref = {fixed(e_ref)} Eh")

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from harness.checks.spin import spin_names
-from harness.contract.results import Measurement
+from harness.contract.results import Measurement, fixed
 
 
 def aufbau(e: np.ndarray, occ: np.ndarray) -> Measurement:
@@ -25,7 +25,7 @@ def aufbau(e: np.ndarray, occ: np.ndarray) -> Measurement:
             i = int(np.flatnonzero(ns > 0.5)[np.argmax(occupied)])
             a = int(np.flatnonzero(ns <= 0.5)[np.argmin(empty)])
             head = f"{spin}, " if spin else ""
-            best = (value, f"{head}occupied orbital {i} (ε = {homo:.6f}) above empty "
-                           f"orbital {a} (ε = {lumo:.6f})")
+            best = (value, f"{head}occupied orbital {i} (ε = {fixed(homo, 6)}) above empty "
+                           f"orbital {a} (ε = {fixed(lumo, 6)})")
     value, where = best  # -inf when no spin has both occupied and empty orbitals
     return Measurement(float(value), "ε_HOMO − ε_LUMO", where)

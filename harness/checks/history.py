@@ -13,7 +13,7 @@ import math
 
 import numpy as np
 
-from harness.contract.results import CheckResult, Status, failed, not_applicable
+from harness.contract.results import CheckResult, Status, failed, fixed, not_applicable
 
 #: Oscillation: at least this many trailing energies must alternate (rise, fall, rise…)
 #: to count as a two-state oscillation — 4 energies are 3 steps, enough to see the
@@ -110,6 +110,33 @@ def stalled(errors: np.ndarray, convergence: float, *, iterations: int = STALL_I
     return None
 
 
+def _nan_or_missing(x: float) -> str:
+    return "NaN (or missing)" if math.isnan(x) else f"{x}"
+
+
+def non_finite(h: np.ndarray) -> tuple[int, str, float, int] | None:
+    """The first record (0-based index, field, value, number of further bad records) whose
+    value cannot belong to a converged run, or None.
+
+    Every energy must be finite (a missing energy reads as NaN). An error may be NaN (not
+    given) before the code's first finite error — iteration 0 of a ΔE or ΔD measure has
+    none — or throughout (no error measure); an infinite error, or a NaN error after a
+    finite one, is refused.
+    """
+    energies, errors = h[:, 0], h[:, 1]
+    bad_energy = ~np.isfinite(energies)
+    finite = np.isfinite(errors)
+    started = np.cumsum(finite) > 0  # at or after the first finite error
+    bad_error = np.isinf(errors) | (np.isnan(errors) & started)
+    bad = np.column_stack([bad_energy, bad_error])
+    hits = np.argwhere(bad)  # row-major: by record, energy before error
+    if hits.size == 0:
+        return None
+    k, j = (int(i) for i in hits[0])
+    more = int(np.count_nonzero(bad.any(axis=1))) - 1
+    return k, ("energy", "error")[j], float(h[k, j]), more
+
+
 def history_check(history, *, converged: bool | None, stationarity_value: float | None,
                   stationarity_tolerance: float | None, convergence: float, case: str,
                   stationarity_quantity: str = STATIONARITY_QUANTITY,
@@ -118,6 +145,8 @@ def history_check(history, *, converged: bool | None, stationarity_value: float 
 
     Fails (the first that applies names the failure; the others are listed after it):
 
+    * non-finite value: ``converged`` is True but a record has a NaN/infinite energy or
+      error (:func:`non_finite`), naming the first such record (0-based) and field;
     * false convergence: ``converged`` is True but the harness's ``stationarity_value``
       > ``stationarity_tolerance``;
     * oscillation: :func:`oscillation` of the energies;
@@ -140,7 +169,14 @@ def history_check(history, *, converged: bool | None, stationarity_value: float 
     own = (f"its own last error is {last_error:.1e}" if finite_errors.size
            else "it reports no error measure")
 
-    findings: list[tuple[str, float, float]] = []  # (message body, value, tolerance)
+    findings: list[tuple[str, float | None, float | None]] = []  # (body, value, tolerance)
+    bad = non_finite(h) if converged else None
+    if bad is not None:
+        k, field, x, more = bad
+        findings.append((f"non-finite value: record {k} of {n} has '{field}' = "
+                         f"{_nan_or_missing(x)} while the code claims convergence ({case})"
+                         + (f"; {more} more record{'s' if more != 1 else ''} like it"
+                            if more else ""), None, None))
     if (converged and stationarity_value is not None and stationarity_tolerance is not None
             and not stationarity_value <= stationarity_tolerance):
         findings.append((f"false convergence: the code claims convergence but "
@@ -152,8 +188,8 @@ def history_check(history, *, converged: bool | None, stationarity_value: float 
     if osc is not None:
         count, step = osc
         tail = energies[-count:]
-        findings.append((f"oscillation: the energy alternates between {tail[-2]:.6f} and "
-                         f"{tail[-1]:.6f} Eh (steps ≥ {step:.1e} > {amplitude:.1e}) "
+        findings.append((f"oscillation: the energy alternates between {fixed(tail[-2], 6)} and "
+                         f"{fixed(tail[-1], 6)} Eh (steps ≥ {step:.1e} > {amplitude:.1e}) "
                          f"over the last {count} iterations ({case})",
                          step, amplitude))
     if converged and n >= 2 and np.isfinite(energies[-2:]).all():

@@ -11,7 +11,7 @@ import numpy as np
 
 from harness.checks.orthonormal import Lowdin, locate, worst_of
 from harness.checks.spin import spin_names
-from harness.contract.results import Measurement
+from harness.contract.results import Measurement, fixed
 
 
 def commutator(f: np.ndarray, d: np.ndarray, s: np.ndarray, low: Lowdin,
@@ -61,5 +61,5 @@ def roothaan_hall(f: np.ndarray, c: np.ndarray, e: np.ndarray, low: Lowdin) -> M
     where = ""
     if idx:
         eps = e[names.index(spin)][idx[1]]
-        where = f"{spin + ', ' if spin else ''}orbital {idx[1]} (ε = {eps:.6f} Eh)"
+        where = f"{spin + ', ' if spin else ''}orbital {idx[1]} (ε = {fixed(eps, 6)} Eh)"
     return Measurement(value, "max|X(FC − SCε)|", where)

@@ -13,6 +13,20 @@ import math
 from typing import Any
 
 
+#: Numbers of this magnitude or more are written with an exponent in messages (an energy
+#: of 1e308 written with ``:.10f`` has 300+ digits).
+EXPONENT_FROM = 1e6
+
+
+def fixed(x: float, decimals: int = 10, *, sign: bool = False) -> str:
+    """``x`` with ``decimals`` decimals (``:.{decimals}f``) when |x| < EXPONENT_FROM, else
+    with an exponent and as many decimals in the mantissa (``:.{decimals}e``), so a
+    value from a solution never floods a message. ``sign``: always write the sign."""
+    x = float(x)
+    spec = ("+" if sign else "") + f".{decimals}"
+    return format(x, spec + ("e" if math.isfinite(x) and abs(x) >= EXPONENT_FROM else "f"))
+
+
 class Status(str, enum.Enum):
     PASSED = "passed"
     FAILED = "failed"

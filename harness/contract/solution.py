@@ -152,7 +152,10 @@ def extract(raw: Any) -> dict[str, Any]:
     """Read the known keys from a plug-in's return value into plain Python data.
 
     Returns ``{key: value}`` for the keys present: float64 arrays, floats, bools, ints,
-    or :class:`Malformed` markers. Unknown keys are ignored, except a near miss of a
+    or :class:`Malformed` markers. A contract key whose value is None is Malformed (the
+    well-formed check names it) rather than dropped: a ``'fock': None`` is more often a
+    value never assigned than a Fock matrix meant to be absent, and silently dropping it
+    would make the checks on it vanish from the table. Unknown keys are ignored, except a near miss of a
     contract key that is itself absent (``"Fock"``, ``"densty"``, ``"occupation"``:
     :func:`near_miss`): that key is marked Malformed, so the well-formed check names it
     instead of the checks on it silently disappearing. The result pickles, so it
@@ -168,7 +171,9 @@ def extract(raw: Any) -> dict[str, Any]:
                             f"the keys {', '.join(REQUIRED_KEYS)}")
     out: dict[str, Any] = {}
     for key, value in getter.items():
-        if value is None:
+        if value is None:  # refused like a JSON null: it may hide a value never assigned
+            out[key] = Malformed("is None: leave out a key you have no value for (None is "
+                                 "not read as absent)")
             continue
         if key in ("converged", "iterations", "energy"):
             out[key] = _read_scalar(key, value)
@@ -197,13 +202,20 @@ def extract(raw: Any) -> dict[str, Any]:
 NEAR_MISS = 0.85
 
 
+#: Suffixes that only restate what a contract key is ("fock_matrix", "overlap_ao"): the
+#: key with one of them is taken for the key (difflib alone rates "fock_matrix" 0.53).
+NEAR_MISS_SUFFIXES = ("_matrix", "_matrices", "_mat", "_ao", "_array")
+
+
 def near_miss(given) -> str | None:
     """The contract key that ``given`` (a returned key that is not one) was probably
-    meant to be: equal ignoring case, or difflib-similar by at least NEAR_MISS."""
+    meant to be: equal ignoring case, the key with a suffix of NEAR_MISS_SUFFIXES
+    (``fock_matrix``), or difflib-similar by at least NEAR_MISS."""
     if not isinstance(given, str) or given in KNOWN_KEYS:
         return None
+    plain = given.strip().lower()
     for key in KNOWN_KEYS:
-        if given.strip().lower() == key:
+        if plain == key or any(plain == key + suffix for suffix in NEAR_MISS_SUFFIXES):
             return key
     close = difflib.get_close_matches(given, KNOWN_KEYS, n=1, cutoff=NEAR_MISS)
     return close[0] if close else None

@@ -34,7 +34,7 @@ import numpy as np
 
 from harness.run.atomic import atomic_write
 from harness.contract.errors import HarnessError
-from harness.contract.results import CaseResult, _json_float
+from harness.contract.results import CaseResult, _json_float, fixed
 
 #: Format tag of a certificate.
 CERTIFICATE_FORMAT = "scf-harness-certificate/1"
@@ -601,7 +601,7 @@ def _recompute_case(entry: dict, record: dict, arrays, tolerances, options: dict
         certified = float(entry["reference"]["energy"])
         if abs(reference.energy - certified) > REFERENCE_AGREEMENT:
             issues.append(f"cases/{name}/reference: the reference energy is now "
-                          f"{reference.energy:.10f} Eh, certified {certified:.10f} Eh")
+                          f"{fixed(reference.energy)} Eh, certified {fixed(certified)} Eh")
     solution = _solution_from_sidecar(name, record, arrays)
     result = judge(problem, solution, reference,
                    JudgeSettings(tolerances=tolerances, **options))

@@ -18,13 +18,18 @@ def atomic_write(path, write: Callable[[str], None]) -> Path:
     The file gets the permissions a newly created file gets (0666 less the umask), not
     the private 0600 of a temporary file. Raises IsADirectoryError / FileExistsError
     when something other than a regular file is at ``path`` (the rename would replace
-    a folder, device or pipe).
+    a folder, device or pipe), NotADirectoryError when a parent of ``path`` is a file.
     """
     path = Path(path)
     if path.is_dir():
         raise IsADirectoryError(21, "is a folder, not a file", str(path))
     if path.exists() and not path.is_file():
         raise FileExistsError(17, "not a regular file", str(path))
+    for parent in path.parents:
+        if parent.exists():
+            if not parent.is_dir():
+                raise NotADirectoryError(20, f"its parent {parent} is not a folder", str(path))
+            break
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     os.close(fd)

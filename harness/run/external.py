@@ -37,7 +37,11 @@ the scratch directory (``problem.json``, ``solution.npz``, ...; SCRATCH_NAMES) s
 relative. The program (the first word) is made absolute only when it is a file in
 the start directory; a bare name such as ``python`` is otherwise looked up on
 ``PATH``. A solution path that resolves outside the scratch directory (``..``, a
-symbolic link) is refused.
+symbolic link) is refused, and so is a solution file (or a Molden file's energy file)
+that was not written inside the scratch directory during the run: a regular file with
+more than one link (a hard link to a file elsewhere), on another device than the
+scratch directory, or last modified before the command started (moved or copied in
+with its old time; compared with the file system's own clock through ``stdout.log``).
 
 Failures raise :class:`ExternalCodeError` with one line: ``exited with status 3``,
 ``killed by signal SIGSEGV``, ``timed out after 5 s``, ``cannot start ...``,
@@ -417,6 +421,7 @@ class CommandPlugin:
         if "/" not in program and shutil.which(program) is None:
             raise fail(f"cannot start {program!r}: not found on PATH")
         with open(scratch / STDOUT_FILE, "wb") as out, open(scratch / STDERR_FILE, "wb") as err:
+            started = os.fstat(out.fileno())  # the file system's time, before the run
             try:
                 proc = subprocess.Popen(argv, cwd=scratch, stdin=subprocess.DEVNULL,
                                         stdout=out, stderr=err, start_new_session=True,
@@ -431,6 +436,7 @@ class CommandPlugin:
             except BaseException:  # interrupted: leave nothing running
                 _kill_group(proc)
                 raise
+            _kill_group(proc)  # what the command left running in its group ends with it
         if code < 0:
             raise fail(f"killed by signal {_signal_name(-code)}", code)
         if code > 0:
@@ -439,6 +445,11 @@ class CommandPlugin:
         if not _within(found, scratch):
             raise fail(f"solution path {found.name} escapes the scratch directory "
                        f"(it resolves to {found.resolve()})")
+        for written in (found, found.with_suffix(".json")) if found.suffix == ".molden" \
+                else (found,):
+            problem_text = _not_written_here(written, started)
+            if problem_text is not None:
+                raise fail(f"solution file {written.name} {problem_text}")
         try:
             return read_solution(found, problem=problem)
         except SolutionFileError as exc:
@@ -461,6 +472,29 @@ class CommandPlugin:
             raise fail(f"wrote several solution files ({', '.join(p.name for p in present)}): "
                        f"write one", 0)
         return present[0]
+
+
+def _not_written_here(path: Path, started: os.stat_result) -> str | None:
+    """Why the regular file ``path`` was not written in the scratch directory during the
+    run (``started``: the stat of a file made there just before it), or None."""
+    import stat as st
+
+    try:
+        info = os.stat(path)
+    except OSError:
+        return None  # absent or unreadable: the reader says so
+    if not st.S_ISREG(info.st_mode):
+        return None  # a directory etc.: the reader says so
+    if info.st_nlink > 1:
+        return (f"has {info.st_nlink} links (a hard link to a file elsewhere?): refused; "
+                f"write the file itself")
+    if info.st_dev != started.st_dev:
+        return "is on another device than the scratch directory: refused"
+    if info.st_mtime_ns < started.st_mtime_ns:
+        return (f"was not written during the run (last modified "
+                f"{(started.st_mtime_ns - info.st_mtime_ns) / 1e9:.3g} s before it started): "
+                f"refused")
+    return None
 
 
 def _scratch_root(root) -> str:

@@ -176,9 +176,29 @@ def _die_with_harness(conn) -> None:
             select.select([conn.fileno()], [], [])
         except (OSError, ValueError):
             pass
+        _kill_own_group()
         os._exit(1)
 
     threading.Thread(target=watch, name="scf-harness-orphan-watch", daemon=True).start()
+
+
+def _own_group() -> None:
+    """Make this child the leader of its own session and process group, so the parent
+    can end whatever the plug-in started (a ``sleep 97 &`` of a shell it ran) with the
+    child: :func:`_end_process` kills the group."""
+    try:
+        os.setsid()
+    except OSError:  # already a group leader: left as it is (_end_process then skips it)
+        pass
+
+
+def _kill_own_group() -> None:
+    """SIGKILL this process's group, itself included — only when it leads the group."""
+    try:
+        if os.getpgid(0) == os.getpid():
+            os.killpg(os.getpid(), signal.SIGKILL)
+    except OSError:
+        pass
 
 
 def _share_cores(jobs: int) -> None:
@@ -206,6 +226,7 @@ def _enter(conn, path: list[str], cwd: str) -> None:
     """Common start of every child: Ctrl-C is the parent's, end with the harness, work in
     the harness's ``cwd`` with its ``sys.path``."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C
+    _own_group()
     _die_with_harness(conn)
     try:
         os.chdir(cwd)
@@ -284,6 +305,7 @@ def _child_main(conn, plugin_spec, path: list[str], cwd: str, problem,
     else:
         function = plugin_spec
     start = time.perf_counter()
+    parent = os.getppid()
     # Only while the plug-in runs: before and after, SIGTERM ends the child quietly.
     signal.signal(signal.SIGTERM, _stop_on_sigterm)
     try:
@@ -293,6 +315,9 @@ def _child_main(conn, plugin_spec, path: list[str], cwd: str, problem,
     except BaseException as exc:  # SystemExit from a plug-in is a failure too
         raw, error = None, exc
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    if os.getppid() != parent:  # the fork server died under the plug-in
+        _send(conn, {"error": PARENT_KILLED}, "cannot send that the fork server died")
+        return
     if error is not None:
         _send(conn, {"error": describe_exception(error)}, "cannot send the plug-in's error")
         return
@@ -318,6 +343,38 @@ def _reference(case, directory, write: bool):
     """``harness.catalogue.references.reference_for``, imported when first needed."""
     from harness.catalogue.references import reference_for
     return reference_for(case, directory, write=write)
+
+
+#: Why a case failed whose worker process lost its parent, the fork server (the
+#: plug-in ran ``os.kill(os.getppid(), ...)``): its exit status is then unknown (the
+#: fork server reports it), and multiprocessing reads it as 255.
+PARENT_KILLED = ("the plug-in's worker process lost its parent, the harness's fork server "
+                 "(killed from inside the plug-in? os.getppid() is not the harness): result "
+                 "unknown")
+
+
+def _fork_server_died(wait: float = 1.0) -> bool:
+    """Whether multiprocessing's fork server (a child of this process) has ended, waiting
+    up to ``wait`` seconds for it to become a zombie (its socket closes a moment before).
+    It is not reaped here (WNOWAIT), so multiprocessing sees it and starts a new one."""
+    try:
+        from multiprocessing import forkserver
+
+        pid = forkserver._forkserver._forkserver_pid
+    except AttributeError:  # pragma: no cover - another multiprocessing
+        return False
+    if pid is None:
+        return False
+    deadline = time.monotonic() + wait
+    while True:
+        try:
+            if os.waitid(os.P_PID, pid, os.WEXITED | os.WNOHANG | os.WNOWAIT) is not None:
+                return True
+        except OSError:  # not our child, or reaped already
+            return False
+        if time.monotonic() >= deadline:
+            return False
+        time.sleep(0.01)
 
 
 def death_reason(exitcode: int | None) -> str:
@@ -381,7 +438,10 @@ def _ended(exitcode: int | None) -> str:
 
 
 def _end_process(proc, grace: float) -> None:
-    """SIGTERM, ``grace`` seconds, SIGKILL (at once when ``grace`` is 0); then reap ``proc``."""
+    """SIGTERM, ``grace`` seconds, SIGKILL (at once when ``grace`` is 0); then reap ``proc``
+    and SIGKILL what is left of its process group (the child leads its own: what the
+    plug-in started and left running, so nothing outlives its case)."""
+    pid = proc.pid
     if proc.is_alive():
         if grace > 0:
             proc.terminate()
@@ -389,9 +449,21 @@ def _end_process(proc, grace: float) -> None:
         if proc.is_alive():
             proc.kill()
     proc.join()
+    _kill_group(pid)
     try:
         proc.close()
     except ValueError:  # pragma: no cover - still running (cannot happen after join)
+        pass
+
+
+def _kill_group(pgid: int | None) -> None:
+    """SIGKILL the process group ``pgid`` if it still has members (none: nothing to do).
+    The group of a child that failed to lead its own does not exist: nothing is hit."""
+    if pgid is None:
+        return
+    try:
+        os.killpg(pgid, signal.SIGKILL)
+    except (ProcessLookupError, PermissionError):
         pass
 
 
@@ -608,6 +680,8 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
         if message is None:
             run.process.join(TERMINATE_GRACE)
             error = death_reason(run.process.exitcode)
+            if run.process.exitcode == 255 and _fork_server_died():
+                error = PARENT_KILLED
         running.remove(run)
         _stop(run, grace=TERMINATE_GRACE)
         if not isinstance(message, dict) and error is None:

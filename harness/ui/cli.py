@@ -62,7 +62,30 @@ def _output_file(text: str) -> Path:
     if path.exists() and not path.is_file():
         what = "a folder" if path.is_dir() else "not a regular file"
         raise argparse.ArgumentTypeError(f"{text} is {what}; give the path of a file")
+    for parent in path.parents:  # checked now, not after a long run has nowhere to go
+        if parent.exists():
+            if not parent.is_dir():
+                raise argparse.ArgumentTypeError(f"{text}: its parent {parent} is not a "
+                                                 f"folder")
+            break
     return path
+
+
+def _input_file(text: str) -> Path:
+    """An argparse type: a path to read a file from; an empty one is refused (``Path('')``
+    would be the current folder)."""
+    if not text.strip():
+        raise argparse.ArgumentTypeError("expected a file path, got ''")
+    return Path(text)
+
+
+def _not_a_file(path: Path) -> str:
+    """Why ``path``, which is not a regular file, cannot be read as one."""
+    if path.is_dir():
+        return "a folder, not a file"
+    if path.exists():
+        return "not a regular file (a device or pipe); give the path of a file"
+    return "file not found"
 
 
 def _convergence(text: str) -> float:
@@ -209,10 +232,10 @@ def build_parser() -> argparse.ArgumentParser:
                          "file, with the same checks and the same report as certify. Exit "
                          "0 if the case passed, 1 if it failed (also for an unreadable "
                          "solution file), 2 for usage errors.")
-    chk.add_argument("file", type=Path, metavar="FILE",
+    chk.add_argument("file", type=_input_file, metavar="FILE",
                      help="the solution file (.npz, .json, .h5/.hdf5, .molden)")
     mol = chk.add_argument_group("the case")
-    mol.add_argument("--geometry", type=Path, required=True, metavar="XYZ",
+    mol.add_argument("--geometry", type=_input_file, required=True, metavar="XYZ",
                      help="XYZ file of the molecule (angstrom, or bohr with units=bohr on "
                      "its comment line; required)")
     mol.add_argument("--basis", required=True, metavar="NAME",
@@ -227,7 +250,7 @@ def build_parser() -> argparse.ArgumentParser:
                      help="cartesian d, f, ... functions (default: spherical)")
     mol.add_argument("--name", metavar="N",
                      help="the case's name (default: <xyz stem>-<basis>-<method>)")
-    mol.add_argument("--energy-file", type=Path, metavar="F",
+    mol.add_argument("--energy-file", type=_input_file, metavar="F",
                      help="for a .molden file: the JSON file with the energy (Eh) "
                      "(default: the Molden file's name with .json)")
     how = chk.add_argument_group("how to check")
@@ -543,11 +566,9 @@ def _check_result(args, console) -> int:
     tolerances = _tolerances(args)
     _distinct_outputs(args)
     if not args.file.is_file():
-        raise UsageError(f"{args.file}: " + ("a folder, not a file" if args.file.is_dir()
-                                             else "file not found"))
+        raise UsageError(f"{args.file}: {_not_a_file(args.file)}")
     if args.energy_file is not None and not args.energy_file.is_file():
-        raise UsageError(f"--energy-file: {args.energy_file}: " + (
-            "a folder, not a file" if args.energy_file.is_dir() else "file not found"))
+        raise UsageError(f"--energy-file: {args.energy_file}: {_not_a_file(args.energy_file)}")
     if args.references is not None and not args.references.is_dir():
         raise UsageError(f"--references: not a folder: {args.references}")
     case = result_case(geometry=args.geometry, basis=args.basis, method=args.method,

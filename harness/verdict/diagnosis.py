@@ -24,6 +24,7 @@ import numpy as np
 from harness.checks import energy as _energy
 from harness.checks.spin import density_by_spin, density_from_orbitals, fock_by_spin
 from harness.checks.spin import orbitals_by_spin
+from harness.contract.results import fixed
 from harness.contract.units import ANGSTROM_IN_BOHR, HARTREE_IN_EV
 
 # --------------------------------------------------------------------------- constants
@@ -265,10 +266,10 @@ def describe_fit(fit: FockFit, label: str, expected: Mapping[str, float]) -> str
         if not np.isfinite(c):
             continue
         sign = "−" if c < 0 and round(abs(c), 2) > 0 else "+"
-        parts.append((sign, f"{abs(c):.2f} {name}"))
+        parts.append((sign, f"{fixed(abs(c), 2)} {name}"))
     text = (parts[0][0] if parts[0][0] == "−" else "") + parts[0][1]
     text += "".join(f" {s} {p}" for s, p in parts[1:])
-    off = [f"{'−' if expected[n] < 0 else ''}{abs(expected[n]):.2f} {n}"
+    off = [f"{'−' if expected[n] < 0 else ''}{fixed(abs(expected[n]), 2)} {n}"
            for n, c in zip(fit.names, fit.coefficients)
            if np.isfinite(c) and abs(c - expected[n]) > COEFFICIENT_MATCH]
     exp = f" (expected {', '.join(off)})" if off else ""
@@ -345,20 +346,20 @@ def unique_match(value: float, candidates: Mapping[str, float], match: float,
 def energy_hint(name: str, diff: float, candidates: Mapping[str, float],
                 terms: _energy.EnergyTerms, e_nuc_angstrom: float) -> str:
     """One line with the evidence for a matched energy signature (Eh)."""
-    head = f"{name}: E − E[P] = {diff:+.6f} Eh"
+    head = f"{name}: E − E[P] = {fixed(diff, 6, sign=True)} Eh"
     if name == "coordinates read as ångström":
-        return (f"{name}: E − E_elec[P] = {diff + terms.nuclear:.6f} Eh = E_nuc at the "
-                f"coordinates × {ANGSTROM_IN_BOHR:.4f} ({e_nuc_angstrom:.6f} Eh; "
-                f"expected E_nuc = {terms.nuclear:.6f} Eh)")
-    what = {"nuclear repulsion missing": f"−E_nuc ({terms.nuclear:.6f} Eh)",
-            "nuclear repulsion counted twice": f"+E_nuc ({terms.nuclear:.6f} Eh)",
-            "exchange energy doubled": f"E_K ({terms.exchange:.6f} Eh)",
-            "exchange energy missing": f"−E_K (E_K = {terms.exchange:.6f} Eh)",
-            "kinetic energy missing": f"−Tr(PT) ({-candidates[name]:.6f} Eh)",
-            "nuclear-attraction energy missing": f"−Tr(PV) ({-candidates[name]:.6f} Eh)"}
+        return (f"{name}: E − E_elec[P] = {fixed(diff + terms.nuclear, 6)} Eh = E_nuc at the "
+                f"coordinates × {ANGSTROM_IN_BOHR:.4f} ({fixed(e_nuc_angstrom, 6)} Eh; "
+                f"expected E_nuc = {fixed(terms.nuclear, 6)} Eh)")
+    what = {"nuclear repulsion missing": f"−E_nuc ({fixed(terms.nuclear, 6)} Eh)",
+            "nuclear repulsion counted twice": f"+E_nuc ({fixed(terms.nuclear, 6)} Eh)",
+            "exchange energy doubled": f"E_K ({fixed(terms.exchange, 6)} Eh)",
+            "exchange energy missing": f"−E_K (E_K = {fixed(terms.exchange, 6)} Eh)",
+            "kinetic energy missing": f"−Tr(PT) ({fixed(-candidates[name], 6)} Eh)",
+            "nuclear-attraction energy missing": f"−Tr(PV) ({fixed(-candidates[name], 6)} Eh)"}
     if name.startswith("two-electron"):
-        return (f"{name}: E − E[P] = {diff:+.6f} Eh = E_J + E_K "
-                f"({terms.coulomb:.6f} + {terms.exchange:.6f} Eh)")
+        return (f"{name}: E − E[P] = {fixed(diff, 6, sign=True)} Eh = E_J + E_K "
+                f"({fixed(terms.coulomb, 6)} + {fixed(terms.exchange, 6)} Eh)")
     return f"{head} = {what[name]}"
 
 
@@ -385,7 +386,7 @@ def count_signature(method: str, counts, expected) -> str | None:
                 f"the density integrates to N − 2 = {n - 2:g}: one doubly occupied orbital "
                 f"too few in the density (off by one in the occupied orbitals?)": n - 2}
         name = unique_match(total, cand, COUNT_MATCH, 0.5)
-        return f"{name} (Tr(PS) = {total:.6f})" if name else None
+        return f"{name} (Tr(PS) = {fixed(total, 6)})" if name else None
     off = [k for k in range(len(counts)) if abs(counts[k] - expected[k]) > COUNT_MATCH]
     if len(off) != 1:
         return None
@@ -396,7 +397,7 @@ def count_signature(method: str, counts, expected) -> str | None:
         return None
     word = "many" if delta > 0 else "few"
     return (f"the {spin} density integrates to N{'αβ'[k]} {'+' if delta > 0 else '−'} 1 = "
-            f"{counts[k]:.6f}: one {spin} orbital too {word} in the density "
+            f"{fixed(counts[k], 6)}: one {spin} orbital too {word} in the density "
             f"(off by one in the occupied orbitals?)")
 
 
@@ -438,9 +439,9 @@ def orbital_signature(eps: np.ndarray, r: np.ndarray, occ: np.ndarray) -> str | 
         shifts.append(float(delta.mean()))
     if not shifts or max(shifts) - min(shifts) > ORBITAL_MATCH or abs(shifts[0]) < MIN_SHIFT:
         return None
-    return (f"level shift of {shifts[0]:.2f} Eh left in the virtual orbital energies: "
-            f"ε − cᵀFc = {shifts[0]:+.6f} Eh on every virtual orbital, occupied agree to "
-            f"{np.abs(eps - r)[filled].max():.0e} Eh")
+    return (f"level shift of {fixed(shifts[0], 2)} Eh left in the virtual orbital energies: "
+            f"ε − cᵀFc = {fixed(shifts[0], 6, sign=True)} Eh on every virtual orbital, "
+            f"occupied agree to {np.abs(eps - r)[filled].max():.0e} Eh")
 
 
 # --------------------------------------------------------------------------- diagnose

@@ -35,7 +35,7 @@ import numpy as np
 
 from harness.contract.defaults import STABILITY_MODES
 from harness.checks.spin import density_by_spin, density_from_orbitals, orbitals_by_spin
-from harness.contract.results import CheckResult, Measurement, Status, judge, not_applicable
+from harness.contract.results import CheckResult, Measurement, Status, fixed, judge, not_applicable
 # pyscf's Hessian and the λ threshold live in the backend; re-exported under their old names
 from harness.backend.stability import (  # noqa: F401  (re-exported)
     DAVIDSON_ROOTS, DAVIDSON_TOLERANCE, START_NOISE, START_SEED, STABILITY_EIGENVALUE, Mode,
@@ -204,12 +204,12 @@ def _num(x: float) -> str:
 
 
 def _num5(x: float) -> str:
-    return _minus(f"{x:.5f}")
+    return _minus(fixed(x, 5))
 
 
 def _s2(x: float) -> str:
     """⟨S²⟩ to two decimals, without a '−0.00' from rounding."""
-    return f"{max(x, 0.0) if x > -S2_ROUNDING_2 else x:.2f}"
+    return fixed(max(x, 0.0) if x > -S2_ROUNDING_2 else x, 2)
 
 
 # --------------------------------------------------------------------------- ⟨S²⟩
@@ -261,7 +261,7 @@ def spin_check(problem, sol: dict, ints, reference, *,
     tol = tolerance if tolerance is not None else tol
     shown = max(s2, 0.0) if s2 > -S2_ROUNDING_4 else s2
     m = Measurement(abs(s2 - target), f"|⟨S²⟩ − {what}|",
-                    f"⟨S²⟩ = {shown:.4f}, expected {target:.4f}")
+                    f"⟨S²⟩ = {fixed(shown, 4)}, expected {fixed(target, 4)}")
     return judge(CHECK_SPIN, m, tol, case)
 
 
@@ -411,7 +411,7 @@ def match_state(energy: float, s2: float | None, reference, *,
         k, st = near[0]
         spin = f" (⟨S²⟩ {_s2(s2)} vs {_s2(st.s_squared)})" if s2 is not None else ""
         kind = "" if st.stable else ", a saddle point"
-        return (f"your solution is the known state {k}{kind}, {st.energy - ground:.4f} Eh "
+        return (f"your solution is the known state {k}{kind}, {fixed(st.energy - ground, 4)} Eh "
                 f"above the ground state{spin}")
     if states:
         k, st = min(enumerate(states), key=lambda ks: abs(ks[1].energy - energy))

@@ -100,3 +100,63 @@ def test_certify_refuses_a_cases_file_case_named_like_a_catalogue_case(capsys, t
     assert usage_error(capsys, "certify", "--cases-file", str(mine)) == (
         f"{mine}: case 'water-sto-3g-rhf': name: is the name of a catalogue case; give yours "
         "another name")
+
+
+def test_check_result_of_a_pipe_or_device_is_not_called_missing(capsys, tmp_path):
+    """A FIFO or /dev/null exists: 'file not found' would send the user looking for it."""
+    pipe = tmp_path / "fifo.npz"
+    os.mkfifo(pipe)
+    for given in (str(pipe), os.devnull):
+        line = usage_error(capsys, "check-result", given, "--geometry", "x.xyz", "--basis",
+                           "sto-3g", "--method", "rhf")
+        assert line == f"{given}: not a regular file (a device or pipe); give the path of a file"
+
+
+def test_check_result_of_an_empty_file_says_it_is_empty(capsys, tmp_path):
+    empty = tmp_path / "empty.npz"
+    empty.touch()
+    xyz = tmp_path / "h2.xyz"
+    xyz.write_text("2\nh2\nH 0 0 0\nH 0 0 0.74\n")
+    code = main(["check-result", str(empty), "--geometry", str(xyz), "--basis", "sto-3g",
+                 "--method", "rhf"])
+    out = capsys.readouterr().out
+    assert code == 1 and "empty.npz: empty file (0 bytes)" in out
+    assert "not found" not in out
+
+
+@pytest.mark.parametrize("option", ["FILE", "--geometry", "--energy-file"])
+def test_check_result_refuses_an_empty_path(capsys, option):
+    """'' is not the current folder ('.: a folder, not a file')."""
+    args = {"FILE": "x.molden", "--geometry": "x.xyz", "--energy-file": "e.json"}
+    args[option] = ""
+    argv = ["check-result", args["FILE"], "--geometry", args["--geometry"], "--basis",
+            "sto-3g", "--method", "rhf", "--energy-file", args["--energy-file"]]
+    line = usage_error(capsys, *argv)
+    assert line.startswith(f"argument {option}: expected a file path, got ''")
+
+
+@pytest.mark.parametrize("command, option", [("certify", "--json"), ("certify", "--certificate"),
+                                             ("check-result", "--json")])
+def test_an_output_under_a_file_names_the_path_and_its_parent(capsys, tmp_path, command,
+                                                               option):
+    """Was 'File exists: <some file>' after the whole run; now refused before it starts."""
+    afile = tmp_path / "afile"
+    afile.write_text("keep me\n")
+    target = afile / "sub" / "out.json"
+    head = (["certify", "--case", H2] if command == "certify" else
+            ["check-result", "x.npz", "--geometry", "x.xyz", "--basis", "sto-3g", "--method",
+             "rhf"])
+    line = usage_error(capsys, *head, option, str(target))
+    assert line.startswith(f"argument {option}: {target}: its parent {afile} is not a folder")
+    assert afile.read_text() == "keep me\n"
+
+
+def test_atomic_write_under_a_file_says_the_parent_is_not_a_folder(tmp_path):
+    from harness.run.atomic import atomic_write
+
+    afile = tmp_path / "afile"
+    afile.touch()
+    with pytest.raises(NotADirectoryError) as err:
+        atomic_write(afile / "out.json", lambda tmp: None)
+    assert err.value.strerror == f"its parent {afile} is not a folder"
+    assert err.value.filename == str(afile / "out.json")

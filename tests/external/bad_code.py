@@ -6,7 +6,8 @@ Run in the case's scratch directory. MODE says how to misbehave:
 copy (--from F: copy the prepared solution F to --out, status 0: behaves well),
 exit3 (stderr line, then status 3), segv (SIGSEGV), sleep (60 s; --pidfile F writes its pid to F), nothing (status 0,
 no file), escape (solution.npz is a symbolic link to a file outside the scratch
-directory), object (an .npz with a pickled object array), text (a text file named
+directory), hardlink (solution.npz is a hard link to a file outside it), moved (a
+file made outside moved in, with a modification time 100 s old), object (an .npz with a pickled object array), text (a text file named
 .npz), two (both solution.npz and solution.json), noisy (300 characters of stderr on
 one line, then status 1), chatty (many stderr lines, then status 1), dir (--out is
 made a directory, not a file).
@@ -57,6 +58,16 @@ def main(argv) -> int:
         os.close(fd)
         np.savez(outside, energy=-1.0, coefficients=np.eye(2), occupations=[2.0, 0.0])
         os.symlink(outside, out)
+        return 0
+    if mode in ("hardlink", "moved"):  # a file made outside the scratch directory
+        fd, outside = tempfile.mkstemp(suffix=".npz")
+        os.close(fd)
+        np.savez(outside, energy=-1.0, coefficients=np.eye(2), occupations=[2.0, 0.0])
+        if mode == "hardlink":
+            os.link(outside, out)
+        else:  # moved in with an old modification time
+            os.utime(outside, (time.time() - 100, time.time() - 100))
+            os.rename(outside, out)
         return 0
     if mode == "object":
         np.savez(out, energy=-1.0, coefficients=np.array([{"a": 1}], dtype=object),

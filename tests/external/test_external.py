@@ -302,6 +302,30 @@ def _alive(pid: int) -> bool:
     return "State:\tZ" not in state
 
 
+@pytest.mark.parametrize("status", [0, 3])
+def test_a_detached_grandchild_of_a_command_is_killed(tmp_path, status):
+    """``sh -c 'sleep 97 & …'``: the shell exits (with a solution file or with status 3),
+    the orphaned sleep stays in the command's process group and is killed with it."""
+    prepared = sf.write_npz(tmp_path / "prepared.npz", sf.solved("h2-sto-3g-rhf"))
+    pidfile = tmp_path / "sleep.pid"
+    plugin = CommandPlugin(f"sh -c 'sleep 97 & echo $! > {pidfile}; cp {prepared} "
+                           f"{{solution}}; exit {status}'")
+    try:
+        if status:
+            with pytest.raises(ExternalCodeError, match="exited with status 3"):
+                plugin(sf.problem("h2-sto-3g-rhf"))
+        else:
+            assert plugin(sf.problem("h2-sto-3g-rhf"))["energy"] < 0
+        pid = int(pidfile.read_text())
+        deadline = time.monotonic() + 5
+        while _alive(pid) and time.monotonic() < deadline:
+            time.sleep(0.05)
+        assert not _alive(pid), f"sleep 97 (pid {pid}) outlived its command"
+    finally:
+        if pidfile.exists() and _alive(int(pidfile.read_text())):
+            os.kill(int(pidfile.read_text()), 9)
+
+
 class TestThroughTheRunner:
     SPEC = f"{Path(commands.__file__).resolve()}:{{}}"
 

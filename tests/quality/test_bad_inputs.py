@@ -255,6 +255,14 @@ def escaping_symlink(tmp):
     return CommandPlugin(f"{PY} {sf.BAD_CODE} escape --out {{solution}}"), CASE
 
 
+def hard_link(tmp):
+    return CommandPlugin(f"{PY} {sf.BAD_CODE} hardlink --out {{solution}}"), CASE
+
+
+def moved_in(tmp):
+    return CommandPlugin(f"{PY} {sf.BAD_CODE} moved --out {{solution}}"), CASE
+
+
 def exits_3(tmp):
     return CommandPlugin(f"{PY} {sf.BAD_CODE} exit3"), CASE
 
@@ -330,6 +338,10 @@ CATALOGUE = [
                           "(4, 3)", "solution.npz: "),
     (escaping_symlink, "solution path solution.npz escapes the scratch directory (it resolves "
                        "to /", ""),
+    (hard_link, "solution file solution.npz has 2 links (a hard link to a file elsewhere?): "
+                "refused; write the file itself | stderr: (empty)", ""),
+    (moved_in, "solution file solution.npz was not written during the run (last modified ",
+     ""),
     (exits_3, "exited with status 3 | stderr: bad_code: exiting with status 3", ""),
     (segfaults, "killed by signal SIGSEGV | stderr: ", ""),
     (times_out, "timed out after 1 s | stderr: bad_code: sleeping", ""),
@@ -438,6 +450,24 @@ def test_a_misspelt_key_is_named_not_ignored(old, new):
                                           "lower-case) (h2-sto-3g-rhf)")
 
 
+@pytest.mark.parametrize("old, new", [("fock", "fock_matrix"), ("overlap", "Overlap_AO"),
+                                      ("density", "density_mat")])
+def test_a_key_with_a_restating_suffix_is_named_not_ignored(old, new):
+    """'fock_matrix' is too far from 'fock' for difflib (0.53) but plainly meant it."""
+    assert outcome(renamed(old, new)) == (f"well-formed: '{old}' not given, but '{new}' was: "
+                                          f"did you mean '{old}'? (keys are exact and "
+                                          "lower-case) (h2-sto-3g-rhf)")
+
+
+@pytest.mark.parametrize("key", ["fock", "history", "converged", "energy"])
+def test_a_key_given_as_none_is_named_not_dropped(key):
+    """'fock': None used to drop the stationarity column silently; like a JSON null it
+    fails well-formed, naming the key (so every numerical check is reported skipped)."""
+    assert outcome(returning(**{key: None})) == (
+        f"well-formed: '{key}' is None: leave out a key you have no value for (None is not "
+        f"read as absent) (h2-sto-3g-rhf)")
+
+
 def test_unrelated_extra_keys_are_still_ignored():
     sol = dict(good(), mo_energy=[1.0], e_tot=-1.0, kinetic_energy=0.5, note="lab run 7")
     assert outcome(lambda problem: sol) == "passed"
@@ -476,3 +506,31 @@ def test_huge_energy_through_the_runner(tmp_path):
 def test_a_correct_file_passes(tmp_path):
     """The same path with a correct file passes: the catalogue's failures are the defects'."""
     assert outcome(copy_plugin(sf.write_npz(tmp_path / "ok.npz", good()))) == "passed"
+
+
+def test_huge_numbers_are_written_with_an_exponent():
+    """An energy of 1e308 is not written with 300+ digits: magnitudes ≥ 1e6 get an
+    exponent with the same number of decimals; ordinary values keep their fixed decimals."""
+    from harness.catalogue.cases import load_catalogue
+    from harness.catalogue.references import reference_for
+
+    reference, _ = reference_for(load_catalogue().case(CASE))
+    raw = dict(good(), energy=1e308)
+    failed = {c.name: c.message for c in evaluate(sf.problem(CASE), extract(raw), reference)
+              if c.passed is False}
+    assert failed == {
+        "energy-consistency": "energy-consistency: |E − E[P]| = 1.0e+308 > 1.0e-08 "
+                              "(h2-sto-3g-rhf), E = 1.0000000000e+308, E[P] = -1.1167143251 Eh",
+        "reference-energy": "reference-energy: |E − E_ref| = 1.0e+308 > 1.0e-06 "
+                            "(h2-sto-3g-rhf), E = 1.0000000000e+308 Eh is 1.000e+308 Eh above "
+                            "E_ref = -1.1167143251 Eh"}
+
+
+def test_fixed_switches_to_an_exponent_at_a_million():
+    from harness.contract.results import fixed
+
+    assert fixed(-1.1167143251) == "-1.1167143251"
+    assert fixed(999999.5, 2) == "999999.50"
+    assert fixed(-1e6, 6) == "-1.000000e+06"
+    assert fixed(2.5e300, 4, sign=True) == "+2.5000e+300"
+    assert fixed(float("nan")) == "nan" and fixed(float("-inf"), 2) == "-inf"

@@ -169,3 +169,52 @@ class TestFromResults:
     def test_trailing_monotone_counts_energies(self):
         assert hi.trailing_monotone(np.array([-1.0, -2.0, -1.5, -1.6, -1.7])) == 3
         assert hi.trailing_monotone(np.array([np.nan, -1.0, -1.1])) == 2
+
+
+class TestNonFinite:
+    """A convergence claim with a NaN energy, a NaN error after finite ones, or an
+    infinite error fails, naming the record (0-based) and the field."""
+
+    def test_nan_energy(self):
+        h = converging()
+        h[5, 0] = np.nan
+        r = check(h)
+        assert r.status is Status.FAILED
+        assert r.message == ("history: non-finite value: record 5 of 12 has 'energy' = NaN "
+                             "(or missing) while the code claims convergence "
+                             "(water-sto-3g-rhf)")
+
+    def test_nan_last_error(self):
+        h = converging()
+        h[-1, 1] = np.nan
+        r = check(h)
+        assert r.status is Status.FAILED
+        assert r.message == ("history: non-finite value: record 11 of 12 has 'error' = NaN "
+                             "(or missing) while the code claims convergence "
+                             "(water-sto-3g-rhf)")
+
+    def test_infinite_errors_counted(self):
+        h = converging()
+        h[3:6, 1] = np.inf
+        r = check(h)
+        assert r.status is Status.FAILED
+        assert r.message == ("history: non-finite value: record 3 of 12 has 'error' = inf "
+                             "while the code claims convergence (water-sto-3g-rhf); 2 more "
+                             "records like it")
+
+    def test_infinite_first_error(self):
+        h = converging()
+        h[0, 1] = np.inf
+        assert "record 0 of 12 has 'error' = inf" in check(h).message
+
+    def test_leading_nan_errors_pass(self):
+        """Iteration 0 of a ΔE or ΔD error measure has no error: not a failure."""
+        h = converging()
+        h[0, 1] = np.nan
+        assert check(h).status is Status.PASSED
+
+    def test_without_convergence_claim_passes(self):
+        h = converging()
+        h[5, 0] = np.nan
+        h[6, 1] = np.inf
+        assert check(h, converged=False).status is Status.PASSED

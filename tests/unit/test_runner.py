@@ -320,6 +320,53 @@ class TestCallablePluginsAndRecords:
         assert again.energy == case.energy and again.reference_energy == case.reference_energy
 
 
+def _alive(pid: int) -> bool:
+    try:
+        state = Path(f"/proc/{pid}/status").read_text()
+    except FileNotFoundError:
+        return False
+    return "State:\tZ" not in state
+
+
+def _gone_soon(pid: int, seconds: float = 5.0) -> bool:
+    deadline = time.monotonic() + seconds
+    while _alive(pid) and time.monotonic() < deadline:
+        time.sleep(0.05)
+    return not _alive(pid)
+
+
+class TestNothingOutlivesItsCase:
+    def test_a_detached_grandchild_is_killed_with_the_case(self, tmp_path):
+        """A plug-in that runs ``sleep 97 &`` through a shell: the case passes, and the
+        sleep (in the child's own process group) is gone when run_cases returns."""
+        import tempfile
+
+        name = f"h2-grandchild-{os.getpid()}"
+        pidfile = Path(tempfile.gettempdir()) / f"{name}.grandchild.pid"
+        pidfile.unlink(missing_ok=True)
+        out = run("leaves_a_grandchild", names=(name,))
+        pid = int(pidfile.read_text())
+        pidfile.unlink()
+        try:
+            assert out.cases[0].passed
+            assert _gone_soon(pid), f"sleep 97 (pid {pid}) outlived its case"
+        finally:
+            if _alive(pid):
+                os.kill(pid, 9)
+
+
+class TestParentKilled:
+    def test_a_plugin_that_kills_the_fork_server_is_named(self):
+        """Was 'plug-in process exited with code 255 without sending a result'; the next
+        case runs in a new fork server and passes."""
+        out = run("kills_its_parent_on_first", names=("h2-sto-3g-rhf", "h2-again"))
+        first, second = out.cases
+        assert first.error == ("the plug-in's worker process lost its parent, the harness's "
+                               "fork server (killed from inside the plug-in? os.getppid() is "
+                               "not the harness): result unknown")
+        assert second.passed
+
+
 class TestDeathReason:
     def test_signal_and_code(self):
         """Negative exit codes are signals, named; positive ones are codes."""

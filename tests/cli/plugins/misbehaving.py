@@ -89,3 +89,23 @@ def constant(problem):
     """A fixed, well-formed-looking answer for H2/STO-3G (two AOs); energies in Eh."""
     return {"energy": -1.1167, "coefficients": [[0.5489, 1.2114], [0.5489, -1.2114]],
             "occupations": [2.0, 0.0], "converged": True}
+
+
+def leaves_a_grandchild(problem):
+    """Starts ``sleep 97 &`` through a shell (the shell exits, the sleep is orphaned),
+    writes its pid to <tmp>/<case name>.grandchild.pid, and returns constant's answer."""
+    import subprocess
+    import tempfile
+
+    pidfile = os.path.join(tempfile.gettempdir(), f"{problem.name}.grandchild.pid")
+    subprocess.run(f"sleep 97 & echo $! > {pidfile}", shell=True, check=True)
+    return constant(problem)
+
+
+def kills_its_parent_on_first(problem):
+    """Kills its own parent process (the harness's fork server) on the first case and
+    then answers anyway; the other cases get constant's answer."""
+    if problem.name == FIRST_CASE:
+        os.kill(os.getppid(), signal.SIGKILL)
+        time.sleep(0.5)
+    return constant(problem)
