@@ -425,5 +425,5 @@ def test_ao_convention_reaches_the_checks(scf_case, scf_check):
 def test_check_judges_as_certify_does(project):
     """scf_check finds references as certify does (a missing one fails reference-energy
     with its reason) and passes an AO convention on to the checks."""
-    project.makepyfile(test_judge=JUDGE_TESTS)
+    project.makepyfile(test_scf_check_judging=JUDGE_TESTS)
     project.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=2)
