@@ -535,7 +535,7 @@ class TestEnergyTerms:
         assert t.coulomb + t.exchange == pytest.approx(e_two, abs=1e-10)
         assert t.one_electron == pytest.approx(e_elec - e_two, abs=1e-10)
         # Source: Crawford group Programming Projects #3, water/STO-3G output
-        # (/work/shared/reference-values.md item 1); E_nuc 8.002367061810450.
+        # (tests/published/SOURCES.md item 1); E_nuc 8.002367061810450.
         assert t.total == pytest.approx(-74.942079928192, abs=1e-9)
         assert t.nuclear == pytest.approx(8.002367061810450, abs=1e-10)
 
