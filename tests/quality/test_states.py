@@ -56,7 +56,10 @@ def _params():
     out = []
     for k, entry in enumerate(CATALOGUE):
         slow = entry.case in SLOW_CASES or (entry.name, entry.case) in SLOW_ENTRIES
-        marks = [pytest.mark.slow] if slow else []
+        # A slow entry's two tests share one worker (xdist --dist loadgroup), so the
+        # cached run is computed once, not once per worker (ao_diagonal_guess on the
+        # ethynyl radical took 532 s and 358 s in parallel on two workers).
+        marks = [pytest.mark.slow, pytest.mark.xdist_group(f"states-{k}")] if slow else []
         if entry.case in FRAME_DEPENDENT:
             marks.append(pytest.mark.xfail(strict=False, reason="state depends on the "
                                            "eigensolver's frame in a degenerate π set"))

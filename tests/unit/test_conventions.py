@@ -309,7 +309,7 @@ class TestToReference:
         with pytest.raises(HarnessError, match="unknown solution key 'mo'"):
             conv.to_reference("mo", np.zeros((7, 7)))
         marker = Malformed("is a str")
-        extracted = {"energy": -75.0, "density": marker, "fock": np.zeros((6, 6)),
+        extracted = {"energy": -75.0, "density": marker, "fock": np.zeros((6, 6)),  # synthetic
                      "overlap": overlap(mol)}
         out = conv.solution_to_reference(extracted)
         assert out["density"] is marker and out["fock"] is extracted["fock"]
