@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import copy
 import re
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -321,7 +322,7 @@ class TestToReference:
 
 def _molden_coefficients(path, nao):
     """The MO coefficients written in a Molden file's [MO] section, (nao, nmo)."""
-    text = open(path).read().split("[MO]", 1)[1]
+    text = Path(path).read_text().split("[MO]", 1)[1]
     columns, current = [], None
     for line in text.splitlines():
         if line.strip().startswith("Sym="):
