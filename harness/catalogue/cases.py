@@ -10,8 +10,11 @@ files in the same format (:func:`load_suite_file`).
 
 from __future__ import annotations
 
+import atexit
+import contextlib
 import dataclasses
 import difflib
+import importlib.resources
 import os
 import re
 import tomllib
@@ -49,13 +52,65 @@ CASE_KEYS: dict[str, tuple[type | tuple[type, ...], Any]] = {
 }
 
 
+#: The package the bundled references are installed as (pyproject.toml maps the repo's
+#: top-level ``references/`` folder to it, so a wheel carries it as package data).
+REFERENCE_PACKAGE = "harness.catalogue.data"
+
+#: Keeps directories that importlib.resources had to extract (a zipped install) until exit.
+_EXTRACTED = contextlib.ExitStack()
+_EXTRACTED_DIR: Path | None = None
+
+
+def _source_tree_references() -> Path | None:
+    """The ``references/`` folder beside ``harness/`` when the harness runs from a source
+    tree (an editable install, or a checkout on ``PYTHONPATH``), else None.
+
+    Looked at before the installed package, so a checkout on ``PYTHONPATH`` reads its own
+    references even when the environment has an editable install of another checkout.
+    """
+    root = Path(__file__).resolve().parents[2]
+    refs = root / "references"
+    if (root / "pyproject.toml").is_file() and (refs / "__init__.py").is_file() \
+            and (refs / "cases.toml").is_file():
+        return refs
+    return None
+
+
+def bundled_reference_dir() -> Path:
+    """The references shipped with the harness: from a source tree the repo's top-level
+    ``references/`` folder, from a wheel the package data ``harness.catalogue.data``
+    (found with importlib.resources)."""
+    local = _source_tree_references()
+    if local is not None:
+        return local
+    try:
+        root = importlib.resources.files(REFERENCE_PACKAGE)
+    except ModuleNotFoundError:
+        # Neither a source tree nor an install that carries the data: name where it was
+        # looked for, so the "suite file not found" error that follows says something.
+        return Path(__file__).resolve().parents[2] / "references"
+    if isinstance(root, Path):  # an ordinary install: the files are on disk already
+        return root
+    # A zipped install (never a pip-installed wheel): extract once, delete at exit.
+    # as_file extracts directories from Python 3.12 on.
+    global _EXTRACTED_DIR
+    if _EXTRACTED_DIR is None:  # pragma: no cover
+        try:
+            _EXTRACTED_DIR = _EXTRACTED.enter_context(importlib.resources.as_file(root))
+        except Exception as exc:
+            raise CaseError(f"cannot read the bundled references from {root}: {exc}") from exc
+        atexit.register(_EXTRACTED.close)
+    return _EXTRACTED_DIR
+
+
 def default_reference_dir() -> Path:
-    """The reference directory: ``$SCF_HARNESS_REFERENCES`` if set, else the repo's
-    ``references/`` folder (holding ``cases.toml``, ``geometries/`` and ``data/``)."""
+    """The reference directory: ``$SCF_HARNESS_REFERENCES`` if set, else the bundled
+    references (:func:`bundled_reference_dir`: ``cases.toml``, ``geometries/``,
+    ``data/``, ``suites/``)."""
     env = os.environ.get(REFERENCES_ENV)
     if env:
         return Path(env)
-    return Path(__file__).resolve().parents[2] / "references"
+    return bundled_reference_dir()
 
 
 # --------------------------------------------------------------------------- XYZ

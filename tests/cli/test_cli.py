@@ -342,6 +342,7 @@ class TestGoodRuns:
         assert all(c["reference_source"] == "stored" for c in data["cases"])
         assert not (work / "out.json.partial.jsonl").exists()
 
+    @pytest.mark.slow  # 10 s measured (two cores shared with other jobs)
     def test_jobs_two_gives_the_same_verdicts(self, work):
         """--jobs 2 and --jobs 1 give the same verdict for every case and check."""
         one = cli("certify", "--jobs", "1", "--json", "one.json", cwd=work)

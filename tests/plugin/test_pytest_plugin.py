@@ -328,6 +328,7 @@ def test_stability_setting_reaches_the_checks(project, table, analysed):
     assert any(line.startswith("stability: ") for line in head) is analysed
 
 
+@pytest.mark.slow  # 63 s measured (two cores shared with other jobs)
 def test_items_run_under_xdist(project):
     """The items are self-contained: ``-n 2`` (pytest-xdist) runs the suite in two worker
     processes, with the same verdicts and failure reports as a serial run."""

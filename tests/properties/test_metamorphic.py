@@ -209,6 +209,7 @@ def _frame_free(c) -> bool:
                    - c.mole().energy_nuc()) < 1e-12
 
 
+@pytest.mark.slow  # 39 s measured (two cores shared with other jobs)
 def test_hypothesis_shrinks_the_abs_bug_to_h2_with_one_motion():
     pool = [c for c in STO3G if _frame_free(c)]
     assert len(pool) >= 3

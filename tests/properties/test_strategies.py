@@ -159,6 +159,7 @@ def test_shrinks_to_the_smallest_untransformed_case():
     assert case == smallest
 
 
+@pytest.mark.slow  # 11 s measured (two cores shared with other jobs)
 def test_shrinks_each_transformation_away_unless_needed():
     rotated = find(hs.variants(cases=STO3G), lambda v: "rot" in v.kinds, settings=FIND,
                    random=random.Random(0))

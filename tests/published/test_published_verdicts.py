@@ -1,6 +1,7 @@
 """The bundled example code, judged by the harness, against published values.
 
-Values and sources: /work/shared/reference-values.md (sources named beside each check).
+Values and sources: tests/published/SOURCES.md (sources named beside each check;
+"from memory" there marks values recalled, not read from the cited source).
 These tie the whole chain — our own SCF, our own checks, the stored references — to
 numbers from outside the project. Energies in Eh, lengths in bohr.
 """
@@ -48,8 +49,8 @@ def test_methane_sto3g_published_energy():
 def test_h2_orbital_energies_szabo_ostlund():
     """H2/STO-3G at 1.4 bohr: orbital energies and electronic energy as printed."""
     problem, solution, _ = run("h2-sto-3g-rhf")
-    # Szabo & Ostlund, Modern Quantum Chemistry, section 3.5.2 (4 printed digits, as
-    # commonly quoted; the book itself was not re-read): eps = -0.578, +0.670;
+    # Szabo & Ostlund, Modern Quantum Chemistry, section 3.5.2, from memory (4 printed
+    # digits, as commonly quoted; the book itself was not re-read): eps = -0.578, +0.670;
     # E_elec = -1.8310; E_total = -1.1167
     assert np.allclose(solution["orbital_energies"], [-0.578, 0.670], atol=5e-4)
     e_nuc = problem.to_pyscf().energy_nuc()
@@ -58,12 +59,13 @@ def test_h2_orbital_energies_szabo_ostlund():
 
 
 @pytest.mark.parametrize("name, limit", [
-    # Numerical Hartree-Fock limits (J. Kobus, Comput. Phys. Commun. 184, 799 (2013)):
+    # Numerical Hartree-Fock limits, from memory (recalled, not read from the source;
+    # attributed to J. Kobus, Comput. Phys. Commun. 184, 799 (2013); SOURCES.md):
     # every finite-basis RHF energy must lie above them (1e-8 slack)
-    ("he-atom-cc-pvtz-rhf", -2.86167999563),
+    ("he-atom-cc-pvtz-rhf", -2.861679995612),
     ("be-atom-cc-pvtz-rhf", -14.5730231683),
     ("ne-atom-cc-pvtz-rhf", -128.547098109),
-    ("h2-sto-3g-rhf", -1.13363015),
+    ("h2-sto-3g-rhf", -1.133629571),  # R = 1.4 bohr, from memory
 ])
 def test_example_energy_above_hf_limit(name, limit):
     """The example's finite-basis energy is variational: above the numerical HF limit."""

@@ -26,6 +26,9 @@ from harness.checks.tolerances import REFERENCE_ENERGY
 #: Entries whose run (plug-in plus following the instability with pyscf) takes longer
 #: than a few seconds (measured 8 s for the ethynyl radical under UHF).
 SLOW_CASES = {"c2h-6-31g-uhf"}
+#: Single entries as slow (name, case): the shipped lab code on stretched N₂ took 81 s
+#: (two cores shared with other jobs).
+SLOW_ENTRIES = {("lab_code_as_shipped", "n2-stretched-6-31g-uhf")}
 #: Cases whose reached state depends on the frame LAPACK picks inside a degenerate π set
 #: (stretched N₂: the guess pairs HOMO−k with LUMO+k, which only break the symmetry
 #: when the two degenerate sets come out in the same orientation). On some BLAS/LAPACK
@@ -52,7 +55,11 @@ def run(index: int):
 def _params():
     out = []
     for k, entry in enumerate(CATALOGUE):
-        marks = [pytest.mark.slow] if entry.case in SLOW_CASES else []
+        slow = entry.case in SLOW_CASES or (entry.name, entry.case) in SLOW_ENTRIES
+        # A slow entry's two tests share one worker (xdist --dist loadgroup), so the
+        # cached run is computed once, not once per worker (ao_diagonal_guess on the
+        # ethynyl radical took 532 s and 358 s in parallel on two workers).
+        marks = [pytest.mark.slow, pytest.mark.xdist_group(f"states-{k}")] if slow else []
         if entry.case in FRAME_DEPENDENT:
             marks.append(pytest.mark.xfail(strict=False, reason="state depends on the "
                                            "eigensolver's frame in a degenerate π set"))

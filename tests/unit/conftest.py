@@ -15,7 +15,7 @@ from harness.backend.integrals import integrals_for
 from harness.contract.problem import Problem
 
 #: Water geometry (bohr) of the RHF/STO-3G worked example in
-#: /work/shared/reference-values.md, item 1 (Crawford group, Programming Projects #3).
+#: tests/published/SOURCES.md, item 1 (Crawford group, Programming Projects #3).
 WATER_NUMBERS = (8, 1, 1)
 WATER_COORDS = ((0.0, -0.143225816552, 0.0),
                 (1.638036840407, 1.136548822547, 0.0),

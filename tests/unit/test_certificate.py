@@ -80,7 +80,7 @@ class TestContent:
 
     def test_solution_hash_sees_dtype_shape_and_bytes(self):
         """The solution hash changes with one ulp, with the shape, and with a key."""
-        base = {"energy": -1.0, "coefficients": np.eye(2), "converged": True}
+        base = {"energy": -1.0, "coefficients": np.eye(2), "converged": True}  # synthetic
         h = solution_hash(base)
         assert solution_hash(dict(base)) == h
         bumped = dict(base, coefficients=np.eye(2) + np.array([[0, 0], [0, 2e-16]]))

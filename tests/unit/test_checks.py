@@ -535,7 +535,7 @@ class TestEnergyTerms:
         assert t.coulomb + t.exchange == pytest.approx(e_two, abs=1e-10)
         assert t.one_electron == pytest.approx(e_elec - e_two, abs=1e-10)
         # Source: Crawford group Programming Projects #3, water/STO-3G output
-        # (/work/shared/reference-values.md item 1); E_nuc 8.002367061810450.
+        # (tests/published/SOURCES.md item 1); E_nuc 8.002367061810450.
         assert t.total == pytest.approx(-74.942079928192, abs=1e-9)
         assert t.nuclear == pytest.approx(8.002367061810450, abs=1e-10)
 
@@ -694,7 +694,7 @@ OH_NAO = 6  # OH/sto-3g: 5 alpha, 4 beta
 
 
 def water_like(**changes) -> dict:
-    sol = {"energy": -74.9, "coefficients": np.eye(NAO),
+    sol = {"energy": -74.9, "coefficients": np.eye(NAO),  # synthetic
            "occupations": np.array([2.0, 2, 2, 2, 2, 0, 0])}
     sol.update(changes)
     return extract(sol)
@@ -741,7 +741,7 @@ class TestWellFormed:
 
     def test_unrestricted_coefficients_need_a_spin_axis(self):
         """UHF coefficients of shape (nao, nmo) are rejected."""
-        sol = extract({"energy": -75.0, "coefficients": np.eye(OH_NAO),
+        sol = extract({"energy": -75.0, "coefficients": np.eye(OH_NAO),  # synthetic
                        "occupations": np.ones((2, OH_NAO))})
         assert well_formed(sol, OH_NAO, "uhf", 5, 4) == [
             "'coefficients' has shape (6, 6), expected (2, nao, nmo) with nao = 6 and "
@@ -780,7 +780,7 @@ class TestWellFormed:
         """RHF wants one (nao, nao) density, ROHF a pair."""
         assert rhf_problems(water_like(density=np.zeros((2, NAO, NAO)))) == [
             "'density' has shape (2, 7, 7), expected (7, 7)"]
-        sol = extract({"energy": -75.0, "coefficients": np.eye(OH_NAO),
+        sol = extract({"energy": -75.0, "coefficients": np.eye(OH_NAO),  # synthetic
                        "occupations": [2, 2, 2, 2, 1, 0], "fock": np.zeros((OH_NAO, OH_NAO))})
         assert well_formed(sol, OH_NAO, "rohf", 5, 4) == [
             "'fock' has shape (6, 6), expected (2, 6, 6)"]
@@ -792,6 +792,7 @@ class TestWellFormed:
 
     def test_uhf_occupation_sums(self):
         """UHF occupation sums are checked per spin."""
+        # synthetic energy and coefficients (invented placeholders)
         sol = extract({"energy": -75.0, "coefficients": np.stack([np.eye(OH_NAO)] * 2),
                        "occupations": [[1, 1, 1, 1, 1, 0], [1, 1, 1, 1, 1, 0]]})
         assert well_formed(sol, OH_NAO, "uhf", 5, 4) == [
@@ -799,6 +800,7 @@ class TestWellFormed:
 
     def test_uhf_occupation_values(self):
         """A 2 in a UHF spin orbital is rejected."""
+        # synthetic energy and coefficients (invented placeholders)
         sol = extract({"energy": -75.0, "coefficients": np.stack([np.eye(OH_NAO)] * 2),
                        "occupations": [[2, 1, 1, 1, 0, 0], [1, 1, 1, 1, 0, 0]]})
         assert well_formed(sol, OH_NAO, "uhf", 5, 4) == [
@@ -807,6 +809,7 @@ class TestWellFormed:
     def test_rohf_occupations(self):
         """ROHF: total, allowed values, and the doubly/singly split are each checked."""
         def problems(occ):
+            # synthetic energy and coefficients (invented placeholders)
             sol = extract({"energy": -75.0, "coefficients": np.eye(OH_NAO), "occupations": occ})
             return well_formed(sol, OH_NAO, "rohf", 5, 4)
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import copy
 import re
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -309,7 +310,7 @@ class TestToReference:
         with pytest.raises(HarnessError, match="unknown solution key 'mo'"):
             conv.to_reference("mo", np.zeros((7, 7)))
         marker = Malformed("is a str")
-        extracted = {"energy": -75.0, "density": marker, "fock": np.zeros((6, 6)),
+        extracted = {"energy": -75.0, "density": marker, "fock": np.zeros((6, 6)),  # synthetic
                      "overlap": overlap(mol)}
         out = conv.solution_to_reference(extracted)
         assert out["density"] is marker and out["fock"] is extracted["fock"]
@@ -321,7 +322,7 @@ class TestToReference:
 
 def _molden_coefficients(path, nao):
     """The MO coefficients written in a Molden file's [MO] section, (nao, nmo)."""
-    text = open(path).read().split("[MO]", 1)[1]
+    text = Path(path).read_text().split("[MO]", 1)[1]
     columns, current = [], None
     for line in text.splitlines():
         if line.strip().startswith("Sym="):

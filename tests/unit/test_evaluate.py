@@ -20,7 +20,7 @@ from harness.contract.solution import extract
 from harness.checks.tolerances import CHECK_NAMES, CONVERGENCE_FACTOR, Tolerances
 
 #: Water RHF/STO-3G total energy, Crawford group Programming Projects #3 output
-#: (/work/shared/reference-values.md, item 1). Used as the stored reference.
+#: (tests/published/SOURCES.md, item 1). Used as the stored reference.
 WATER_PUBLISHED_ENERGY = -74.942079928192
 
 ROHF_CONVENTION = "ROHF orbital energies depend on a canonicalisation convention"

@@ -24,7 +24,7 @@ ENERGY_AGREEMENT = 1e-7
 IDENTITY = 1e-10
 
 # Water geometry in bohr from the Crawford group's "Programming Projects", Project #3
-# (CrawfordGroup/ProgrammingProjects, water/STO-3G input); see /work/shared/reference-values.md.
+# (CrawfordGroup/ProgrammingProjects, water/STO-3G input); see tests/published/SOURCES.md.
 WATER = ([8, 1, 1], [(0.0, -0.143225816552, 0.0), (1.638036840407, 1.136548822547, 0.0),
                      (-1.638036840407, 1.136548822547, 0.0)])
 
@@ -154,7 +154,7 @@ def test_benzene_cc_pvdz_matches_pyscf():
 
 def test_water_sto3g_published_energy():
     # Source: T. D. Crawford group, "Programming Projects", Project #3, water/STO-3G
-    # output: E_total = -74.942079928192 Eh (see /work/shared/reference-values.md item 1).
+    # output: E_total = -74.942079928192 Eh (see tests/published/SOURCES.md item 1).
     result = solve(make_problem("water-sto-3g-rhf"))
     assert abs(result["energy"] - (-74.942079928192)) <= 1e-9
 

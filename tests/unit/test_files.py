@@ -292,6 +292,7 @@ class TestErrors:
         c = np.zeros((4, 2))
         c[0, 0] = c[2, 0] = c[0, 1] = 0.5
         c[2, 1] = -0.5
+        # synthetic coefficients and orbital energies (invented, not a computed result)
         fake.update(coefficients=c, orbital_energies=np.array([-0.5, 0.5]))
         path = sf.write_molden(tmp_path / "s.molden", mol, fake)
         with pytest.raises(SolutionFileError) as err:

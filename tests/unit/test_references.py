@@ -168,6 +168,7 @@ def test_recompute_h2_reproduces_the_stored_total(catalogue, stored):
     assert fresh.provenance["guesses_tried"] == ["minao", "atom", "huckel", "1e"]
 
 
+@pytest.mark.slow  # 47 s measured (two cores shared with other jobs)
 def test_stretched_h2_uhf_breaks_spin_symmetry(catalogue):
     uhf = refs.compute_reference(catalogue.case("h2-stretched-6-31g-uhf"))
     rhf = refs.compute_reference(catalogue.case("h2-stretched-6-31g-rhf"))

@@ -280,8 +280,8 @@ class TestCallablePluginsAndRecords:
         assert case.error is None and case.passed
         # H2/STO-3G at R = 1.4 bohr, solved by the example SCF code in the external
         # process. Published E_total = -1.1167 Eh: Szabo & Ostlund, Modern Quantum
-        # Chemistry (Dover, 1989), sec. 3.5.2 (as commonly quoted; see
-        # /work/shared/reference-values.md item 3).
+        # Chemistry (Dover, 1989), sec. 3.5.2 (from memory, as commonly quoted; see
+        # tests/published/SOURCES.md item 3).
         assert case.energy == pytest.approx(-1.1167, abs=1e-3)
         (folder,) = tmp_path.iterdir()  # kept: the child really ran the command
         assert (folder / "solution.npz").is_file()
