@@ -8,6 +8,10 @@ for these.
 
 from __future__ import annotations
 
+import sysconfig
+import traceback
+from pathlib import Path
+
 
 class HarnessError(ValueError):
     """Base class: a one-line, user-facing problem with the harness's input.
@@ -57,3 +61,34 @@ def first_line(exc: BaseException) -> str:
     except BaseException:  # the user's __str__
         return f"{type(exc).__name__}: <unprintable message>"
     return f"{type(exc).__name__}: {text[0]}" if text else type(exc).__name__
+
+
+_LIBRARY_DIRS = tuple(
+    str(Path(p).resolve()) for key in ("stdlib", "platstdlib", "purelib", "platlib")
+    if (p := sysconfig.get_paths().get(key)))
+
+
+def _is_library(filename: str) -> bool:
+    try:
+        path = str(Path(filename).resolve())
+    except (OSError, ValueError):
+        return True
+    return filename.startswith("<") or path.startswith(_LIBRARY_DIRS)
+
+
+def innermost_frame(tb, after: str) -> traceback.FrameSummary | None:
+    """The frame of ``tb`` that an error report should name: frames up to and including
+    the last one in the file ``after`` (a resolved path: the harness module that made the
+    call) are dropped; of the rest, the innermost one outside the standard library and
+    site-packages (so an error raised inside numpy names the line that called numpy); if
+    all are library frames, the outermost one; None if nothing is left."""
+    frames = traceback.extract_tb(tb)
+    start = 0
+    for i, fr in enumerate(frames):
+        if str(Path(fr.filename).resolve()) == after:
+            start = i + 1
+    frames = frames[start:]
+    if not frames:
+        return None
+    own = [fr for fr in frames if not _is_library(fr.filename)]
+    return own[-1] if own else frames[0]

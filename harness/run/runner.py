@@ -26,7 +26,6 @@ import multiprocessing.connection
 import os
 import signal
 import sys
-import sysconfig
 import threading
 import time
 import traceback
@@ -34,7 +33,7 @@ from pathlib import Path
 from typing import Any, Callable, Iterable
 
 from harness.contract import defaults as _defaults
-from harness.contract.errors import PluginLoadError
+from harness.contract.errors import PluginLoadError, innermost_frame
 from harness.run.plugins import load_plugin
 from harness.contract.results import CaseResult
 from harness.run.outcome import RunOutcome  # noqa: F401  (re-exported: run_cases returns it)
@@ -66,18 +65,7 @@ def request_interrupt() -> None:
 
 # --------------------------------------------------------------------------- child side
 
-_LIBRARY_DIRS = tuple(
-    str(Path(p).resolve()) for key in ("stdlib", "platstdlib", "purelib", "platlib")
-    if (p := sysconfig.get_paths().get(key)))
 _THIS_FILE = str(Path(__file__).resolve())
-
-
-def _is_library(filename: str) -> bool:
-    try:
-        path = str(Path(filename).resolve())
-    except (OSError, ValueError):
-        return True
-    return filename.startswith("<") or path.startswith(_LIBRARY_DIRS)
 
 
 def plugin_frame(tb) -> traceback.FrameSummary | None:
@@ -89,16 +77,7 @@ def plugin_frame(tb) -> traceback.FrameSummary | None:
     error raised inside numpy points at the plug-in line that called numpy); if all
     are library frames, the outermost one (the plug-in's entry function).
     """
-    frames = traceback.extract_tb(tb)
-    start = 0
-    for i, fr in enumerate(frames):
-        if str(Path(fr.filename).resolve()) == _THIS_FILE:
-            start = i + 1
-    frames = frames[start:]
-    if not frames:
-        return None
-    own = [fr for fr in frames if not _is_library(fr.filename)]
-    return own[-1] if own else frames[0]
+    return innermost_frame(tb, _THIS_FILE)
 
 
 #: Stands in for the message of an exception whose ``__str__`` raises.

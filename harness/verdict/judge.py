@@ -12,11 +12,11 @@ recompute, the pytest plug-in and the self-test all call it. No I/O.
 from __future__ import annotations
 
 import dataclasses
-import sysconfig
 import time
 import traceback
 from pathlib import Path
 
+from harness.contract.errors import innermost_frame
 from harness.contract.results import CaseResult, failed
 
 __all__ = ["JudgeSettings", "judge"]
@@ -62,17 +62,6 @@ def reference_energy(reference) -> float | None:
 
 
 _THIS_FILE = str(Path(__file__).resolve())
-_LIBRARY_DIRS = tuple(
-    str(Path(p).resolve()) for key in ("stdlib", "platstdlib", "purelib", "platlib")
-    if (p := sysconfig.get_paths().get(key)))
-
-
-def _is_library(filename: str) -> bool:
-    try:
-        path = str(Path(filename).resolve())
-    except (OSError, ValueError):
-        return True
-    return filename.startswith("<") or path.startswith(_LIBRARY_DIRS)
 
 
 def _check_frame(tb) -> traceback.FrameSummary | None:
@@ -80,16 +69,7 @@ def _check_frame(tb) -> traceback.FrameSummary | None:
     including this module's own are dropped; of the rest, the innermost one outside the
     standard library and site-packages (so an error inside numpy names the check line
     that called numpy); if all are library frames, the outermost one; None if none."""
-    frames = traceback.extract_tb(tb)
-    start = 0
-    for i, fr in enumerate(frames):
-        if str(Path(fr.filename).resolve()) == _THIS_FILE:
-            start = i + 1
-    frames = frames[start:]
-    if not frames:
-        return None
-    own = [fr for fr in frames if not _is_library(fr.filename)]
-    return own[-1] if own else frames[0]
+    return innermost_frame(tb, _THIS_FILE)
 
 
 def judge(problem, solution: dict, reference=None,
