@@ -8,7 +8,7 @@ The public surface is small; attributes are imported on first use so that
 
 from __future__ import annotations
 
-import importlib
+from harness._lazy import lazy_exports
 
 __version__ = "0.1.0"
 
@@ -44,14 +44,5 @@ _EXPORTS = {
 __all__ = sorted(_EXPORTS) + ["__version__"]
 
 
-def __getattr__(name: str):
-    module = _EXPORTS.get(name)
-    if module is None:
-        raise AttributeError(f"module 'harness' has no attribute {name!r}")
-    value = getattr(importlib.import_module(module), name)
-    globals()[name] = value
-    return value
-
-
-def __dir__():
-    return sorted(set(globals()) | set(__all__))
+__getattr__, __dir__ = lazy_exports("harness", _EXPORTS, globals())
+del lazy_exports

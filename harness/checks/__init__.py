@@ -8,7 +8,7 @@ importing numpy.
 
 from __future__ import annotations
 
-import importlib
+from harness._lazy import lazy_exports
 
 _EXPORTS = {
     "aufbau": "harness.checks.frontier",
@@ -32,14 +32,5 @@ _EXPORTS = {
 __all__ = sorted(_EXPORTS)
 
 
-def __getattr__(name: str):
-    module = _EXPORTS.get(name)
-    if module is None:
-        raise AttributeError(f"module 'harness.checks' has no attribute {name!r}")
-    value = getattr(importlib.import_module(module), name)
-    globals()[name] = value
-    return value
-
-
-def __dir__():
-    return sorted(set(globals()) | set(__all__))
+__getattr__, __dir__ = lazy_exports("harness.checks", _EXPORTS, globals())
+del lazy_exports
