@@ -16,6 +16,7 @@ _EXPORTS = {
     "Problem": "harness.contract.problem",
     "DEFAULT_CONVERGENCE": "harness.contract.problem",
     "extract": "harness.contract.solution",
+    "Solution": "harness.contract.solution",
     "Status": "harness.contract.results",
     "Measurement": "harness.contract.results",
     "CheckResult": "harness.contract.results",

@@ -9,6 +9,11 @@ Eh/rad², the rotation parameters) are described in ``harness.verdict.states``.
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from harness.contract.solution import Solution
+
 import dataclasses
 import math
 
@@ -46,10 +51,10 @@ START_SEED = 20261201
 # --------------------------------------------------------------------------- pyscf object
 
 
-def scf_object(problem, sol: dict, ints):
+def scf_object(problem, sol: Solution, ints):
     """A pyscf mean-field object (symmetry off) holding the code's orbitals, pyscf AO order.
 
-    ``mo_coeff``/``mo_occ`` are ``sol["coefficients"]``/``sol["occupations"]`` (RHF and
+    ``mo_coeff``/``mo_occ`` are ``sol.coefficients``/``sol.occupations`` (RHF and
     ROHF (nao, nmo) and (nmo,) 0/1/2; UHF (2, nao, nmo), (2, nmo)); ``mo_energy`` the code's
     orbital energies (Eh) or, when it gave none, the diagonal of Cᵀ F C with F rebuilt by
     pyscf from the code's orbitals. pyscf's SCF is not run.
@@ -59,11 +64,11 @@ def scf_object(problem, sol: dict, ints):
     cls = {"rhf": scf.hf.RHF, "uhf": scf.uhf.UHF, "rohf": scf.rohf.ROHF}[problem.method]
     mf = cls(ints.mol)
     mf.verbose = 0
-    c = np.asarray(sol["coefficients"], dtype=float)
-    occ = np.asarray(sol["occupations"], dtype=float)
+    c = np.asarray(sol.coefficients, dtype=float)
+    occ = np.asarray(sol.occupations, dtype=float)
     mf.mo_coeff, mf.mo_occ = c, occ
-    if "orbital_energies" in sol:
-        mf.mo_energy = np.asarray(sol["orbital_energies"], dtype=float)
+    if sol.orbital_energies is not None:
+        mf.mo_energy = np.asarray(sol.orbital_energies, dtype=float)
     else:
         f = mf.get_fock(dm=mf.make_rdm1(c, occ))
         if problem.method == "uhf":

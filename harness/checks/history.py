@@ -9,6 +9,11 @@ with its own error measure. Energies in hartree (Eh).
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from harness.contract.solution import Solution
+
 import math
 
 import numpy as np
@@ -221,7 +226,7 @@ def history_check(history, *, converged: bool | None, stationarity_value: float 
                        f"{energy_text} ({case})")
 
 
-def history_from_results(sol: dict, results: dict, *, convergence: float,
+def history_from_results(sol: Solution, results: dict, *, convergence: float,
                          case: str, energy_step: float | None = None) -> CheckResult:
     """The "history" check wired to evaluate's results (for evaluate to call last).
 
@@ -240,7 +245,7 @@ def history_from_results(sol: dict, results: dict, *, convergence: float,
             value, tolerance = ref.value, ref.tolerance
             quantity = ref.message.split(":", 1)[1].split(" = ", 1)[0].strip() or quantity
             break
-    return history_check(sol.get("history"), converged=sol.get("converged"),
+    return history_check(sol.history, converged=sol.converged,
                          stationarity_value=value, stationarity_tolerance=tolerance,
                          convergence=convergence, case=case, stationarity_quantity=quantity,
                          energy_step=energy_step)

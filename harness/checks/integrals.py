@@ -17,6 +17,11 @@ solution into one :class:`harness.contract.results.CheckResult` per check.
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from harness.contract.solution import Solution
+
 import numpy as np
 
 from harness.checks.orthonormal import locate, matrix_difference, worst
@@ -137,7 +142,7 @@ def eri_definite(g: np.ndarray, labels=None) -> Measurement:
     return Measurement(float(-w[0]), "−λ_min((ij|kl))", where)
 
 
-def integral_checks(sol: dict, ints, tolerances: Tolerances | None, case: str
+def integral_checks(sol: Solution, ints, tolerances: Tolerances | None, case: str
                     ) -> dict[str, CheckResult]:
     """The integral checks of one extracted solution, by name.
 
@@ -162,38 +167,38 @@ def integral_checks(sol: dict, ints, tolerances: Tolerances | None, case: str
     def missing(name, key):
         out[name] = not_applicable(name, f"no '{key}' key", case)
 
-    if "kinetic" in sol:
+    if sol.kinetic is not None:
         t_ref = ints.kinetic()
-        out["kinetic"] = verdict("kinetic", matrix_difference(sol["kinetic"], t_ref,
+        out["kinetic"] = verdict("kinetic", matrix_difference(sol.kinetic, t_ref,
                                                               "max|T − T_ref|", labels))
     else:
         missing("kinetic", "kinetic")
-    if "nuclear_attraction" in sol:
+    if sol.nuclear_attraction is not None:
         v_ref = ints.nuclear_attraction()
         out["nuclear-attraction"] = verdict("nuclear-attraction", matrix_difference(
-            sol["nuclear_attraction"], v_ref, "max|V − V_ref|", labels))
+            sol.nuclear_attraction, v_ref, "max|V − V_ref|", labels))
     else:
         missing("nuclear-attraction", "nuclear_attraction")
-    if "core_hamiltonian" in sol:
+    if sol.core_hamiltonian is not None:
         out["core-hamiltonian"] = verdict("core-hamiltonian", matrix_difference(
-            sol["core_hamiltonian"], ints.h, "max|H − H_ref|", labels))
+            sol.core_hamiltonian, ints.h, "max|H − H_ref|", labels))
     else:
         missing("core-hamiltonian", "core_hamiltonian")
-    if "overlap" in sol:
+    if sol.overlap is not None:
         out["overlap-definite"] = verdict("overlap-definite",
-                                          definiteness(sol["overlap"], "S", labels))
+                                          definiteness(sol.overlap, "S", labels))
     else:
         missing("overlap-definite", "overlap")
-    if "kinetic" in sol:
+    if sol.kinetic is not None:
         out["kinetic-definite"] = verdict("kinetic-definite",
-                                          definiteness(sol["kinetic"], "T", labels))
+                                          definiteness(sol.kinetic, "T", labels))
     else:
         missing("kinetic-definite", "kinetic")
 
     eri_names = ("two-electron", "two-electron-symmetry", "two-electron-schwarz",
                  "two-electron-definite")
     nao = len(labels)
-    if "two_electron" not in sol:
+    if sol.two_electron is None:
         for name in eri_names:
             missing(name, "two_electron")
     elif nao > ERI_MAX_NAO:
@@ -201,7 +206,7 @@ def integral_checks(sol: dict, ints, tolerances: Tolerances | None, case: str
             out[name] = not_applicable(name, f"nao = {nao} > {ERI_MAX_NAO}: the ERI checks "
                                        f"need several nao⁴ arrays", case)
     else:
-        g = sol["two_electron"]
+        g = sol.two_electron
         g_ref = np.asarray(ints.eri()).reshape((nao,) * 4)
         out["two-electron"] = verdict("two-electron", eri_difference(g, g_ref, labels))
         out["two-electron-symmetry"] = verdict("two-electron-symmetry", eri_symmetry(g, labels))

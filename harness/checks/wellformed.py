@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from harness.contract.solution import REQUIRED_KEYS, Malformed
+from harness.contract.solution import REQUIRED_KEYS, Solution
 
 #: |n − round(n)| allowed for occupation numbers, which must be whole (0/1/2).
 OCCUPATION_ROUNDING = 1e-8
@@ -21,7 +21,7 @@ def _shape(a) -> str:
     return str(tuple(a.shape)).replace(",)", ")")
 
 
-def well_formed(sol: dict, nao: int, method: str, n_alpha: int, n_beta: int, *,
+def well_formed(sol: Solution, nao: int, method: str, n_alpha: int, n_beta: int, *,
                 symmetry: float = SYMMETRY) -> list[str]:
     """List what is wrong with an extracted solution (empty list: well-formed).
 
@@ -33,22 +33,21 @@ def well_formed(sol: dict, nao: int, method: str, n_alpha: int, n_beta: int, *,
     All values finite; square matrices symmetric: max|A − Aᵀ| ≤ ``symmetry``.
     """
     problems: list[str] = []
+    given = sol.as_dict()
     for key in REQUIRED_KEYS:
-        if key not in sol:
+        if key not in given:
             problems.append(f"missing required key '{key}'")
-    for key, value in sol.items():
-        if isinstance(value, Malformed):
-            problems.append(f"'{key}' {value.reason}")
+    for key, marker in sol.malformed().items():
+        problems.append(f"'{key}' {marker.reason}")
     if problems:
         return problems
 
-    energy = sol["energy"]
-    if not np.isfinite(energy):
-        problems.append(f"'energy' is {energy}")
+    if not np.isfinite(sol.energy):
+        problems.append(f"'energy' is {sol.energy}")
 
     unrestricted = method == "uhf"
     spin_axis = (2,) if unrestricted else ()
-    c = sol["coefficients"]
+    c = sol.coefficients
     want = "(2, nao, nmo)" if unrestricted else "(nao, nmo)"
     if c.ndim != len(spin_axis) + 2 or (unrestricted and c.shape[0] != 2) or c.shape[-2] != nao \
             or not 1 <= c.shape[-1] <= nao:
@@ -57,8 +56,7 @@ def well_formed(sol: dict, nao: int, method: str, n_alpha: int, n_beta: int, *,
         return problems
     nmo = c.shape[-1]
 
-    def expect(key: str, shape: tuple[int, ...], label: str) -> bool:
-        a = sol.get(key)
+    def expect(key: str, a, shape: tuple[int, ...], label: str) -> bool:
         if a is None:
             return False
         if a.shape != shape:
@@ -70,23 +68,21 @@ def well_formed(sol: dict, nao: int, method: str, n_alpha: int, n_beta: int, *,
             return False
         return True
 
-    expect("coefficients", c.shape, want)
-    if expect("occupations", spin_axis + (nmo,), f"{_shape(np.empty(spin_axis + (nmo,)))} "
-                                                 f"(nmo = {nmo} from coefficients)"):
-        problems.extend(_occupation_problems(sol["occupations"], method, n_alpha, n_beta))
-    if "orbital_energies" in sol:
-        expect("orbital_energies", spin_axis + (nmo,), _shape(np.empty(spin_axis + (nmo,))))
+    expect("coefficients", c, c.shape, want)
+    if expect("occupations", sol.occupations, spin_axis + (nmo,),
+              f"{_shape(np.empty(spin_axis + (nmo,)))} (nmo = {nmo} from coefficients)"):
+        problems.extend(_occupation_problems(sol.occupations, method, n_alpha, n_beta))
+    expect("orbital_energies", sol.orbital_energies, spin_axis + (nmo,),
+           _shape(np.empty(spin_axis + (nmo,))))
     spin_or_total = () if method == "rhf" else (2,)
-    for key in ("density", "fock"):
-        if key in sol and expect(key, spin_or_total + (nao, nao),
-                                 _shape(np.empty(spin_or_total + (nao, nao)))):
-            problems.extend(_symmetry_problems(key, sol[key], symmetry))
-    for key in ("overlap", "core_hamiltonian", "kinetic", "nuclear_attraction"):
-        if key in sol and expect(key, (nao, nao), _shape(np.empty((nao, nao)))):
-            problems.extend(_symmetry_problems(key, sol[key], symmetry))
-    if "two_electron" in sol:
-        expect("two_electron", (nao,) * 4, f"({nao}, {nao}, {nao}, {nao})")
-    if "history" in sol and sol["history"].shape[0] == 0:
+    square = (("density", sol.density, spin_or_total), ("fock", sol.fock, spin_or_total),
+              ("overlap", sol.overlap, ()), ("core_hamiltonian", sol.core_hamiltonian, ()),
+              ("kinetic", sol.kinetic, ()), ("nuclear_attraction", sol.nuclear_attraction, ()))
+    for key, a, lead in square:
+        if expect(key, a, lead + (nao, nao), _shape(np.empty(lead + (nao, nao)))):
+            problems.extend(_symmetry_problems(key, a, symmetry))
+    expect("two_electron", sol.two_electron, (nao,) * 4, f"({nao}, {nao}, {nao}, {nao})")
+    if sol.history is not None and sol.history.shape[0] == 0:
         problems.append("'history' is empty")
     return problems
 

@@ -2,7 +2,8 @@
 
 A plug-in returns a mapping (or an object with the same attributes). Arrays may be
 numpy arrays or nested lists; unrestricted quantities carry a leading axis of 2
-(alpha first). Energies in hartree (Eh). See README, "The plug-in contract".
+(alpha first). Energies in hartree (Eh), arrays in the AO basis (atomic units).
+:func:`extract` reads it into a frozen :class:`Solution`; see docs/contract.md.
 """
 
 from __future__ import annotations
@@ -148,18 +149,81 @@ def _read_history(value: Any):
 MAX_HISTORY = 100_000
 
 
-def extract(raw: Any) -> dict[str, Any]:
-    """Read the known keys from a plug-in's return value into plain Python data.
+Value = Any  # np.ndarray | float | bool | int | Malformed | None (absent)
 
-    Returns ``{key: value}`` for the keys present: float64 arrays, floats, bools, ints,
-    or :class:`Malformed` markers. A contract key whose value is None is Malformed (the
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class Solution:
+    """One code's answer for one case, read by :func:`extract`: one field per contract key.
+
+    A field is None when the code did not give the key, a :class:`Malformed` marker when
+    it gave something unreadable (the well-formed check names it), and otherwise plain
+    data: float64 arrays in the AO basis (atomic units; unrestricted quantities with a
+    leading spin axis of 2, alpha first), floats in Eh, a bool, an int. After the
+    well-formed check has passed, every present field is of its documented type.
+
+    Fields: ``energy`` (Eh); ``coefficients`` (nao, nmo) or (2, nao, nmo);
+    ``occupations`` like the orbitals; ``orbital_energies`` (Eh); ``density`` and
+    ``fock`` (nao, nao) or (2, nao, nao); ``overlap``, ``core_hamiltonian``,
+    ``kinetic``, ``nuclear_attraction`` (nao, nao); ``two_electron`` (nao,)*4 in
+    chemists' notation (ij|kl); ``converged``; ``iterations``; ``history`` an (n, 2)
+    array of (energy, error) per iteration, NaN where a record lacks a field.
+    Frozen and free of plug-in objects, so it crosses processes as plain data
+    (:meth:`as_dict` / :meth:`from_dict`).
+    """
+
+    energy: Value = None
+    coefficients: Value = None
+    occupations: Value = None
+    orbital_energies: Value = None
+    density: Value = None
+    fock: Value = None
+    overlap: Value = None
+    core_hamiltonian: Value = None
+    kinetic: Value = None
+    nuclear_attraction: Value = None
+    two_electron: Value = None
+    converged: Value = None
+    iterations: Value = None
+    history: Value = None
+
+    def as_dict(self) -> dict[str, Any]:
+        """The given fields as ``{key: value}`` (absent ones left out)."""
+        return {f.name: getattr(self, f.name) for f in dataclasses.fields(self)
+                if getattr(self, f.name) is not None}
+
+    @classmethod
+    def from_dict(cls, values: Mapping[str, Any]) -> "Solution":
+        """The inverse of :meth:`as_dict`; an unknown key raises ``TypeError``."""
+        unknown = sorted(set(values) - set(KNOWN_KEYS))
+        if unknown:
+            raise TypeError(f"unknown solution keys: {', '.join(map(str, unknown))}")
+        return cls(**dict(values))
+
+    def keys(self) -> tuple[str, ...]:
+        """The names of the given fields, in contract order."""
+        return tuple(self.as_dict())
+
+    def malformed(self) -> dict[str, Malformed]:
+        """The fields that could not be read, with their reasons."""
+        return {k: v for k, v in self.as_dict().items() if isinstance(v, Malformed)}
+
+    def replace(self, **changes: Any) -> "Solution":
+        """A copy with some fields changed (``dataclasses.replace``)."""
+        return dataclasses.replace(self, **changes)
+
+
+def extract(raw: Any) -> Solution:
+    """Read the known keys from a plug-in's return value into a :class:`Solution`.
+
+    Each given key becomes plain data: float64 arrays, floats, bools, ints, or
+    :class:`Malformed` markers. A contract key whose value is None is Malformed (the
     well-formed check names it) rather than dropped: a ``'fock': None`` is more often a
     value never assigned than a Fock matrix meant to be absent, and silently dropping it
     would make the checks on it vanish from the table. Unknown keys are ignored, except a near miss of a
     contract key that is itself absent (``"Fock"``, ``"densty"``, ``"occupation"``:
     :func:`near_miss`): that key is marked Malformed, so the well-formed check names it
-    instead of the checks on it silently disappearing. The result pickles, so it
-    can cross from the plug-in's process to the harness. Raises ``TypeError`` if ``raw``
+    instead of the checks on it silently disappearing. Raises ``TypeError`` if ``raw``
     is neither a mapping nor an object with any of the known attributes.
     """
     if isinstance(raw, Mapping):
@@ -193,7 +257,7 @@ def extract(raw: Any) -> dict[str, Any]:
             if key is not None and key not in raw and key not in out:
                 out[key] = Malformed(f"not given, but {given!r} was: did you mean {key!r}? "
                                      f"(keys are exact and lower-case)")
-    return out
+    return Solution.from_dict(out)
 
 
 #: A returned key this similar to a contract key (difflib ratio) is taken for a typo of

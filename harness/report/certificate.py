@@ -94,7 +94,7 @@ def _as_array(value) -> np.ndarray:
     return np.ascontiguousarray(np.asarray(value, dtype=np.float64))
 
 
-def solution_hash(extracted: Mapping[str, Any]) -> str:
+def solution_hash(extracted) -> str:
     """SHA-256 of an extracted solution: for each key in sorted order, the key, the
     array's dtype (``numpy.dtype.str``, e.g. ``<f8``), its shape and its C-order bytes;
     floats, bools and ints as 0-d float64, bool and int64 arrays; a ``Malformed``
@@ -102,8 +102,7 @@ def solution_hash(extracted: Mapping[str, Any]) -> str:
     from harness.contract.solution import Malformed
 
     h = hashlib.sha256()
-    for key in sorted(extracted):
-        value = extracted[key]
+    for key, value in sorted(extracted.as_dict().items()):
         h.update(key.encode("utf-8") + b"\0")
         if isinstance(value, Malformed):
             h.update(b"malformed\0" + value.reason.encode("utf-8") + b"\0")
@@ -211,7 +210,6 @@ def _check_entry(check) -> dict[str, Any]:
 
 def _case_entry(result: CaseResult, problem, solution, reference) -> dict[str, Any]:
     from harness.catalogue.references import input_hash
-    from harness.contract.solution import Malformed
 
     entry: dict[str, Any] = {
         "name": result.name, "passed": bool(result.passed), "error": result.error,
@@ -224,9 +222,8 @@ def _case_entry(result: CaseResult, problem, solution, reference) -> dict[str, A
         entry["solution"] = None
     else:
         entry["solution"] = {
-            "sha256": solution_hash(solution), "keys": sorted(solution),
-            "malformed": {k: v.reason for k, v in sorted(solution.items())
-                          if isinstance(v, Malformed)}}
+            "sha256": solution_hash(solution), "keys": sorted(solution.keys()),
+            "malformed": {k: v.reason for k, v in sorted(solution.malformed().items())}}
     return entry
 
 
@@ -278,7 +275,7 @@ def _sidecar_arrays(solutions: Mapping[str, Mapping[str, Any] | None]) -> dict[s
 
     arrays = {}
     for name, solution in solutions.items():
-        for key, value in (solution or {}).items():
+        for key, value in (solution.as_dict() if solution is not None else {}).items():
             if not isinstance(value, Malformed):
                 arrays[f"{name}/{key}"] = _as_array(value)
     return arrays
@@ -420,8 +417,10 @@ def _solution_record(entry: Mapping[str, Any]) -> dict | None:
     return record
 
 
-def _solution_from_sidecar(name: str, entry: Mapping[str, Any], arrays) -> dict[str, Any]:
-    from harness.contract.solution import Malformed
+def _solution_from_sidecar(name: str, entry: Mapping[str, Any], arrays):
+    """The certified :class:`~harness.contract.solution.Solution` of case ``name`` from
+    the sidecar arrays; keys outside the contract are left out (the hash then differs)."""
+    from harness.contract.solution import KNOWN_KEYS, Malformed, Solution
 
     out: dict[str, Any] = {}
     malformed = entry.get("malformed") or {}
@@ -434,7 +433,7 @@ def _solution_from_sidecar(name: str, entry: Mapping[str, Any], arrays) -> dict[
             continue
         out[key] = _SCALARS[key](arr.reshape(())) if key in _SCALARS else \
             np.array(arr, dtype=np.float64)
-    return out
+    return Solution.from_dict({k: v for k, v in out.items() if k in KNOWN_KEYS})
 
 
 def _agree(a, b) -> bool:

@@ -109,9 +109,8 @@ def run(plugin, problem) -> Run:
     from harness.contract.solution import extract
 
     solution = extract(resolve_plugin(plugin)(problem))
-    energy = solution.get("energy")
-    energy = float(energy) if isinstance(energy, float) else math.nan
-    e = solution.get("orbital_energies")
+    energy = float(solution.energy) if isinstance(solution.energy, float) else math.nan
+    e = solution.orbital_energies
     if isinstance(e, np.ndarray) and e.ndim in (1, 2):
         e = np.sort(np.atleast_2d(e), axis=-1)
     else:

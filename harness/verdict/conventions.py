@@ -46,6 +46,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from harness.contract.errors import HarnessError
+from harness.contract.solution import Solution
 
 #: max|Mᵀ S_ref M − S_code| for a mapping to count as found (and max|S_code − S_ref| for
 #: the identity). Equal to the overlap check's tolerance (``tolerances.OVERLAP``): the
@@ -236,19 +237,19 @@ class Convention:
         """The inverse of :meth:`to_reference`: a reference-convention array in the code's."""
         return self._transform(key, array, forward=True)
 
-    def solution_to_reference(self, extracted: Mapping[str, Any]) -> dict[str, Any]:
-        """Every key of an extracted solution (``harness.contract.solution.extract``) in the
-        reference convention. Values that are not arrays of the right shape (malformed
-        markers, wrong sizes) are passed through unchanged for the well-formed check."""
-        out = dict(extracted)
-        for key in AO_KEYS:
-            value = out.get(key)
-            if isinstance(value, np.ndarray):
+    def solution_to_reference(self, extracted: Solution) -> Solution:
+        """An extracted :class:`~harness.contract.solution.Solution` with every AO-indexed
+        field in the reference convention. Values that are not arrays of the right shape
+        (malformed markers, wrong sizes) are passed through unchanged for the well-formed
+        check."""
+        changes = {}
+        for key, value in extracted.as_dict().items():
+            if key in AO_KEYS and isinstance(value, np.ndarray):
                 try:
-                    out[key] = self.to_reference(key, value)
+                    changes[key] = self.to_reference(key, value)
                 except HarnessError:
                     pass
-        return out
+        return extracted.replace(**changes)
 
     def _transform(self, key: str, array, forward: bool):
         if key in _UNCHANGED:

@@ -16,6 +16,11 @@ Atomic units throughout: bohr, hartree (Eh), electrons. Pure: no I/O.
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from harness.contract.solution import Solution
+
 import dataclasses
 from typing import Mapping
 
@@ -447,13 +452,13 @@ def orbital_signature(eps: np.ndarray, r: np.ndarray, occ: np.ndarray) -> str | 
 # --------------------------------------------------------------------------- diagnose
 
 
-def density_for_checks(method: str, sol: Mapping) -> np.ndarray:
+def density_for_checks(method: str, sol: Solution) -> np.ndarray:
     """The density the checks use, with a leading spin axis: the reported one, else C n Cᵀ
     (RHF (1, nao, nao) total; UHF/ROHF (2, nao, nao) alpha, beta)."""
-    if "density" in sol:
-        return density_by_spin(method, sol["density"])
-    return density_from_orbitals(*orbitals_by_spin(method, sol["coefficients"],
-                                                   sol["occupations"]))
+    if sol.density is not None:
+        return density_by_spin(method, sol.density)
+    return density_from_orbitals(*orbitals_by_spin(method, sol.coefficients,
+                                                   sol.occupations))
 
 
 def _failed(results: Mapping, name: str) -> bool:
@@ -466,7 +471,7 @@ def _passed(results: Mapping, name: str) -> bool:
     return r is not None and r.passed is True
 
 
-def diagnose(problem, sol: Mapping, ints, d: np.ndarray, results, *, reference=None,
+def diagnose(problem, sol: Solution, ints, d: np.ndarray, results, *, reference=None,
              jk=None) -> Diagnosis:
     """Hints for the failing checks of one solution, from the same density ``d``.
 
@@ -521,8 +526,8 @@ def diagnose(problem, sol: Mapping, ints, d: np.ndarray, results, *, reference=N
 
     # 1. Fock fit
     fock_note = None
-    if "fock" in sol:
-        f = fock_by_spin(method, sol["fock"])
+    if sol.fock is not None:
+        f = fock_by_spin(method, sol.fock)
         fits = fit_fock(method, f, t, v, j, vk)
         merged = "J(P)" in fits[0][2]
         analysis["fock_fit"] = {label: {**fit.to_json(), "expected": [exp[n] for n in fit.names]}
@@ -541,7 +546,7 @@ def diagnose(problem, sol: Mapping, ints, d: np.ndarray, results, *, reference=N
     e_att = float(np.einsum("pq,qp->", p, v))
     e_nuc_ang = nuclear_repulsion(np.asarray(problem.numbers, dtype=float),
                                   np.asarray(problem.coordinates) * ANGSTROM_IN_BOHR)
-    e = float(sol["energy"])
+    e = float(sol.energy)
     diff = e - terms.total
     cand = energy_candidates(terms, e_kin, e_att, e_nuc_ang)
     analysis["energy"] = {"E": e, "E[P]": terms.total, "E - E[P]": diff,
@@ -576,15 +581,15 @@ def diagnose(problem, sol: Mapping, ints, d: np.ndarray, results, *, reference=N
                                              f"{abs(terms.total - float(e_ref)):.1e} Eh")
 
     # 3. orbital energies
-    if "orbital_energies" in sol and method != "rohf":
-        c, occ = orbitals_by_spin(method, sol["coefficients"], sol["occupations"])
-        eps = np.asarray(sol["orbital_energies"], dtype=float)
+    if sol.orbital_energies is not None and method != "rohf":
+        c, occ = orbitals_by_spin(method, sol.coefficients, sol.occupations)
+        eps = np.asarray(sol.orbital_energies, dtype=float)
         eps = eps[None] if method == "rhf" else eps
-        f = (fock_by_spin(method, sol["fock"]) if "fock" in sol
+        f = (fock_by_spin(method, sol.fock) if sol.fock is not None
              else _energy.fock_from_terms(ints.h, vj_total, vk, len(d)))
         r = rayleigh_quotients(f, c, s)
         analysis["orbital_energies"] = {
-            "fock": "reported" if "fock" in sol else "rebuilt",
+            "fock": "reported" if sol.fock is not None else "rebuilt",
             "max|eps - r|": float(np.abs(eps - r).max()),
             "ratio eps/r (least squares)": float(np.sum(eps * r) / np.sum(r * r))}
         hint = orbital_signature(eps, r, occ)

@@ -29,6 +29,7 @@ from harness.verdict.conventions import named_convention
 from harness.contract.errors import HarnessError
 from harness.backend.integrals import AOIntegrals, integrals_for
 from harness.contract.problem import Problem
+from harness.contract.solution import Solution
 from harness.contract.results import CheckResult, Status, failed, judge, not_applicable, skipped
 from harness.checks.tolerances import CHECK_NAMES, Tolerances
 from harness.contract.defaults import DEFAULT_STABILITY, STABILITY_MODES
@@ -40,7 +41,7 @@ from harness.contract.defaults import DEFAULT_STABILITY, STABILITY_MODES
 SAME_ORDER_INACCURATE_OVERLAP = 1e-3
 
 
-def _basis(problem: Problem, sol: dict, ints: AOIntegrals, ao_convention: str | None,
+def _basis(problem: Problem, sol: Solution, ints: AOIntegrals, ao_convention: str | None,
            tolerance: float = CONVENTION_MATCH):
     """The "basis" check: map the code's AO convention onto pyscf's.
 
@@ -57,12 +58,12 @@ def _basis(problem: Problem, sol: dict, ints: AOIntegrals, ao_convention: str | 
         return (CheckResult("basis", Status.PASSED, None, None,
                             f"basis: AO convention {ao_convention!r} as given ({case}): "
                             f"{conv.describe()}"), conv.solution_to_reference(sol), True)
-    s_code = sol.get("overlap")
+    s_code = sol.overlap
     if not isinstance(s_code, np.ndarray) or s_code.ndim != 2 \
             or s_code.shape[0] != s_code.shape[1] or not np.all(np.isfinite(s_code)):
         return (not_applicable("basis", "no usable 'overlap' key; pyscf's AO order assumed",
                                case), sol, True)
-    c = sol.get("coefficients")
+    c = sol.coefficients
     if s_code.shape != ints.s.shape and not (
             isinstance(c, np.ndarray) and c.ndim >= 2 and c.shape[-2] == s_code.shape[0]):
         return (not_applicable("basis", "the overlap's size disagrees with the coefficients",
@@ -101,7 +102,7 @@ class Verdict:
 
 
 
-def evaluate(problem: Problem, extracted: dict, reference=None,
+def evaluate(problem: Problem, extracted: Solution, reference=None,
              tolerances: Tolerances | None = None,
              integrals: AOIntegrals | None = None, *,
              ao_convention: str | None = None,
@@ -111,7 +112,7 @@ def evaluate(problem: Problem, extracted: dict, reference=None,
                          ao_convention=ao_convention, stability=stability).checks
 
 
-def evaluate_case(problem: Problem, extracted: dict, reference=None,
+def evaluate_case(problem: Problem, extracted: Solution, reference=None,
                   tolerances: Tolerances | None = None,
                   integrals: AOIntegrals | None = None, *,
                   ao_convention: str | None = None,
@@ -167,31 +168,31 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
     labels = ints.labels
     low = _orth.lowdin(ints.s)
 
-    if "converged" in sol:
-        ok = bool(sol["converged"])
+    if sol.converged is not None:
+        ok = bool(sol.converged)
         results["converged-flag"] = CheckResult(
             "converged-flag", Status.PASSED if ok else Status.FAILED, None, None,
             f"converged-flag: the code reports converged={ok} ({case})"
-            + (f" after {sol['iterations']} iterations" if "iterations" in sol else ""))
+            + (f" after {sol.iterations} iterations" if sol.iterations is not None else ""))
     else:
         results["converged-flag"] = not_applicable("converged-flag", "no 'converged' key", case)
 
-    if "overlap" in sol:
+    if sol.overlap is not None:
         results["overlap"] = verdict("overlap", _orth.matrix_difference(
-            sol["overlap"], ints.s, "max|S − S_ref|", labels))
+            sol.overlap, ints.s, "max|S − S_ref|", labels))
     else:
         results["overlap"] = not_applicable("overlap", "no 'overlap' key", case)
 
-    c, occ = orbitals_by_spin(method, sol["coefficients"], sol["occupations"])
+    c, occ = orbitals_by_spin(method, sol.coefficients, sol.occupations)
     results["orthonormality"] = verdict("orthonormality", _orth.orthonormality(c, ints.s))
 
     built = density_from_orbitals(c, occ)
-    d = density_by_spin(method, sol["density"]) if "density" in sol else built
+    d = density_by_spin(method, sol.density) if sol.density is not None else built
     results["idempotency"] = verdict("idempotency", _density.idempotency(
         d, ints.s, occupation_scale(method), labels))
     n = (problem.n_electrons,) if method == "rhf" else (problem.n_alpha, problem.n_beta)
     results["electron-count"] = verdict("electron-count", _density.electron_count(d, ints.s, n))
-    if "density" in sol:
+    if sol.density is not None:
         results["density-consistency"] = verdict("density-consistency",
                                                  _density.density_consistency(d, built, labels))
     else:
@@ -207,9 +208,9 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
             return _stat.rohf_conditions(f, d, low, labels)
         return _stat.commutator(f, d, ints.s, low, labels)
 
-    if "fock" in sol:
+    if sol.fock is not None:
         results["stationarity"] = verdict("stationarity",
-                                          stationarity(fock_by_spin(method, sol["fock"])))
+                                          stationarity(fock_by_spin(method, sol.fock)))
     else:
         results["stationarity"] = not_applicable("stationarity", "no 'fock' key", case)
     results["self-consistency"] = verdict("self-consistency", stationarity(rebuilt))
@@ -217,27 +218,27 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
     if method == "rohf":
         results["roothaan-hall"] = not_applicable(
             "roothaan-hall", "ROHF orbital energies depend on a canonicalisation convention", case)
-    elif "orbital_energies" in sol:
-        f = fock_by_spin(method, sol["fock"]) if "fock" in sol else rebuilt
-        e = sol["orbital_energies"][None] if method == "rhf" else sol["orbital_energies"]
+    elif sol.orbital_energies is not None:
+        f = fock_by_spin(method, sol.fock) if sol.fock is not None else rebuilt
+        e = sol.orbital_energies[None] if method == "rhf" else sol.orbital_energies
         results["roothaan-hall"] = verdict("roothaan-hall", _stat.roothaan_hall(f, c, e, low))
     else:
         results["roothaan-hall"] = not_applicable("roothaan-hall", "no 'orbital_energies' key",
                                                   case)
 
     results["energy-consistency"] = verdict("energy-consistency",
-                                            _energy.energy_consistency(sol["energy"], terms))
+                                            _energy.energy_consistency(sol.energy, terms))
     if reference is not None:
         results["reference-energy"] = verdict("reference-energy", _energy.reference_energy(
-            sol["energy"], float(reference.energy)))
+            sol.energy, float(reference.energy)))
     else:
         results["reference-energy"] = not_applicable("reference-energy", "no reference", case)
 
     if method == "rohf":
         results["aufbau"] = not_applicable(
             "aufbau", "ROHF orbital energies depend on a canonicalisation convention", case)
-    elif "orbital_energies" in sol:
-        e = sol["orbital_energies"][None] if method == "rhf" else sol["orbital_energies"]
+    elif sol.orbital_energies is not None:
+        e = sol.orbital_energies[None] if method == "rhf" else sol.orbital_energies
         m = _frontier.aufbau(e, occ)
         if m.value == -np.inf:
             results["aufbau"] = not_applicable("aufbau", "no empty orbitals", case)
@@ -260,7 +261,7 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
         ref_result = results.get("reference-energy")
         # Naming a state needs an energy that belongs to the density; above the reference
         # it also needs a stationary density (an unconverged code is above it anyway).
-        below = reference is not None and sol["energy"] < float(reference.energy)
+        below = reference is not None and sol.energy < float(reference.energy)
         consistent = results["energy-consistency"].status is Status.PASSED and (
             below or results["self-consistency"].status is Status.PASSED)
         if ref_result is not None and ref_result.status is Status.FAILED and consistent \

@@ -18,6 +18,7 @@ from pathlib import Path
 
 from harness.contract.errors import innermost_frame
 from harness.contract.results import CaseResult, failed
+from harness.contract.solution import Solution
 
 __all__ = ["JudgeSettings", "judge"]
 
@@ -43,10 +44,10 @@ class JudgeSettings:
     plugin_seconds: float | None = None
 
 
-def _evaluate(problem, solution, reference, settings: JudgeSettings):
+def _evaluate(problem, solution, reference, settings: JudgeSettings, integrals=None):
     """``harness.verdict.evaluate.evaluate_case``, imported when first needed (pyscf)."""
     from harness.verdict.evaluate import evaluate_case
-    return evaluate_case(problem, solution, reference, settings.tolerances,
+    return evaluate_case(problem, solution, reference, settings.tolerances, integrals,
                          ao_convention=settings.ao_convention, stability=settings.stability)
 
 
@@ -72,8 +73,8 @@ def _check_frame(tb) -> traceback.FrameSummary | None:
     return innermost_frame(tb, _THIS_FILE)
 
 
-def judge(problem, solution: dict, reference=None,
-          settings: JudgeSettings | None = None) -> CaseResult:
+def judge(problem, solution: Solution, reference=None,
+          settings: JudgeSettings | None = None, *, integrals=None) -> CaseResult:
     """The CaseResult of ``solution`` (an extracted plug-in return value) for ``problem``
     (bohr), judged against ``reference`` (a ``Reference`` or None; energies in Eh).
 
@@ -83,6 +84,8 @@ def judge(problem, solution: dict, reference=None,
     ``"reference-energy: no reference (<case>): <reason>"``; with no reference and no
     reason it is not applicable. An exception inside a check becomes the case's one-line
     error ``"internal error in check <function> (<file>:<line>): <ExcType>: <message>"``.
+    ``integrals``: the problem's ``harness.backend.integrals.AOIntegrals`` if already built
+    (a caller judging many solutions of one case); None builds them.
     """
     settings = settings if settings is not None else JudgeSettings()
     common = dict(name=problem.name, method=getattr(problem, "method", ""),
@@ -90,11 +93,10 @@ def judge(problem, solution: dict, reference=None,
                   reference_energy=reference_energy(reference),
                   reference_source=settings.reference_source,
                   plugin_seconds=settings.plugin_seconds)
-    energy = solution.get("energy") if isinstance(solution, dict) else None
-    energy = energy if isinstance(energy, float) else None
+    energy = solution.energy if isinstance(solution.energy, float) else None
     start = time.perf_counter()
     try:
-        verdict = _evaluate(problem, solution, reference, settings)
+        verdict = _evaluate(problem, solution, reference, settings, integrals)
     except Exception as exc:
         frame = _check_frame(exc.__traceback__)  # innermost check-code frame
         where = f"{frame.name} ({frame.filename}:{frame.lineno})" if frame else "evaluate"

@@ -27,6 +27,11 @@ solution is a saddle point: the energy goes down along that rotation.
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from harness.contract.solution import Solution
+
 import dataclasses
 import math
 import time
@@ -119,7 +124,7 @@ class StabilityResult:
     mode: str = "internal"
 
 
-def stability(problem, sol: dict, ints, *, mode: str = "internal",
+def stability(problem, sol: Solution, ints, *, mode: str = "internal",
               threshold: float = STABILITY_EIGENVALUE,
               lowering: float = FOLLOWING_LOWERING) -> StabilityResult | None:
     """Is the code's solution a minimum of the energy (Eh) w.r.t. real orbital rotations?
@@ -160,7 +165,7 @@ def stability(problem, sol: dict, ints, *, mode: str = "internal",
                            seconds=time.perf_counter() - start, mode=mode)
 
 
-def stability_check(problem, sol: dict, ints, *, mode: str = "internal",
+def stability_check(problem, sol: Solution, ints, *, mode: str = "internal",
                     threshold: float = STABILITY_EIGENVALUE,
                     lowering: float = FOLLOWING_LOWERING,
                     result: StabilityResult | None = None) -> CheckResult:
@@ -227,18 +232,18 @@ def spin_squared(d: np.ndarray, s: np.ndarray, n_alpha: int, n_beta: int) -> flo
     return sz * (sz + 1.0) + n_beta - overlap
 
 
-def code_spin_squared(problem, sol: dict, ints) -> float:
+def code_spin_squared(problem, sol: Solution, ints) -> float:
     """⟨S²⟩ of the code's solution: its reported density, else the one from its orbitals
     (as the core checks choose); RHF: Pα = Pβ = P/2."""
-    c, occ = orbitals_by_spin(problem.method, sol["coefficients"], sol["occupations"])
-    d = density_by_spin(problem.method, sol["density"]) if "density" in sol \
+    c, occ = orbitals_by_spin(problem.method, sol.coefficients, sol.occupations)
+    d = density_by_spin(problem.method, sol.density) if sol.density is not None \
         else density_from_orbitals(c, occ)
     if problem.method == "rhf":
         d = np.stack([0.5 * d[0], 0.5 * d[0]])
     return spin_squared(d, ints.s, problem.n_alpha, problem.n_beta)
 
 
-def spin_check(problem, sol: dict, ints, reference, *,
+def spin_check(problem, sol: Solution, ints, reference, *,
                tolerance: float | None = None) -> CheckResult:
     """CheckResult "spin-squared": the code's ⟨S²⟩ (:func:`code_spin_squared`).
 
@@ -274,11 +279,11 @@ def _semicanonical(f: np.ndarray, block: np.ndarray):
     return e, u
 
 
-def _error_terms(problem, sol: dict, fock: np.ndarray):
+def _error_terms(problem, sol: Solution, fock: np.ndarray):
     """Per-spin-block (g²/(2H) per pair, (i, a) indices, block name, max|g|) lists."""
     method = problem.method
-    c = np.asarray(sol["coefficients"], dtype=float)
-    occ = np.asarray(sol["occupations"], dtype=float)
+    c = np.asarray(sol.coefficients, dtype=float)
+    occ = np.asarray(sol.occupations, dtype=float)
     f = np.asarray(fock, dtype=float)
     pairs = []
     if method == "uhf":
@@ -306,7 +311,7 @@ def _error_terms(problem, sol: dict, fock: np.ndarray):
     return pairs
 
 
-def energy_error_bound(problem, sol: dict, ints, d: np.ndarray,
+def energy_error_bound(problem, sol: Solution, ints, d: np.ndarray,
                        fock: np.ndarray) -> Measurement:
     """Estimated energy still to be gained by converging: ΔE ≈ ½ gᵀ H⁻¹ g (Eh).
 
@@ -342,7 +347,7 @@ def energy_error_bound(problem, sol: dict, ints, d: np.ndarray,
     return Measurement(float(values.sum()), quantity, where)
 
 
-def orbital_gradient(problem, sol: dict, fock: np.ndarray) -> float:
+def orbital_gradient(problem, sol: Solution, fock: np.ndarray) -> float:
     """max|g| (Eh/rad) of :func:`energy_error_bound`'s gradient, g = Σσ 2 Fσ_ia."""
     pairs = _error_terms(problem, sol, fock)
     return max((p[3] for p in pairs), default=0.0)
@@ -366,7 +371,7 @@ def _pairs(fms, occ_idx, vir_idx, name, block_fock):
     return contrib, (ii.ravel(), aa.ravel()), name, float(np.abs(g).max())
 
 
-def energy_error_check(problem, sol: dict, ints, d: np.ndarray, fock: np.ndarray, *,
+def energy_error_check(problem, sol: Solution, ints, d: np.ndarray, fock: np.ndarray, *,
                        tolerance: float = ENERGY_ERROR_BOUND) -> CheckResult:
     """CheckResult "energy-error-bound": :func:`energy_error_bound` ≤ ``tolerance`` (Eh).
 
@@ -420,19 +425,19 @@ def match_state(energy: float, s2: float | None, reference, *,
     return f"E is {energy - ground:.1e} Eh above the reference (no other states known)"
 
 
-def state_hint(problem, sol: dict, ints, reference, *, tolerance: float) -> str | None:
+def state_hint(problem, sol: Solution, ints, reference, *, tolerance: float) -> str | None:
     """:func:`match_state` for the code's reported energy and ⟨S²⟩ (None without a
     reference); to attach to the reference-energy result as its hint."""
     if reference is None:
         return None
     s2 = None if problem.method == "rhf" else code_spin_squared(problem, sol, ints)
-    return match_state(float(sol["energy"]), s2, reference, tolerance=tolerance)
+    return match_state(float(sol.energy), s2, reference, tolerance=tolerance)
 
 
 # --------------------------------------------------------------------------- all three
 
 
-def state_checks(problem, sol: dict, reference=None, ints=None, *, mode: str = "internal",
+def state_checks(problem, sol: Solution, reference=None, ints=None, *, mode: str = "internal",
                  d: np.ndarray | None = None, fock: np.ndarray | None = None
                  ) -> tuple[CheckResult, ...]:
     """("stability", "spin-squared", "energy-error-bound") for a *well-formed* extracted
@@ -444,8 +449,8 @@ def state_checks(problem, sol: dict, reference=None, ints=None, *, mode: str = "
 
     ints = ints if ints is not None else integrals_for(problem)
     if d is None:
-        c, occ = orbitals_by_spin(problem.method, sol["coefficients"], sol["occupations"])
-        d = density_by_spin(problem.method, sol["density"]) if "density" in sol \
+        c, occ = orbitals_by_spin(problem.method, sol.coefficients, sol.occupations)
+        d = density_by_spin(problem.method, sol.density) if sol.density is not None \
             else density_from_orbitals(c, occ)
     if fock is None:
         vj, vk = ints.jk(d)

@@ -21,7 +21,7 @@ import commands  # noqa: E402
 import solution_files as sf  # noqa: E402
 
 from harness.contract.errors import HarnessError  # noqa: E402
-from harness.verdict.evaluate import evaluate  # noqa: E402
+from harness.verdict.judge import judge  # noqa: E402
 from harness.run.external import (PROBLEM_FORMAT, CommandPlugin, CommandSetupError,  # noqa: E402
                               ExternalCodeError, stderr_excerpt, write_inputs)
 from harness.contract.solution import extract  # noqa: E402
@@ -35,7 +35,7 @@ def failed_checks(name, raw):
     from harness.catalogue.cases import load_catalogue
 
     reference, _ = reference_for(load_catalogue().case(name))
-    return [c.message for c in evaluate(sf.problem(name), extract(raw), reference)
+    return [c.message for c in judge(sf.problem(name), extract(raw), reference).checks
             if c.passed is False]
 
 

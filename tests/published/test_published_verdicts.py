@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 from harness.catalogue.cases import load_catalogue
-from harness.verdict.evaluate import evaluate
+from harness.verdict.judge import judge
 from harness.testing.example_scf import solve
 from harness.catalogue.references import reference_for
 from harness.contract.solution import extract
@@ -26,7 +26,8 @@ def run(name: str):
     problem = case.problem()
     solution = solve(problem)
     reference, _ = reference_for(case)
-    return problem, solution, {r.name: r for r in evaluate(problem, extract(solution), reference)}
+    return problem, solution, {r.name: r for r in judge(problem, extract(solution),
+            reference).checks}
 
 
 def test_water_sto3g_published_energy_and_verdict():
@@ -79,7 +80,7 @@ def test_published_energy_off_by_a_millihartree_fails():
     problem, solution, _ = run("water-sto-3g-rhf")
     shifted = dict(solution, energy=-74.942079928192 + 1e-3)  # Crawford Project #3 value
     reference, _ = reference_for(load_catalogue().case("water-sto-3g-rhf"))
-    verdict = {r.name: r for r in evaluate(problem, extract(shifted), reference)}
+    verdict = {r.name: r for r in judge(problem, extract(shifted), reference).checks}
     assert verdict["reference-energy"].passed is False
     assert verdict["reference-energy"].message.startswith(
         "reference-energy: |E − E_ref| = 1.0e-03 > 1.0e-06 (water-sto-3g-rhf), "

@@ -21,7 +21,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "external"))
 import solution_files as sf  # noqa: E402
 
 from harness.contract.errors import HarnessError  # noqa: E402
-from harness.verdict.evaluate import evaluate  # noqa: E402
+from harness.verdict.judge import judge  # noqa: E402
 from harness.run.external import CommandPlugin  # noqa: E402
 from harness.contract.solution import MAX_ARRAY_ELEMENTS, extract  # noqa: E402
 
@@ -35,7 +35,7 @@ def outcome(plugin, case=CASE) -> str:
         raw = plugin(sf.problem(case))
     except HarnessError as exc:
         return str(exc)
-    failed = [c for c in evaluate(sf.problem(case), extract(raw)) if c.passed is False]
+    failed = [c for c in judge(sf.problem(case), extract(raw), None).checks if c.passed is False]
     return failed[0].message if failed else "passed"
 
 
@@ -479,9 +479,9 @@ def test_numbers_of_numeric_kinds_still_read():
     for energy, value in ((np.float32(-1.25), -1.25), (np.int64(-1), -1.0), ([-1.25], -1.25),
                           (np.array([[-1.25]]), -1.25), (complex(-1.25, 0.0), -1.25),
                           (-(10 ** 300), -1e300)):
-        assert extract({"energy": energy})["energy"] == value
-    assert extract({"iterations": 0})["iterations"] == 0
-    assert extract({"iterations": np.uint8(7)})["iterations"] == 7
+        assert extract({"energy": energy}).energy == value
+    assert extract({"iterations": 0}).iterations == 0
+    assert extract({"iterations": np.uint8(7)}).iterations == 7
 
 
 def test_huge_energy_through_the_runner(tmp_path):
@@ -516,7 +516,7 @@ def test_huge_numbers_are_written_with_an_exponent():
 
     reference, _ = reference_for(load_catalogue().case(CASE))
     raw = dict(good(), energy=1e308)
-    failed = {c.name: c.message for c in evaluate(sf.problem(CASE), extract(raw), reference)
+    failed = {c.name: c.message for c in judge(sf.problem(CASE), extract(raw), reference).checks
               if c.passed is False}
     assert failed == {
         "energy-consistency": "energy-consistency: |E − E[P]| = 1.0e+308 > 1.0e-08 "

@@ -17,7 +17,7 @@ import pytest
 
 from harness.catalogue.cases import load_catalogue
 from harness.verdict.diagnosis import density_for_checks, diagnose
-from harness.verdict.evaluate import evaluate
+from harness.verdict.judge import judge
 from harness.backend.integrals import integrals_for
 from harness.testing.planted import hints as planted
 from harness.testing.planted.hints import ALSO_HINTS, CATALOGUE
@@ -39,7 +39,7 @@ NAMED = ("exchange scaled by 2", "no exchange", "Coulomb from one spin only",
 def run(solve, problem, reference=None):
     sol = extract(solve(problem))
     ints = integrals_for(problem)
-    results = {r.name: r for r in evaluate(problem, sol, reference, integrals=ints)}
+    results = {r.name: r for r in judge(problem, sol, reference, integrals=ints).checks}
     diag = diagnose(problem, sol, ints, density_for_checks(problem.method, sol), results,
                     reference=reference)
     return results, diag
@@ -183,7 +183,7 @@ def test_benzene_doubled_exchange_hint():
     sol = extract({"energy": mf.e_tot, "coefficients": mf.mo_coeff, "occupations": mf.mo_occ,
                    "density": dm, "fock": mf.get_hcore() + vj - vk})
     ints = integrals_for(problem)
-    results = {r.name: r for r in evaluate(problem, sol, reference, integrals=ints)}
+    results = {r.name: r for r in judge(problem, sol, reference, integrals=ints).checks}
     diag = diagnose(problem, sol, ints, density_for_checks("rhf", sol), results,
                     reference=reference)
     assert diag.hints["stationarity"].startswith(
@@ -202,7 +202,7 @@ def test_reusing_evaluates_jk_gives_the_same_diagnosis(name, case):
     reference, _ = reference_for(c)
     sol = extract(entry.solve(problem))
     ints = integrals_for(problem)
-    results = {r.name: r for r in evaluate(problem, sol, reference, integrals=ints)}
+    results = {r.name: r for r in judge(problem, sol, reference, integrals=ints).checks}
     d = density_for_checks(problem.method, sol)
     own = diagnose(problem, sol, ints, d, results, reference=reference)
     reused = diagnose(problem, sol, ints, d, results, reference=reference, jk=ints.jk(d))

@@ -15,7 +15,7 @@ from harness.testing import planted
 from harness.catalogue.cases import load_catalogue
 from harness.checks.history import history_from_results
 from harness.checks.integrals import integral_checks
-from harness.verdict.evaluate import evaluate
+from harness.verdict.judge import judge
 from harness.backend.integrals import integrals_for
 from harness.testing.planted.integrals import CATALOGUE
 from harness.catalogue.references import reference_for
@@ -34,7 +34,7 @@ def verdict(name: str, case_name: str) -> dict:
     reference, _ = reference_for(case)
     sol = extract(entry.solve(problem))
     ints = integrals_for(problem)
-    results = {r.name: r for r in evaluate(problem, sol, reference, integrals=ints)}
+    results = {r.name: r for r in judge(problem, sol, reference, integrals=ints).checks}
     results.update(integral_checks(sol, ints, Tolerances(), problem.name))
     results["history"] = history_from_results(sol, results, convergence=problem.convergence,
                                               case=problem.name)

@@ -14,7 +14,7 @@ import pytest
 
 import broken_codes as bc
 from harness.catalogue.cases import load_catalogue
-from harness.verdict.evaluate import evaluate
+from harness.verdict.judge import judge
 from harness.catalogue.references import reference_for
 from harness.contract.results import Status
 from harness.contract.solution import extract
@@ -28,7 +28,8 @@ def verdict(code: str, case_name: str):
     case = load_catalogue().case(case_name)
     problem = case.problem()
     reference, _ = reference_for(case)
-    return {r.name: r for r in evaluate(problem, extract(getattr(bc, code)(problem)), reference)}
+    return {r.name: r for r in judge(problem, extract(getattr(bc, code)(problem)),
+            reference).checks}
 
 
 def failing(code: str, case_name: str) -> set[str]:

@@ -17,13 +17,13 @@ import pytest
 
 from harness.catalogue.cases import load_catalogue
 from harness.verdict.conventions import AO_KEYS, BasisMismatch, Convention, detect_convention
-from harness.verdict.evaluate import evaluate
+from harness.verdict.judge import judge
 from harness.testing.example_scf import solve
 from harness.testing.planted import catalogue
 from harness.testing.planted.conventions import CATALOGUE
 from harness.catalogue.references import reference_for
 from harness.contract.results import Status
-from harness.contract.solution import extract
+from harness.contract.solution import Solution, extract
 
 #: Cases whose example SCF takes more than a few seconds (cc-pVTZ water, 58 functions).
 SLOW_CASES = {"water-cc-pvtz-rhf"}
@@ -42,12 +42,12 @@ def problem_of(case_name):
 @functools.lru_cache(maxsize=None)
 def own_result(case_name):
     """The example code's result in pyscf's convention."""
-    return extract(solve(problem_of(case_name)))
+    return extract(solve(problem_of(case_name))).as_dict()
 
 
 @functools.lru_cache(maxsize=None)
 def planted_result(entry):
-    return extract(entry.solve(problem_of(entry.case)))
+    return extract(entry.solve(problem_of(entry.case))).as_dict()
 
 
 def detected(entry):
@@ -98,13 +98,14 @@ def test_checks_pass_once_the_convention_is_undone(entry):
     problem = problem_of(entry.case)
     reference, _ = reference_for(case)
     raw = planted_result(entry)
-    results = {r.name: r for r in evaluate(problem, raw, reference)}
+    results = {r.name: r for r in judge(problem, Solution.from_dict(raw), reference).checks}
     assert [r.message for r in results.values() if r.status is Status.FAILED] == []
     assert results["basis"].status is Status.PASSED
     assert entry.convention in results["basis"].message
     hidden = {k: v for k, v in raw.items() if k != "overlap"}
     hidden["overlap"] = detected(entry).to_reference("overlap", raw["overlap"])
-    unconverted = {r.name: r.status for r in evaluate(problem, hidden, reference)}
+    unconverted = {r.name: r.status for r in judge(problem, Solution.from_dict(hidden),
+            reference).checks}
     assert unconverted["basis"] is not Status.FAILED
     assert {"orthonormality", "self-consistency"} <= {
         n for n, st in unconverted.items() if st is Status.FAILED}

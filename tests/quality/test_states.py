@@ -15,7 +15,7 @@ import pytest
 
 from harness.verdict import states as stab
 from harness.catalogue.cases import load_catalogue
-from harness.verdict.evaluate import evaluate
+from harness.verdict.judge import judge
 from harness.backend.integrals import integrals_for
 from harness.testing.planted.states import CATALOGUE
 from harness.catalogue.references import reference_for
@@ -45,7 +45,7 @@ def run(index: int):
     reference, _ = reference_for(case)
     sol = extract(entry.solve(problem))
     ints = integrals_for(problem)
-    results = evaluate(problem, sol, reference, integrals=ints)
+    results = judge(problem, sol, reference, integrals=ints).checks
     if results[0].status is not Status.FAILED:
         results = results + stab.state_checks(problem, sol, reference, ints)
     hint = stab.state_hint(problem, sol, ints, reference, tolerance=REFERENCE_ENERGY)

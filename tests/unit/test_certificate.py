@@ -15,7 +15,7 @@ from harness.report.certificate import (CERTIFICATE_FORMAT, HASH_KEY, _digests, 
 from harness.verdict.judge import JudgeSettings, judge
 from harness.testing.example_scf import solve
 from harness.catalogue.references import reference_for
-from harness.contract.solution import Malformed, extract
+from harness.contract.solution import Malformed, Solution, extract
 from harness.checks.tolerances import Tolerances
 
 NAMES = ("h2-sto-3g-rhf", "oh-sto-3g-uhf")
@@ -80,14 +80,14 @@ class TestContent:
 
     def test_solution_hash_sees_dtype_shape_and_bytes(self):
         """The solution hash changes with one ulp, with the shape, and with a key."""
-        base = {"energy": -1.0, "coefficients": np.eye(2), "converged": True}  # synthetic
+        base = Solution(energy=-1.0, coefficients=np.eye(2), converged=True)  # synthetic
         h = solution_hash(base)
-        assert solution_hash(dict(base)) == h
-        bumped = dict(base, coefficients=np.eye(2) + np.array([[0, 0], [0, 2e-16]]))
+        assert solution_hash(base.replace()) == h
+        bumped = base.replace(coefficients=np.eye(2) + np.array([[0, 0], [0, 2e-16]]))
         assert solution_hash(bumped) != h
-        assert solution_hash(dict(base, coefficients=np.eye(2).reshape(1, 4))) != h
-        assert solution_hash(dict(base, converged=1)) != h  # bool vs int64
-        assert solution_hash(dict(base, fock=Malformed("x"))) != h
+        assert solution_hash(base.replace(coefficients=np.eye(2).reshape(1, 4))) != h
+        assert solution_hash(base.replace(converged=1)) != h  # bool vs int64
+        assert solution_hash(base.replace(fock=Malformed("x"))) != h
 
     def test_summary(self, cert_path):
         text = summary_markdown(json.loads(cert_path.read_text()))

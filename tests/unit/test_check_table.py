@@ -23,7 +23,7 @@ from harness.contract.errors import ToleranceError
 from harness.contract.results import Status
 from harness.contract.solution import extract
 from harness.report import terminal
-from harness.verdict.evaluate import evaluate
+from harness.verdict.judge import JudgeSettings, judge
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -137,8 +137,8 @@ class TestOverrides:
         sol["overlap"] = sol["overlap"] + 1e-7 * (1.0 - np.eye(len(sol["overlap"])))
 
         def basis(tolerances):
-            r = evaluate(water_rhf.problem, extract(sol), None, tolerances, water_rhf.ints,
-                         stability="off")
+            r = judge(water_rhf.problem, extract(sol), None,
+                    JudgeSettings(tolerances=tolerances, stability="off"), integrals=water_rhf.ints).checks
             return next(c for c in r if c.name == "basis")
 
         default = basis(None)
@@ -153,25 +153,24 @@ class TestOverrides:
         sol = water_rhf.solution()
         sol["fock"] = sol["fock"].copy()
         sol["fock"][0, 1] += 1e-7
-        results = {r.name: r for r in evaluate(water_rhf.problem, extract(sol), None, None,
-                                               water_rhf.ints, stability="off")}
+        results = {r.name: r for r in judge(water_rhf.problem, extract(sol), None,
+                JudgeSettings(stability="off"), integrals=water_rhf.ints).checks}
         assert results["well-formed"].status is Status.FAILED
         assert "max|A − Aᵀ| = 1.0e-07 > 1e-08" in results["well-formed"].message
         loose = Tolerances(overrides={"well-formed": 1e-6})
-        results = {r.name: r for r in evaluate(water_rhf.problem, extract(sol), None, loose,
-                                               water_rhf.ints, stability="off")}
+        results = {r.name: r for r in judge(water_rhf.problem, extract(sol), None,
+                JudgeSettings(tolerances=loose, stability="off"), integrals=water_rhf.ints).checks}
         assert results["well-formed"].status is Status.PASSED
 
     def test_state_overrides_reach_the_state_checks(self, water_rhf):
         """stability and energy-error-bound report the overridden tolerance."""
         tight = Tolerances(overrides={"stability": 2e-5, "energy-error-bound": 3e-7})
-        results = {r.name: r for r in evaluate(water_rhf.problem, extract(water_rhf.solution()),
-                                               None, tight, water_rhf.ints)}
+        results = {r.name: r for r in judge(water_rhf.problem, extract(water_rhf.solution()),
+                None, JudgeSettings(tolerances=tight), integrals=water_rhf.ints).checks}
         assert results["stability"].tolerance == 2e-5
         assert results["energy-error-bound"].tolerance == 3e-7
-        default = {r.name: r for r in evaluate(water_rhf.problem,
-                                               extract(water_rhf.solution()), None, None,
-                                               water_rhf.ints)}
+        default = {r.name: r for r in judge(water_rhf.problem, extract(water_rhf.solution()),
+                None, integrals=water_rhf.ints).checks}
         assert default["stability"].tolerance == 1e-5
         assert default["energy-error-bound"].tolerance == 1e-6
 
@@ -182,12 +181,12 @@ class TestOverrides:
         e = sol["energy"]
         sol["history"] = [{"energy": e - 1e-3, "error": 1e-2},
                           {"energy": e - 1e-7, "error": 1e-8}, {"energy": e, "error": 1e-9}]
-        default = {r.name: r for r in evaluate(water_rhf.problem, extract(sol), None, None,
-                                               water_rhf.ints, stability="off")}
+        default = {r.name: r for r in judge(water_rhf.problem, extract(sol), None,
+                JudgeSettings(stability="off"), integrals=water_rhf.ints).checks}
         assert default["history"].status is Status.PASSED
         tight = Tolerances(overrides={"history": 1e-8})
-        results = {r.name: r for r in evaluate(water_rhf.problem, extract(sol), None, tight,
-                                               water_rhf.ints, stability="off")}
+        results = {r.name: r for r in judge(water_rhf.problem, extract(sol), None,
+                JudgeSettings(tolerances=tight, stability="off"), integrals=water_rhf.ints).checks}
         assert results["history"].status is Status.FAILED
         assert results["history"].message.startswith(
             "history: energy rising at the end: the last step raises E by 1.0e-07 > 1.0e-08 Eh "

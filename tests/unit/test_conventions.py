@@ -22,7 +22,7 @@ from harness.verdict.conventions import (CONVENTION_MATCH, NAMED, BasisMismatch,
 from harness.contract.errors import HarnessError
 from harness.testing.planted.conventions import shell_matrix, shells
 from harness.contract.problem import build_mole
-from harness.contract.solution import Malformed
+from harness.contract.solution import Malformed, Solution
 
 #: Water (bohr): Crawford group "Programming Projects", Project #3, water/STO-3G input.
 WATER = ((8, 1, 1), ((0.0, -0.143225816552, 0.0), (1.638036840407, 1.136548822547, 0.0),
@@ -310,12 +310,12 @@ class TestToReference:
         with pytest.raises(HarnessError, match="unknown solution key 'mo'"):
             conv.to_reference("mo", np.zeros((7, 7)))
         marker = Malformed("is a str")
-        extracted = {"energy": -75.0, "density": marker, "fock": np.zeros((6, 6)),  # synthetic
-                     "overlap": overlap(mol)}
+        extracted = Solution(energy=-75.0, density=marker, fock=np.zeros((6, 6)),  # synthetic
+                             overlap=overlap(mol))
         out = conv.solution_to_reference(extracted)
-        assert out["density"] is marker and out["fock"] is extracted["fock"]
-        assert out["energy"] == -75.0
-        np.testing.assert_array_equal(out["overlap"], conv.to_reference("overlap", overlap(mol)))
+        assert out.density is marker and out.fock is extracted.fock
+        assert out.energy == -75.0
+        np.testing.assert_array_equal(out.overlap, conv.to_reference("overlap", overlap(mol)))
 
 
 # ------------------------------------------------------------------------------- molden

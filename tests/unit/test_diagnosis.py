@@ -14,6 +14,7 @@ import numpy as np
 import pytest
 
 from harness.verdict import diagnosis as dg
+from harness.contract.solution import extract
 from harness.checks.energy import EnergyTerms
 from harness.contract.results import CheckResult, Status
 from harness.contract.units import ANGSTROM_IN_BOHR, HARTREE_IN_EV
@@ -355,7 +356,7 @@ def test_wrong_energy_on_constructed_solution(water_rhf):
     ok = lambda n: CheckResult(n, Status.PASSED, 0.0, 1e-8, "")  # noqa: E731
     results = {"electron-count": ok("electron-count"), "energy-consistency":
                fail("energy-consistency"), "self-consistency": ok("self-consistency")}
-    d = dg.diagnose(p, sol, water.ints, dm[None], results,
+    d = dg.diagnose(p, extract(sol), water.ints, dm[None], results,
                     reference=SimpleNamespace(energy=float(mf.e_tot)))
     e_nuc = float(mf.energy_nuc())
     assert d.hints == {"energy-consistency": f"nuclear repulsion missing: E − E[P] = "

@@ -15,7 +15,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "external"))
 import solution_files as sf  # noqa: E402
 
 from harness.contract.errors import CaseError, HarnessError  # noqa: E402
-from harness.verdict.evaluate import evaluate  # noqa: E402
+from harness.verdict.judge import judge  # noqa: E402
 from harness.run.files import (SOLUTION_FORMAT, SolutionFileError, check_result,  # noqa: E402
                            read_solution)
 from harness.contract.solution import extract  # noqa: E402
@@ -23,7 +23,7 @@ from harness.contract.solution import extract  # noqa: E402
 
 def failed_checks(name, raw):
     p = sf.problem(name)
-    return [c.name for c in evaluate(p, extract(raw)) if c.passed is False]
+    return [c.name for c in judge(p, extract(raw), None).checks if c.passed is False]
 
 
 def same_arrays(raw, result):
@@ -64,7 +64,7 @@ class TestFormats:
         result = dict(sf.solved("h2-sto-3g-rhf"))
         path = sf.write_json(tmp_path / "s.json", result, history=[[-1.0, 0.1], [-1.1, 1e-7]])
         ex = extract(read_solution(path))
-        np.testing.assert_array_equal(ex["history"], [[-1.0, 0.1], [-1.1, 1e-7]])
+        np.testing.assert_array_equal(ex.history, [[-1.0, 0.1], [-1.1, 1e-7]])
 
     @pytest.mark.parametrize("name", ["water-sto-3g-rhf", "oh-sto-3g-uhf", "nh2-sto-3g-rohf",
                                       "ammonia-6-31gd-rhf"])
@@ -89,7 +89,7 @@ class TestFormats:
                                {"energy": result["energy"], "fock": result["fock"]})
         raw = read_solution(path, problem=p, energy_file=energy)
         np.testing.assert_array_equal(raw["fock"], result["fock"])
-        checks = {c.name: c for c in evaluate(p, extract(raw))}
+        checks = {c.name: c for c in judge(p, extract(raw), None).checks}
         assert checks["stationarity"].passed is True
 
 
@@ -345,7 +345,7 @@ class TestCheckResult:
         assert case.name == "water-crawford-sto-3g-rhf"
         np.testing.assert_allclose(case.coordinates, ref_case.coordinates, atol=1e-12)
         reference, source = reference_for(ref_case)
-        checks = evaluate(case.problem(), extracted, reference)
+        checks = judge(case.problem(), extracted, reference).checks
         assert [c.name for c in checks if c.passed is False] == []
         assert source == "stored"
 

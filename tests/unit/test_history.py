@@ -7,6 +7,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from harness.contract.solution import Solution
 from harness.checks import history as hi
 from harness.contract.results import CheckResult, Status
 
@@ -156,14 +157,15 @@ class TestFromResults:
 
     def test_uses_the_codes_own_fock_measure(self):
         sol = {"history": converging(), "converged": True}
-        r = hi.history_from_results(sol, self.results(4e-4), convergence=CONV, case=CASE)
+        r = hi.history_from_results(Solution.from_dict(sol), self.results(4e-4),
+                convergence=CONV, case=CASE)
         assert r.status is Status.FAILED and r.value == 4e-4
 
     def test_falls_back_to_rebuilt_fock(self):
         res = self.results(4e-4)
         res["stationarity"] = CheckResult("stationarity", Status.NOT_APPLICABLE, None, None, "")
         sol = {"history": converging(), "converged": True}
-        r = hi.history_from_results(sol, res, convergence=CONV, case=CASE)
+        r = hi.history_from_results(Solution.from_dict(sol), res, convergence=CONV, case=CASE)
         assert r.status is Status.PASSED
 
     def test_trailing_monotone_counts_energies(self):

@@ -10,6 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from harness.contract.solution import extract
 from harness.checks import integrals as ci
 from harness.backend.integrals import integrals_for
 from harness.contract.problem import Problem
@@ -87,7 +88,7 @@ class TestDefiniteness:
     def test_indefinite_overlap_fails(self, water_rhf):
         s = water_rhf.ints.s
         bad = 2.0 * s - np.diag(np.diag(s))
-        r = ci.integral_checks({"overlap": bad}, water_rhf.ints, Tolerances(), CASE)
+        r = ci.integral_checks(extract({"overlap": bad}), water_rhf.ints, Tolerances(), CASE)
         assert r["overlap-definite"].status is Status.FAILED
         assert r["overlap-definite"].value > 0.1
         assert r["overlap-definite"].message.startswith(
@@ -188,7 +189,8 @@ def solution_with_integrals(conv) -> dict:
 
 class TestIntegralChecks:
     def test_all_pass_with_pyscf_integrals(self, water_rhf):
-        r = ci.integral_checks(solution_with_integrals(water_rhf), water_rhf.ints, None, CASE)
+        r = ci.integral_checks(extract(solution_with_integrals(water_rhf)), water_rhf.ints,
+                None, CASE)
         assert set(r) == set(INTEGRAL_CHECK_NAMES)
         assert {n for n, c in r.items() if c.status is not Status.PASSED} == set()
         assert r["kinetic"].message == (
@@ -196,7 +198,7 @@ class TestIntegralChecks:
 
     def test_absent_keys_not_applicable(self, water_rhf):
         sol = {k: v for k, v in water_rhf.solution().items() if k != "overlap"}
-        r = ci.integral_checks(sol, water_rhf.ints, Tolerances(), CASE)
+        r = ci.integral_checks(extract(sol), water_rhf.ints, Tolerances(), CASE)
         assert r["core-hamiltonian"].status is Status.PASSED
         na = {n for n, c in r.items() if c.status is Status.NOT_APPLICABLE}
         assert na == set(INTEGRAL_CHECK_NAMES) - {"core-hamiltonian"}
@@ -207,7 +209,8 @@ class TestIntegralChecks:
 
     def test_size_limit(self, water_rhf, monkeypatch):
         monkeypatch.setattr(ci, "ERI_MAX_NAO", 6)
-        r = ci.integral_checks(solution_with_integrals(water_rhf), water_rhf.ints, None, CASE)
+        r = ci.integral_checks(extract(solution_with_integrals(water_rhf)), water_rhf.ints,
+                None, CASE)
         assert r["two-electron-schwarz"].status is Status.NOT_APPLICABLE
         assert "nao = 7 > 6" in r["two-electron-schwarz"].message
 
@@ -218,7 +221,7 @@ class TestIntegralChecks:
         t = sol["kinetic"]
         sol["kinetic"] = 2.0 * t
         sol["core_hamiltonian"] = 2.0 * t + sol["nuclear_attraction"]
-        r = ci.integral_checks(sol, water_rhf.ints, Tolerances(), CASE)
+        r = ci.integral_checks(extract(sol), water_rhf.ints, Tolerances(), CASE)
         assert {n for n, c in r.items() if c.status is Status.FAILED} == {"kinetic",
                                                                           "core-hamiltonian"}
         assert r["kinetic"].value == pytest.approx(np.abs(t).max(), rel=1e-12)
@@ -229,15 +232,15 @@ class TestIntegralChecks:
     def test_physicists_notation_caught_by_comparison(self, water_rhf):
         sol = solution_with_integrals(water_rhf)
         sol["two_electron"] = sol["two_electron"].transpose(0, 2, 1, 3)
-        r = ci.integral_checks(sol, water_rhf.ints, Tolerances(), CASE)
+        r = ci.integral_checks(extract(sol), water_rhf.ints, Tolerances(), CASE)
         assert r["two-electron"].status is Status.FAILED and r["two-electron"].value > 0.5
         assert r["two-electron-symmetry"].status is Status.FAILED
 
     def test_tolerance_override_applies(self, water_rhf):
         sol = solution_with_integrals(water_rhf)
         sol["nuclear_attraction"] = sol["nuclear_attraction"] + 1e-7
-        strict = ci.integral_checks(sol, water_rhf.ints, Tolerances(), CASE)
-        loose = ci.integral_checks(sol, water_rhf.ints,
+        strict = ci.integral_checks(extract(sol), water_rhf.ints, Tolerances(), CASE)
+        loose = ci.integral_checks(extract(sol), water_rhf.ints,
                                    Tolerances({"nuclear-attraction": 1e-6}), CASE)
         assert strict["nuclear-attraction"].status is Status.FAILED
         assert loose["nuclear-attraction"].status is Status.PASSED

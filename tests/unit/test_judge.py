@@ -43,7 +43,7 @@ class TestCorrectSolution:
         assert result.check("reference-energy").status is Status.PASSED
         assert result.check("stationarity").status is Status.PASSED
         assert (result.name, result.method, result.basis) == (CASE, "rhf", "sto-3g")
-        assert result.energy == solution["energy"]
+        assert result.energy == solution.energy
         assert result.reference_energy == pytest.approx(reference.energy, abs=1e-12)
         assert result.reference_source == "stored" and result.plugin_seconds == 0.5
         assert result.check_seconds >= 0
@@ -95,7 +95,7 @@ class TestCheckException:
         assert result.error == (f"internal error in check _broken_kernel ({__file__}:{line}): "
                                 "ValueError: kernel broke")
         assert result.checks == () and not result.passed
-        assert result.energy == solution["energy"] and result.plugin_seconds == 1.0
+        assert result.energy == solution.energy and result.plugin_seconds == 1.0
         assert result.reference_energy == pytest.approx(reference.energy, abs=1e-12)
 
 

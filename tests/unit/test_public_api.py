@@ -11,7 +11,8 @@ EXPECTED = {
     "CHECK_NAMES", "Case", "CaseError", "CaseResult", "CheckResult", "DEFAULT_CONVERGENCE",
     "HarnessError", "JudgeSettings", "Measurement", "PluginLoadError", "Problem", "Reference",
     "ReferenceDataError", "RunOutcome", "Status", "ToleranceError", "Tolerances",
-    "__version__", "compute_reference", "evaluate", "extract", "judge", "load_catalogue",
+    "Solution", "__version__", "compute_reference", "evaluate", "extract", "judge",
+            "load_catalogue",
     "load_plugin", "load_suite_file", "reference_for", "run_cases",
 }
 

@@ -61,9 +61,9 @@ class FakeReference:
     energies: dict
 
 
-def fake_evaluate(problem, extracted, reference, settings=None):
+def fake_evaluate(problem, extracted, reference, settings=None, integrals=None):
     """Passes when the plug-in sent an energy; reference-energy compares it if given."""
-    energy = extracted.get("energy")
+    energy = extracted.energy
     ok = isinstance(energy, float)
     checks = [CheckResult("well-formed", Status.PASSED if ok else Status.FAILED, None, None,
                           f"well-formed: energy {'present' if ok else 'missing'}")]
@@ -173,7 +173,7 @@ class TestRunCases:
         """An exception in the harness's own checks fails that case only."""
         calls = []
 
-        def flaky(problem, extracted, reference, settings):
+        def flaky(problem, extracted, reference, settings, integrals=None):
             calls.append(problem.name)
             if problem.name == "first":
                 raise RuntimeError("kernel broke")
@@ -285,7 +285,7 @@ class TestCallablePluginsAndRecords:
         assert case.energy == pytest.approx(-1.1167, abs=1e-3)
         (folder,) = tmp_path.iterdir()  # kept: the child really ran the command
         assert (folder / "solution.npz").is_file()
-        assert out.solutions["h2-sto-3g-rhf"]["energy"] == case.energy
+        assert out.solutions["h2-sto-3g-rhf"].energy == case.energy
 
     def test_unpicklable_callable_is_refused_before_running(self):
         with pytest.raises(PluginLoadError) as info:
@@ -305,7 +305,7 @@ class TestCallablePluginsAndRecords:
         assert set(out.problems) == {"h2-sto-3g-rhf", "b"}
         assert out.problems["b"].name == "b" and out.problems["b"].nao == 2
         assert out.solutions["h2-sto-3g-rhf"] is None
-        assert out.solutions["b"]["energy"] == second.energy
+        assert out.solutions["b"].energy == second.energy
         assert out.references["b"].energies["total"] == pytest.approx(-1.1167)
 
     def test_judge_matches_the_runner(self):

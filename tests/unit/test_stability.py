@@ -13,6 +13,7 @@ import numpy as np
 import pytest
 from pyscf.scf import stability as pyscf_stability
 
+from harness.contract.solution import extract
 from harness.verdict import states as stab
 from harness.catalogue.cases import load_catalogue
 from harness.checks.energy import fock_from_terms
@@ -58,24 +59,24 @@ def test_spin_squared_of_constructed_determinants(metric):
 
 def test_spin_check_rohf_exact_and_uhf_against_reference(oh_rohf, oh_uhf):
     sol = oh_rohf.solution()
-    r = stab.spin_check(oh_rohf.problem, sol, oh_rohf.ints, None)
+    r = stab.spin_check(oh_rohf.problem, extract(sol), oh_rohf.ints, None)
     assert r.status is Status.PASSED and r.value < 1e-12
     # the UHF spin densities reported with the ROHF orbitals: ⟨S²⟩ is no longer 3/4
     bad = dict(sol, density=np.asarray(oh_uhf.mf.make_rdm1()))
-    r = stab.spin_check(oh_rohf.problem, bad, oh_rohf.ints, None)
+    r = stab.spin_check(oh_rohf.problem, extract(bad), oh_rohf.ints, None)
     s2_uhf = float(oh_uhf.mf.spin_square()[0])
     assert r.status is Status.FAILED and r.value == pytest.approx(s2_uhf - 0.75, abs=1e-9)
     assert r.message.startswith("spin-squared: |⟨S²⟩ − S(S+1)| = ")
     ref = type("Ref", (), {"s_squared": s2_uhf})()
-    r = stab.spin_check(oh_uhf.problem, oh_uhf.solution(), oh_uhf.ints, ref)
+    r = stab.spin_check(oh_uhf.problem, extract(oh_uhf.solution()), oh_uhf.ints, ref)
     assert r.status is Status.PASSED and r.value < 1e-9
     ref.s_squared = s2_uhf + 2 * stab.SPIN_SQUARED_UHF
-    assert stab.spin_check(oh_uhf.problem, oh_uhf.solution(), oh_uhf.ints,
+    assert stab.spin_check(oh_uhf.problem, extract(oh_uhf.solution()), oh_uhf.ints,
                            ref).status is Status.FAILED
 
 
 def test_spin_check_rhf_not_applicable(water_rhf):
-    r = stab.spin_check(water_rhf.problem, water_rhf.solution(), water_rhf.ints, None)
+    r = stab.spin_check(water_rhf.problem, extract(water_rhf.solution()), water_rhf.ints, None)
     assert r.status is Status.NOT_APPLICABLE
 
 
@@ -102,23 +103,24 @@ def test_energy_error_bound_scales_as_gradient_squared(water_rhf):
     values = {}
     for theta in (1e-3, 2e-3):
         sol, d, f = _rotated_rhf(water_rhf, theta)
-        m = stab.energy_error_bound(water_rhf.problem, sol, water_rhf.ints, d, f)
+        m = stab.energy_error_bound(water_rhf.problem, extract(sol), water_rhf.ints, d, f)
         values[theta] = m.value
         # the diagonal model is of the size of the true energy excess (same order)
         assert 0.2 < m.value / (sol["energy"] - e0) < 5.0
     assert values[2e-3] / values[1e-3] == pytest.approx(4.0, rel=0.02)
     sol, d, f = _rotated_rhf(water_rhf, 0.0)
-    converged = stab.energy_error_bound(water_rhf.problem, sol, water_rhf.ints, d, f)
+    converged = stab.energy_error_bound(water_rhf.problem, extract(sol), water_rhf.ints, d, f)
     assert converged.value < 1e-14
     sol, d, f = _rotated_rhf(water_rhf, 2e-3)
-    r = stab.energy_error_check(water_rhf.problem, sol, water_rhf.ints, d, f)
+    r = stab.energy_error_check(water_rhf.problem, extract(sol), water_rhf.ints, d, f)
     assert r.status is Status.FAILED and r.value > stab.ENERGY_ERROR_BOUND
-    assert stab.orbital_gradient(water_rhf.problem, sol, f) < stab.ERROR_BOUND_GRADIENT_LIMIT
+    assert stab.orbital_gradient(water_rhf.problem, extract(sol),
+            f) < stab.ERROR_BOUND_GRADIENT_LIMIT
     sol, d, f = _rotated_rhf(water_rhf, 1e-4)
-    assert stab.energy_error_check(water_rhf.problem, sol, water_rhf.ints, d,
+    assert stab.energy_error_check(water_rhf.problem, extract(sol), water_rhf.ints, d,
                                    f).status is Status.PASSED
     sol, d, f = _rotated_rhf(water_rhf, 0.1)
-    assert stab.energy_error_check(water_rhf.problem, sol, water_rhf.ints, d,
+    assert stab.energy_error_check(water_rhf.problem, extract(sol), water_rhf.ints, d,
                                    f).status is Status.NOT_APPLICABLE
 
 
@@ -129,7 +131,7 @@ def test_energy_error_bound_open_shells(fixture, request):
     d = np.asarray(conv.mf.make_rdm1())
     vj, vk = conv.ints.jk(d)
     f = fock_from_terms(conv.ints.h, vj, vk, 2)
-    assert stab.energy_error_bound(conv.problem, sol, conv.ints, d, f).value < 1e-12
+    assert stab.energy_error_bound(conv.problem, extract(sol), conv.ints, d, f).value < 1e-12
     # the first and last orbitals mixed by θ: the estimate grows as θ²
     c, occ = sol["coefficients"], sol["occupations"]
     vals = []
@@ -144,7 +146,7 @@ def test_energy_error_bound_open_shells(fixture, request):
             dd = np.stack([(cc * (occ > 0.5)) @ cc.T, (cc * (occ > 1.5)) @ cc.T])
         vj, vk = conv.ints.jk(dd)
         moved = {k: v for k, v in sol.items() if k != "density"} | {"coefficients": cc}
-        vals.append(stab.energy_error_bound(conv.problem, moved, conv.ints, dd,
+        vals.append(stab.energy_error_bound(conv.problem, extract(moved), conv.ints, dd,
                                             fock_from_terms(conv.ints.h, vj, vk, 2)).value)
     assert vals[0] > 1e-10
     assert vals[1] / vals[0] == pytest.approx(4.0, rel=0.05)
@@ -173,12 +175,12 @@ def _curvature(mf, mode, step=1e-3):
 
 def test_true_minimum_is_stable_and_eigenvalue_is_the_curvature(water_rhf):
     sol = water_rhf.solution()
-    r = stab.stability(water_rhf.problem, sol, water_rhf.ints)
+    r = stab.stability(water_rhf.problem, extract(sol), water_rhf.ints)
     assert r.stable and r.eigenvalue > 0.1 and r.followed_energy is None
-    mf = stab.scf_object(water_rhf.problem, sol, water_rhf.ints)
+    mf = stab.scf_object(water_rhf.problem, extract(sol), water_rhf.ints)
     mode = stab.internal_mode(mf)
     assert mode.eigenvalue == pytest.approx(_curvature(mf, mode), rel=1e-4)
-    check = stab.stability_check(water_rhf.problem, sol, water_rhf.ints, result=r)
+    check = stab.stability_check(water_rhf.problem, extract(sol), water_rhf.ints, result=r)
     assert check.status is Status.PASSED
     assert check.message == (f"stability: lowest orbital Hessian eigenvalue "
                              f"{r.eigenvalue:.1e} ≥ −1.0e-05 (water-sto-3g-rhf): stable "
@@ -204,15 +206,15 @@ def stretched():
 def test_restricted_uhf_of_stretched_h2_is_unstable_and_following_lowers(stretched):
     problem, ints, mf, sol, ref = stretched
     assert abs(float(mf.spin_square()[0])) < 1e-8
-    r = stab.stability(problem, sol, ints)
+    r = stab.stability(problem, extract(sol), ints)
     assert not r.stable and r.kind == "internal"
     assert r.eigenvalue < -0.1
     assert r.followed_energy == pytest.approx(ref.energy, abs=1e-8)
     assert r.lowering == pytest.approx(sol["energy"] - ref.energy, abs=1e-8)
     assert r.lowering > 0.1 and r.followed_s2 > 0.5
-    mode = stab.internal_mode(stab.scf_object(problem, sol, ints))
+    mode = stab.internal_mode(stab.scf_object(problem, extract(sol), ints))
     assert mode.eigenvalue == pytest.approx(_curvature(mf, mode), rel=1e-3)
-    check = stab.stability_check(problem, sol, ints, result=r)
+    check = stab.stability_check(problem, extract(sol), ints, result=r)
     assert check.status is Status.FAILED
     assert check.message == (
         f"stability: lowest orbital Hessian eigenvalue −{abs(r.eigenvalue):.1e} < −1.0e-05 "
@@ -230,30 +232,30 @@ def test_external_mode_flags_the_rhf_saddle_only_in_that_mode():
     mf.verbose, mf.conv_tol = 0, 1e-12
     mf.kernel()
     sol = {"energy": float(mf.e_tot), "coefficients": mf.mo_coeff, "occupations": mf.mo_occ}
-    internal = stab.stability_check(problem, sol, ints)
+    internal = stab.stability_check(problem, extract(sol), ints)
     assert internal.status is Status.PASSED
-    r = stab.stability(problem, sol, ints, mode="external")
+    r = stab.stability(problem, extract(sol), ints, mode="external")
     assert not r.stable and r.kind == "external RHF→UHF" and r.eigenvalue < -0.1
     uhf_ref = load_reference(load_catalogue().case("h2-stretched-6-31g-uhf"))
     assert r.followed_energy == pytest.approx(uhf_ref.energy, abs=1e-8)
-    mode = stab.external_mode(stab.scf_object(problem, sol, ints))
+    mode = stab.external_mode(stab.scf_object(problem, extract(sol), ints))
     assert mode.eigenvalue == pytest.approx(_curvature(mf, mode), rel=1e-3)
-    check = stab.stability_check(problem, sol, ints, mode="external", result=r)
+    check = stab.stability_check(problem, extract(sol), ints, mode="external", result=r)
     assert check.status is Status.FAILED and "unstable (external RHF→UHF)" in check.message
-    assert stab.stability_check(problem, sol, ints, mode="off").status is \
+    assert stab.stability_check(problem, extract(sol), ints, mode="off").status is \
         Status.NOT_APPLICABLE
 
 
 def test_far_from_stationary_is_not_applicable(water_rhf):
     sol, _, _ = _rotated_rhf(water_rhf, 0.2)
-    r = stab.stability_check(water_rhf.problem, sol, water_rhf.ints)
+    r = stab.stability_check(water_rhf.problem, extract(sol), water_rhf.ints)
     assert r.status is Status.NOT_APPLICABLE and "not a stationary point" in r.message
 
 
 def test_stability_does_not_flag_a_loosely_converged_minimum(water_rhf):
     """A small rotation (gradient ~1e-4) is not a saddle: λ stays positive."""
     sol, _, _ = _rotated_rhf(water_rhf, 1e-4)
-    r = stab.stability(water_rhf.problem, sol, water_rhf.ints)
+    r = stab.stability(water_rhf.problem, extract(sol), water_rhf.ints)
     assert r.stable and r.eigenvalue > 0.1 and 1e-5 < r.gradient < 1e-3
 
 
