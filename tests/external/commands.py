@@ -8,6 +8,8 @@ directories go under SCRATCH; ``sleeper`` writes its pid beside its scratch dire
 
 from __future__ import annotations
 
+import hashlib
+import os
 import sys
 import tempfile
 from pathlib import Path
@@ -15,7 +17,11 @@ from pathlib import Path
 from harness.run.external import CommandPlugin
 
 HERE = Path(__file__).resolve().parent
-SCRATCH = Path(tempfile.gettempdir()) / "scf-harness-external-tests"
+#: One scratch root per checkout and per pytest-xdist worker (the tests look for the pid
+#: files of their own sleeper only; a shared root let two runs see each other's).
+SCRATCH = Path(tempfile.gettempdir()) / (
+    "scf-harness-external-tests-" + hashlib.sha256(str(HERE).encode()).hexdigest()[:8]
+    + "-" + os.environ.get("PYTEST_XDIST_WORKER", "main"))
 PY = sys.executable
 
 

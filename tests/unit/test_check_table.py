@@ -138,7 +138,8 @@ class TestOverrides:
 
         def basis(tolerances):
             r = judge(water_rhf.problem, extract(sol), None,
-                    JudgeSettings(tolerances=tolerances, stability="off"), integrals=water_rhf.ints).checks
+                    JudgeSettings(tolerances=tolerances, stability="off"),
+                    integrals=water_rhf.ints).checks
             return next(c for c in r if c.name == "basis")
 
         default = basis(None)
