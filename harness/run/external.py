@@ -11,8 +11,9 @@ dict``). For each case it makes a scratch directory and writes the problem there
     The molecule in standard XYZ, coordinates in **ångström**; the comment line names
     the case and says so.
 ``basis.nwchem``
-    The basis in NWChem's text format, written from the exponents and contraction
-    coefficients pyscf uses for the reference (``mol._basis``), at full precision.
+    The basis in NWChem's text format, exactly as the reference uses it, at full
+    precision: ``Problem.basis_nwchem`` (``harness.contract.basis.nwchem_text`` of
+    ``Problem.basis_set``).
 ``ao_order.txt``
     The AO order the harness expects, one label per line (pyscf's order).
 
@@ -196,42 +197,6 @@ def geometry_xyz(problem) -> str:
     return "\n".join(lines) + "\n"
 
 
-def basis_nwchem(mol, *, title: str = "") -> str:
-    """The basis of a pyscf ``Mole`` in NWChem's text format, at full precision.
-
-    Written from ``mol._basis`` (the exponents and the contraction coefficients as
-    pyscf read them, before its own normalisation), one block per element in order of
-    appearance: ``<symbol> <S|P|D|...>`` then one line per primitive ``exponent c1
-    c2 ...`` (general contractions keep their columns). The block is headed by
-    ``BASIS "ao basis" SPHERICAL|CARTESIAN PRINT`` and closed by ``END``.
-    pyscf's parser (``pyscf.gto.basis.parse_nwchem``) reads it back to the same basis.
-    """
-    letters = "SPDFGHIKLM"
-    kind = "CARTESIAN" if mol.cart else "SPHERICAL"
-    out = []
-    if title:
-        out.append(f"# {title}")
-    out.append(f'BASIS "ao basis" {kind} PRINT')
-    seen = []
-    for i in range(mol.natm):
-        symbol = mol.atom_symbol(i)
-        if symbol not in seen:
-            seen.append(symbol)
-    for symbol in seen:
-        shells = mol._basis[symbol]
-        out.append(f"#BASIS SET: {symbol}")
-        for shell in shells:
-            l = int(shell[0])
-            rows = shell[1:]
-            if rows and isinstance(rows[0], (int, float)) and not isinstance(rows[0], list):
-                rows = rows[1:]  # a kappa entry (relativistic bases): not needed here
-            out.append(f"{symbol:<2}    {letters[l]}")
-            for row in rows:
-                out.append("  " + "  ".join(repr(float(x)) for x in row))
-    out.append("END")
-    return "\n".join(out) + "\n"
-
-
 def write_inputs(problem, directory, *, solution: str = DEFAULT_SOLUTION) -> dict[str, Path]:
     """Write problem.json, geometry.xyz, basis.nwchem, ao_order.txt (and
     initial_density.npy) into ``directory``; return their absolute paths by
@@ -242,11 +207,7 @@ def write_inputs(problem, directory, *, solution: str = DEFAULT_SOLUTION) -> dic
     doc = problem_document(problem, solution=solution)
     (directory / PROBLEM_FILE).write_text(json.dumps(doc, indent=1) + "\n", encoding="utf-8")
     (directory / GEOMETRY_FILE).write_text(geometry_xyz(problem), encoding="utf-8")
-    mol = problem.to_pyscf()
-    title = (f"scf-harness: basis {problem.basis!r} "
-             f"({'cartesian' if problem.cartesian else 'spherical'}) of case {problem.name}, "
-             f"exactly as the reference uses it")
-    (directory / BASIS_FILE).write_text(basis_nwchem(mol, title=title), encoding="utf-8")
+    (directory / BASIS_FILE).write_text(problem.basis_nwchem, encoding="utf-8")
     (directory / AO_ORDER_FILE).write_text("\n".join(doc["ao_labels"]) + "\n", encoding="utf-8")
     if problem.initial_density is not None:
         np.save(directory / INITIAL_DENSITY_FILE, np.asarray(problem.initial_density))
