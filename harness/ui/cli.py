@@ -157,7 +157,16 @@ def _add_selection(parser: argparse.ArgumentParser, default_text: str, *,
                        help=f"a suite of the catalogue (repeatable; default: {default_text})")
     where = "the catalogue or --cases-file" if cases_file else "the catalogue"
     group.add_argument("--case", action="append", dest="case_names", default=None,
-                       metavar="NAME", help=f"a single case of {where} (repeatable)")
+                       metavar="NAME", help=f"a case of {where}, or a shell-style pattern "
+                       "of case names such as 'h2-*' or '*-cc-pvdz-?hf' (quote it; "
+                       "repeatable)")
+    group.add_argument("--basis", action="append", dest="bases", default=None,
+                       metavar="NAME", help="keep only the selected cases in this basis "
+                       "(case-insensitive, e.g. cc-pVDZ; repeatable; default: any basis)")
+    group.add_argument("--method", action="append", dest="methods", default=None,
+                       choices=("rhf", "uhf", "rohf"),
+                       help="keep only the selected cases of this method (repeatable; "
+                       "default: any method)")
     return group
 
 
@@ -338,9 +347,10 @@ def build_parser() -> argparse.ArgumentParser:
 
     cases = sub.add_parser("cases", help="list the catalogue",
                            description="List the catalogue's cases (name, method, basis, "
-                           "number of AOs, suites, note).")
-    cases.add_argument("--suite", action="append", dest="suites", default=None, metavar="NAME",
-                       help="only the cases of this suite (repeatable; default: all cases)")
+                           "number of AOs, suites, note): all of them, or the selection "
+                           "--suite, --case, --basis and --method make, as certify would "
+                           "run it.")
+    _add_selection(cases, "every catalogue case")
 
     selftest = sub.add_parser("selftest", help="run the built-in planted-bug plug-ins and "
                               "check that each is caught by the checks meant to catch it",
@@ -359,22 +369,31 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def select_cases(suites: Sequence[str] | None, case_names: Sequence[str] | None,
-                 cases_file: Path | None = None, *, default_suite: str | None = DEFAULT_SUITE):
+                 cases_file: Path | None = None, *, default_suite: str | None = DEFAULT_SUITE,
+                 bases: Sequence[str] | None = None, methods: Sequence[str] | None = None):
     """The cases named by the options, in order, without duplicates.
 
     Returns ``(cases, suite_names)``. With no suite, case or file given, the
     ``default_suite`` (or, if None, the whole catalogue) is used. A ``cases_file``
     adds all its cases, unless case names are given: then each name is looked up in
     the file first, then in the catalogue, and only the named cases (and suites) run.
+    A case name with ``*``, ``?`` or ``[...]`` is a shell-style pattern (``fnmatch``)
+    matched against the file's cases and the catalogue's; one that matches nothing is
+    a one-line CaseError naming it with the closest case names. ``bases`` (compared as
+    ``harness.catalogue.cases.basis_key``) and ``methods`` then keep only the cases with
+    one of those bases and methods; a filter that leaves nothing is a UsageError
+    naming what the selection holds.
     """
-    from harness.catalogue.cases import load_catalogue, load_user_suite
+    from harness.catalogue.cases import (filter_cases, is_pattern, load_catalogue,
+                                         load_user_suite, matching, no_match)
 
     chosen = []
     suite_names = list(suites or [])
     if not suite_names and not case_names and cases_file is None:
         if default_suite is None:
-            return list(load_catalogue().cases), []
-        suite_names = [default_suite]
+            chosen = list(load_catalogue().cases)
+        else:
+            suite_names = [default_suite]
     own = {}
     if cases_file is not None:
         if not cases_file.is_file():
@@ -385,7 +404,13 @@ def select_cases(suites: Sequence[str] | None, case_names: Sequence[str] | None,
     for name in suite_names:
         chosen.extend(catalogue.suite(name))
     for name in case_names or []:
-        chosen.append(own[name] if name in own else catalogue.case(name))
+        if isinstance(name, str) and is_pattern(name):
+            found = matching(name, own.values()) + matching(name, catalogue.cases)
+            if not found:
+                raise no_match(name, list(own) + list(catalogue.names))
+            chosen.extend(found)
+        else:
+            chosen.append(own[name] if name in own else catalogue.case(name))
     if not case_names:
         chosen.extend(own.values())
     seen, unique = set(), []
@@ -393,6 +418,16 @@ def select_cases(suites: Sequence[str] | None, case_names: Sequence[str] | None,
         if case.name not in seen:
             seen.add(case.name)
             unique.append(case)
+    if bases or methods:
+        kept = filter_cases(unique, bases=bases, methods=methods)
+        if unique and not kept:
+            asked = [f"--basis {' / '.join(bases)}"] if bases else []
+            asked += [f"--method {' / '.join(methods)}"] if methods else []
+            held = sorted({f"{c.method}/{c.basis}" for c in unique})
+            raise UsageError(f"{' and '.join(asked)}: no selected case has "
+                             f"{'these' if len(asked) > 1 else 'this'} (the "
+                             f"{len(unique)} selected have {', '.join(held)})")
+        unique = kept
     return unique, suite_names
 
 
@@ -498,7 +533,8 @@ def _certify(args, console) -> int:
 
     plugin, label = _plugin(args)
     tolerances = _tolerances(args)
-    cases, suite_names = select_cases(args.suites, args.case_names, args.cases_file)
+    cases, suite_names = select_cases(args.suites, args.case_names, args.cases_file,
+                                      bases=args.bases, methods=args.methods)
     if not cases:
         raise UsageError("no cases selected")
     if (args.references is not None and not args.references.is_dir()
@@ -694,7 +730,8 @@ def _references(args, console) -> int:
     from harness.catalogue import references
     if args.action is None:
         raise UsageError("references needs an action: build or verify")
-    cases, _ = select_cases(args.suites, args.case_names, default_suite=None)
+    cases, _ = select_cases(args.suites, args.case_names, default_suite=None,
+                            bases=args.bases, methods=args.methods)
     directory = args.references
     if args.action == "verify" and directory is not None and not directory.is_dir():
         raise UsageError(f"--references: not a folder: {directory}")
@@ -729,7 +766,8 @@ def _cases(args, console) -> int:
     from harness.catalogue.cases import load_catalogue
 
     catalogue = load_catalogue()
-    cases, _ = select_cases(args.suites, None, default_suite=None)
+    cases, _ = select_cases(args.suites, args.case_names, default_suite=None,
+                            bases=args.bases, methods=args.methods)
     table = Table(box=box.SIMPLE_HEAD, pad_edge=False, show_edge=False)
     for column in ("case", "method", "basis", "nao", "suites", "note"):
         table.add_column(column, no_wrap=column != "note",
