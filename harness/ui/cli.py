@@ -2,7 +2,8 @@
 solution file, write and verify certificates, bench an accelerator, manage references,
 list cases.
 
-Exit status: 0 when every case passed, 1 when a case failed or the run was
+Exit status: 0 when no case failed (unsupported cases, ``harness.Unsupported``, are
+not failures unless ``--require-all``), 1 when a case failed or the run was
 interrupted (or ``references verify`` / ``verify-certificate`` found a mismatch, or
 the bench found the accelerator worse), 2 for usage and setup errors (bad plug-in
 spec, unknown suite or case, bad tolerance, unreadable cases file, missing file),
@@ -183,8 +184,9 @@ def build_parser() -> argparse.ArgumentParser:
 
     cert = sub.add_parser("certify", help="run an SCF plug-in on cases and check the results",
                           description="Run PLUGIN on each case in its own process, check "
-                          "the result and print a verdict per case. Exit 0 if all cases "
-                          "passed, 1 otherwise, 2 for usage errors.")
+                          "the result and print a verdict per case. Exit 0 if no case "
+                          "failed (unsupported cases do not fail unless --require-all), 1 "
+                          "otherwise, 2 for usage errors.")
     cert.add_argument("plugin", nargs="?", default=None, metavar="PLUGIN",
                       help="MODULE:FUNCTION or path/to/file.py:FUNCTION; the function takes "
                       f"a Problem (bohr) and returns the solution mapping (Eh) "
@@ -207,6 +209,10 @@ def build_parser() -> argparse.ArgumentParser:
                      f"(default: {DEFAULT_TIMEOUT:g})")
     run.add_argument("--jobs", type=_positive_int, default=1, metavar="N",
                      help="cases run at once, each in its own process (default: 1)")
+    run.add_argument("--require-all", action="store_true",
+                     help="a case the code reports unsupported (harness.Unsupported, "
+                     "or a command's exit status 77 / unsupported.txt) fails (default: "
+                     "it is counted as unsupported, neither passed nor failed)"),
     ext = cert.add_argument_group("an external code instead of PLUGIN")
     ext.add_argument("--command", dest="command_template", metavar="TEMPLATE",
                      help="run this command per case in a scratch folder, e.g. \"./my_scf "
@@ -512,7 +518,8 @@ def _plugin(args):
 
 
 def _write_certificate(path: Path, outcome, *, tolerances, plugin: str, console,
-                       quiet: bool, ao_convention: str | None, stability: str) -> None:
+                       quiet: bool, ao_convention: str | None, stability: str,
+                       require_all: bool = False) -> None:
     """Write the certificate of the cases whose problem could be built (the others
     have no inputs to certify), recording the evaluation options (--ao-convention,
     --stability) that a recompute must use again."""
@@ -521,7 +528,8 @@ def _write_certificate(path: Path, outcome, *, tolerances, plugin: str, console,
     results = [r for r in outcome.cases if r.name in outcome.problems]
     write_certificate(path, results, problems=outcome.problems, solutions=outcome.solutions,
                       references=outcome.references, tolerances=tolerances, plugin=plugin,
-                      ao_convention=ao_convention, stability=stability)
+                      ao_convention=ao_convention, stability=stability,
+                      require_all=require_all)
     if not quiet:
         console.print(f"certificate: {path} (solutions in {sidecar_path(path).name})",
                       markup=False, soft_wrap=True)
@@ -564,14 +572,16 @@ def _certify(args, console) -> int:
                             stability=args.stability, timeout=args.timeout,
                             jobs=args.jobs, reference_dir=args.references,
                             write_references=args.write_references, results_path=partial,
-                            on_result=on_result, plugin_checked=True)
+                            on_result=on_result, plugin_checked=True,
+                            require_all=args.require_all)
         if not args.quiet and outcome.cases:
             console.print()
         report.render(outcome, console, quiet=args.quiet)
         if args.json is not None:
             data = report.to_json(outcome, plugin=label, suite_names=suite_names,
                                   tolerances_table=tolerances.table(convergence),
-                                  versions=report.collect_versions())
+                                  versions=report.collect_versions(),
+                                  require_all=args.require_all)
             data["convergence"] = convergence
             data["timeout_seconds"] = args.timeout
             if args.cases_file is not None:
@@ -582,7 +592,8 @@ def _certify(args, console) -> int:
         if args.certificate is not None:
             _write_certificate(args.certificate, outcome, tolerances=tolerances, plugin=label,
                                console=console, quiet=args.quiet,
-                               ao_convention=args.ao_convention, stability=args.stability)
+                               ao_convention=args.ao_convention, stability=args.stability,
+                               require_all=args.require_all)
     return 0 if outcome.passed else 1
 
 
