@@ -77,7 +77,8 @@ class Unsupported(Exception):
         self.reason = text or "no reason given"
 
     def __str__(self) -> str:
-        return self.reason
+        text = self.args[0] if self.args else ""
+        return text if isinstance(text, str) and text else "no reason given"
 
 
 def first_line(exc: BaseException) -> str:

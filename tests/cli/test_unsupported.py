@@ -188,3 +188,25 @@ def test_certify_command_reports_unsupported(work, capsys, mode, reason):
     assert f"{H2} (rhf/sto-3g): unsupported: {reason}" in out
     report = json.loads((work / "run.json").read_text())
     assert [c["status"] for c in report["cases"]] == ["unsupported", "unsupported"]
+
+
+# ------------------------------------------------------------------ the pipe message
+
+
+def test_the_child_sends_plain_data_for_an_unsupported_case():
+    from harness.run.runner import UNSUPPORTED_KIND, _reason, unsupported_message
+
+    message = unsupported_message(REASON, 0.25)
+    assert message == {"kind": UNSUPPORTED_KIND, "reason": REASON, "seconds": 0.25}
+    assert json.loads(json.dumps(message)) == message  # plain data, no pickled objects
+
+    class Odd(harness.Unsupported):
+        @property
+        def reason(self):
+            raise RuntimeError("hostile")
+
+        @reason.setter
+        def reason(self, value):
+            pass
+
+    assert _reason(Odd("still  readable")) == "still readable"
