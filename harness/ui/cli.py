@@ -356,7 +356,10 @@ def build_parser() -> argparse.ArgumentParser:
                            "number of AOs, suites, note): all of them, or the selection "
                            "--suite, --case, --basis and --method make, as certify would "
                            "run it.")
-    _add_selection(cases, "every catalogue case")
+    listed = _add_selection(cases, "every catalogue case", cases_file=True)
+    listed.add_argument("--cases-file", type=Path, metavar="FILE",
+                        help="also list the cases of this TOML suite file (as certify "
+                        "--cases-file; default: none)")
 
     selftest = sub.add_parser("selftest", help="run the built-in planted-bug plug-ins and "
                               "check that each is caught by the checks meant to catch it",
@@ -777,8 +780,8 @@ def _cases(args, console) -> int:
     from harness.catalogue.cases import load_catalogue
 
     catalogue = load_catalogue()
-    cases, _ = select_cases(args.suites, args.case_names, default_suite=None,
-                            bases=args.bases, methods=args.methods)
+    cases, _ = select_cases(args.suites, args.case_names, args.cases_file,
+                            default_suite=None, bases=args.bases, methods=args.methods)
     table = Table(box=box.SIMPLE_HEAD, pad_edge=False, show_edge=False)
     for column in ("case", "method", "basis", "nao", "suites", "note"):
         table.add_column(column, no_wrap=column != "note",

@@ -137,3 +137,18 @@ def test_certify_runs_a_pattern_selection(capsys):
     out = capsys.readouterr().out
     assert code == 0, out
     assert out.splitlines()[-1] == "1 passed, 0 failed"
+
+
+def test_cases_lists_a_cases_file_with_the_same_filters(capsys, tmp_path):
+    (tmp_path / "h2.xyz").write_text("2\nH2\nH 0 0 0\nH 0 0 0.74\n", encoding="utf-8")
+    path = tmp_path / "mine.toml"
+    path.write_text("".join(
+        f'[[case]]\nname = "{name}"\ngeometry = "h2.xyz"\nbasis = "{basis}"\n'
+        'method = "rhf"\n\n' for name, basis in (("lab-h2-a", "sto-3g"),
+                                                 ("lab-h2-b", "6-31g"))), encoding="utf-8")
+    assert names(None, ["lab-*"], path) == ["lab-h2-a", "lab-h2-b"]
+    assert names(None, None, path, bases=["6-31G"]) == ["lab-h2-b"]
+    code = main(["cases", "--cases-file", str(path), "--case", "lab-*", "--basis", "STO-3G"])
+    out = capsys.readouterr().out.splitlines()
+    assert code == 0
+    assert [line.split()[0] for line in out if line.startswith("lab-")] == ["lab-h2-a"]
