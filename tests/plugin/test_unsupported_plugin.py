@@ -96,3 +96,16 @@ def test_scf_check_fails_an_unsupported_case_under_require_all(project):
     result.assert_outcomes(failed=3)
     assert result.outlines.count("unsupported: no oxygen basis in this code (require-all: "
                                  "every case must run)") == 2
+
+
+def test_the_reproduce_command_carries_require_all():
+    from harness.ui import config
+
+    keys = config.parse_table({"plugin": "mycode:solve", "require_all": True})
+    settings = config.resolve({}, keys)
+    assert settings.require_all is True
+    assert settings.reproduce_command("water-sto-3g-rhf") == (
+        "scf-harness certify mycode:solve --case water-sto-3g-rhf --require-all")
+    assert config.resolve(config.parse_flags(require_all=True), {}).require_all is True
+    assert config.resolve(config.parse_flags(require_all=None), keys).require_all is True
+    assert config.resolve({}, {}).require_all is False
