@@ -40,6 +40,7 @@ _EXPORTS = {
     "PluginLoadError": "harness.contract.errors",
     "ReferenceDataError": "harness.contract.errors",
     "ToleranceError": "harness.contract.errors",
+    "Unsupported": "harness.contract.errors",
 }
 
 __all__ = sorted(_EXPORTS) + ["__version__"]

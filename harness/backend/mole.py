@@ -39,6 +39,44 @@ def mole_for(problem):
                       cartesian=problem.cartesian)
 
 
+def basis_set(mol):
+    """The basis a ``Mole`` uses, per element in order of first appearance:
+    ``{symbol: (Shell, ...)}`` (``harness.contract.basis.Shell``: l, exponents in
+    bohr⁻², contraction coefficients per contracted function), read from pyscf's
+    formatted basis at full precision (the values of its basis library, before pyscf
+    normalises the contracted functions). A relativistic ``kappa`` entry of a shell is
+    dropped (non-relativistic SCF does not use it). The only reader of ``mol._basis``."""
+    from harness.contract.basis import Shell
+
+    order = []
+    for i in range(mol.natm):
+        symbol = mol.atom_symbol(i)
+        if symbol not in order:
+            order.append(symbol)
+    order += [s for s in mol._basis if s not in order]
+    out = {}
+    for symbol in order:
+        shells = []
+        for shell in mol._basis[symbol]:
+            rows = list(shell[1:])
+            if rows and not isinstance(rows[0], (list, tuple)):
+                rows = rows[1:]  # kappa
+            shells.append(Shell.from_rows(int(shell[0]), rows))
+        out[symbol] = tuple(shells)
+    return out
+
+
+def parse_nwchem_basis(text: str, symbol: str):
+    """pyscf's NWChem parser on ``text`` for element ``symbol``, as ``(Shell, ...)``
+    (for round-trip tests of ``harness.contract.basis.nwchem_text``)."""
+    from pyscf.gto.basis import parse_nwchem
+
+    from harness.contract.basis import Shell
+
+    return tuple(Shell.from_rows(int(sh[0]), sh[1:])
+                 for sh in parse_nwchem.parse(text, symbol))
+
+
 def element_symbols() -> tuple[str, ...]:
     """Element symbols indexed by atomic number (index 0 is pyscf's ghost "X")."""
     from pyscf.data import elements

@@ -14,6 +14,7 @@ import atexit
 import contextlib
 import dataclasses
 import difflib
+import fnmatch
 import importlib.resources
 import os
 import re
@@ -459,6 +460,48 @@ def _unknown(kind: str, name: str, known) -> CaseError:
     listed = ", ".join(close) if close else ", ".join(known)
     what = "closest" if close else "known"
     return CaseError(f"unknown {kind} {name!r} ({what}: {listed})", field=kind)
+
+
+#: Characters that make a case name a shell-style pattern (``fnmatch``: ``*``, ``?``, ``[...]``).
+PATTERN_CHARS = "*?["
+
+
+def is_pattern(text: str) -> bool:
+    """Whether ``text`` is a shell-style pattern rather than a case name."""
+    return any(ch in text for ch in PATTERN_CHARS)
+
+
+def basis_key(name: str) -> str:
+    """A basis name normalised for comparison: stripped, lower case (as the catalogue
+    stores basis names), and without ``-``, ``_`` and spaces (as pyscf reads names), so
+    ``cc-pVDZ``, ``CC-PVDZ`` and ``ccpvdz`` are one basis."""
+    return "".join(ch for ch in str(name).strip().lower() if ch not in "-_ ")
+
+
+def matching(pattern: str, cases) -> list:
+    """The cases whose name matches the shell-style ``pattern`` (``fnmatch``, case
+    sensitive: case names are lower case), in their order."""
+    return [c for c in cases if fnmatch.fnmatchcase(c.name, pattern)]
+
+
+def no_match(pattern: str, names) -> CaseError:
+    """The one-line error for a case pattern that matches nothing, with the three
+    closest case names."""
+    names = list(names)
+    literal = "".join(ch for ch in pattern if ch not in PATTERN_CHARS + "]")
+    close = difflib.get_close_matches(literal, names, n=3, cutoff=0.0)
+    return CaseError(f"no case matches {pattern!r} (closest: {', '.join(close) or 'none'})",
+                     field="case")
+
+
+def filter_cases(cases, *, bases=None, methods=None) -> list:
+    """The cases (in order) whose basis is one of ``bases`` (compared with
+    :func:`basis_key`) and whose method is one of ``methods`` (lower case); None or
+    empty: no filter on that field."""
+    keys = {basis_key(b) for b in bases or ()}
+    wanted = {str(m).strip().lower() for m in methods or ()}
+    return [c for c in cases if (not keys or basis_key(c.basis) in keys)
+            and (not wanted or c.method in wanted)]
 
 
 @dataclasses.dataclass(frozen=True)

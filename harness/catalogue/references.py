@@ -96,12 +96,15 @@ def input_hash(case: Case) -> str:
 
     Hashed: atomic numbers, coordinates in bohr (full-precision floats), charge,
     multiplicity, method, cartesian flag, basis name, the basis contents pyscf
-    actually uses (``mol._basis``) and the reference settings (conv_tol,
+    actually uses (``harness.backend.mole.basis_set``, hashed in pyscf's row layout
+    ``{symbol: [[l, [exponent, c1, ...], ...], ...]}``) and the reference settings (conv_tol,
     conv_tol_grad, stability policy). Not hashed: the pyscf or numpy version.
     """
-    mol = case.mole()
+    from harness.backend.mole import basis_set
+    from harness.contract.basis import as_rows
+
     payload = _inputs(case)
-    payload["basis_contents"] = _clean(mol._basis)
+    payload["basis_contents"] = _clean(as_rows(basis_set(case.mole())))
     payload["settings"] = {"conv_tol": CONV_TOL, "conv_tol_grad": CONV_TOL_GRAD,
                            "stability_policy": STABILITY_POLICY}
     text = json.dumps(payload, sort_keys=True, separators=(",", ":"))

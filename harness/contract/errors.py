@@ -49,6 +49,38 @@ class ToleranceError(HarnessError):
     """A tolerance override names an unknown check or is not a positive number."""
 
 
+#: Longest reason an :class:`Unsupported` keeps (characters; a longer one is cut with …).
+UNSUPPORTED_REASON_LIMIT = 200
+
+
+class Unsupported(Exception):
+    """Raised by a plug-in for a case its code cannot run at all (a basis, an element or
+    a method it does not have): ``raise harness.Unsupported("no cc-pVTZ in this code")``.
+
+    Not a failure and not a pass: the case is reported ``unsupported: <reason>`` in the
+    table, the JSON (``"status": "unsupported"``), the certificate and the closing line
+    (``N passed, M failed, K unsupported``), and a run with nothing failed exits 0 —
+    unless ``--require-all`` (``require_all`` in ``[tool.scf-harness]``) makes every
+    unsupported case a failure. ``reason`` is the message on one line (whitespace
+    runs joined, at most UNSUPPORTED_REASON_LIMIT characters; ``"no reason given"`` when
+    empty). Not a ``HarnessError``: nothing is wrong with the harness's input.
+    """
+
+    def __init__(self, reason: str = ""):
+        try:
+            text = " ".join(str(reason).split())
+        except Exception:  # a reason whose __str__ raises
+            text = ""
+        if len(text) > UNSUPPORTED_REASON_LIMIT:
+            text = text[:UNSUPPORTED_REASON_LIMIT - 1] + "…"
+        super().__init__(text)
+        self.reason = text or "no reason given"
+
+    def __str__(self) -> str:
+        text = self.args[0] if self.args else ""
+        return text if isinstance(text, str) and text else "no reason given"
+
+
 def first_line(exc: BaseException) -> str:
     """``"<ExcType>: <first line of its message>"`` (or just the type), for one-line
     reports of an exception raised by a user's code. A message that cannot be made

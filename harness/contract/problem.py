@@ -88,6 +88,11 @@ class Problem:
             with X = S^(-1/2) (see README).
         ao_labels: the AO order the harness expects (pyscf's for this basis and flag).
         initial_density: optional starting density a code may use or ignore (None).
+
+    Properties computed on request: ``basis_set`` (the exact basis the reference uses,
+    as plain data: ``{symbol: (Shell(l, exponents, coefficients), ...)}``, see
+    ``harness.contract.basis``) and ``basis_nwchem`` (the same as NWChem-format text);
+    ``n_electrons``, ``n_alpha``, ``n_beta``, ``nao``.
     """
 
     name: str
@@ -191,6 +196,28 @@ class Problem:
     @property
     def nao(self) -> int:
         return len(self.ao_labels)
+
+    @property
+    def basis_set(self) -> dict:
+        """The exact basis the reference uses, per element in order of first appearance:
+        ``{"H": (Shell(l=0, exponents=(3.42525091, ...), coefficients=((0.15432897,
+        ...),)), ...), ...}`` (exponents in bohr⁻², coefficients of normalised
+        primitives, one tuple per contracted function; full precision, as pyscf's basis
+        library has them). A new dict each time (its shells are tuples)."""
+        from harness.backend.mole import basis_set
+
+        return basis_set(self.to_pyscf())
+
+    @property
+    def basis_nwchem(self) -> str:
+        """:attr:`basis_set` in NWChem's text format (SPHERICAL or CARTESIAN as the
+        problem): the ``basis.nwchem`` file a ``--command`` code finds in its folder."""
+        from harness.contract.basis import nwchem_text
+
+        title = (f"scf-harness: basis {self.basis!r} "
+                 f"({'cartesian' if self.cartesian else 'spherical'}) of case {self.name}, "
+                 f"exactly as the reference uses it")
+        return nwchem_text(self.basis_set, cartesian=self.cartesian, title=title)
 
     def to_pyscf(self):
         """A pyscf ``Mole`` built exactly as the reference builds it (bohr, symmetry off)."""

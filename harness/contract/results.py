@@ -132,12 +132,19 @@ def skipped(name: str, reason: str, case: str) -> CheckResult:
                        message=f"{name}: skipped ({case}): {reason}")
 
 
+#: What became of a case (``CaseResult.status``, ``"status"`` in the JSON report).
+CASE_STATUSES = ("passed", "failed", "unsupported")
+
+
 @dataclasses.dataclass(frozen=True)
 class CaseResult:
     """Everything the harness learned about one case.
 
     ``error`` is set when the plug-in itself failed (exception, timeout, crash,
     unreadable return value); then ``checks`` may be empty and the case failed.
+    ``unsupported`` is the reason the code gave for not running the case at all
+    (``harness.Unsupported``, or a command's exit status / ``unsupported.txt``): the
+    case then has no checks and is neither passed nor failed (:attr:`status`).
     Energies in Eh, times in seconds.
     """
 
@@ -151,14 +158,29 @@ class CaseResult:
     plugin_seconds: float | None = None
     check_seconds: float | None = None
     reference_source: str | None = None  #: "stored", "computed" or "written" (computed, stored)
+    unsupported: str | None = None  #: the code's reason for not running the case
     analysis: dict = dataclasses.field(default_factory=dict, compare=False)
 
     @property
     def passed(self) -> bool:
-        if self.error is not None:
+        """True when the case ran and passed (False for an unsupported case too)."""
+        if self.error is not None or self.unsupported is not None:
             return False
         return all(c.status is not Status.FAILED for c in self.checks) and any(
             c.status is Status.PASSED for c in self.checks)
+
+    @property
+    def failed(self) -> bool:
+        """True when the case failed (``status == "failed"``): not passed, and not
+        unsupported (an unsupported case with an ``error``, under require-all, failed)."""
+        return self.status == "failed"
+
+    @property
+    def status(self) -> str:
+        """``"passed"``, ``"failed"`` or ``"unsupported"`` (CASE_STATUSES)."""
+        if self.unsupported is not None and self.error is None:
+            return "unsupported"
+        return "passed" if self.passed else "failed"
 
     @property
     def failures(self) -> tuple[CheckResult, ...]:
@@ -174,6 +196,8 @@ class CaseResult:
         return {
             "name": self.name,
             "passed": self.passed,
+            "status": self.status,
+            "unsupported": self.unsupported,
             "method": self.method,
             "basis": self.basis,
             "error": self.error,
@@ -196,4 +220,5 @@ class CaseResult:
                    plugin_seconds=timings.get("plugin_seconds"),
                    check_seconds=timings.get("check_seconds"),
                    reference_source=data.get("reference_source"),
+                   unsupported=data.get("unsupported"),
                    analysis=data.get("analysis") or {})

@@ -212,7 +212,8 @@ def _case_entry(result: CaseResult, problem, solution, reference) -> dict[str, A
     from harness.catalogue.references import input_hash
 
     entry: dict[str, Any] = {
-        "name": result.name, "passed": bool(result.passed), "error": result.error,
+        "name": result.name, "passed": bool(result.passed), "status": result.status,
+        "unsupported": result.unsupported, "error": result.error,
         "inputs": _inputs(problem), "input_hash": input_hash(_case_of(problem)),
         "energy": _json_float(result.energy),
         "reference": _reference_entry(reference, result.reference_source),
@@ -233,8 +234,12 @@ def make_certificate(case_results: Sequence[CaseResult], *, problems: Mapping[st
                      versions: Mapping[str, str] | None = None, plugin: str | None = None,
                      sidecar: Mapping[str, str] | None = None,
                      created: str | None = None, ao_convention: str | None = None,
-                     stability: str = "internal") -> dict[str, Any]:
+                     stability: str = "internal", require_all: bool = False) -> dict[str, Any]:
     """The certificate of a run as a JSON-ready dict, hashed and digested.
+
+    Each case records its ``status`` (``passed``, ``failed`` or ``unsupported``, with
+    the code's reason in ``unsupported``); the certificate ``passed`` when no case
+    failed, and records ``require_all`` (unsupported cases counted as failures).
 
     ``problems``, ``solutions`` (the extracted solutions, ``harness.contract.solution.extract``;
     None for a case whose plug-in failed) and ``references`` (``Reference`` or None)
@@ -261,7 +266,8 @@ def make_certificate(case_results: Sequence[CaseResult], *, problems: Mapping[st
         "tolerances": {"factor": float(tol.factor),
                        "overrides": {k: float(v) for k, v in sorted(tol.overrides.items())}},
         EVALUATION_KEY: {"ao_convention": ao_convention, "stability": stability},
-        "passed": bool(case_results) and all(r.passed for r in case_results),
+        "passed": bool(case_results) and not any(r.failed for r in case_results),
+        "require_all": bool(require_all),
         "sidecar": dict(sidecar) if sidecar is not None else None,
         "cases": cases,
     }
@@ -288,7 +294,7 @@ def _atomic_write(path: Path, write) -> None:
 def write_certificate(path, case_results: Sequence[CaseResult], *, problems, solutions,
                       references=None, tolerances=None, versions=None,
                       plugin: str | None = None, ao_convention: str | None = None,
-                      stability: str = "internal") -> Path:
+                      stability: str = "internal", require_all: bool = False) -> Path:
     """Write the sidecar ``NAME.solutions.npz`` (every non-malformed array of every
     solution, keyed ``<case>/<key>``), then the certificate ``path`` with the sidecar's
     hash; both atomically. Arguments as for :func:`make_certificate`. Returns ``path``."""
@@ -305,7 +311,7 @@ def write_certificate(path, case_results: Sequence[CaseResult], *, problems, sol
     cert = make_certificate(case_results, problems=problems, solutions=solutions,
                             references=references, tolerances=tolerances, versions=versions,
                             plugin=plugin, ao_convention=ao_convention, stability=stability,
-                            sidecar={"file": side.name, "sha256": file_sha256(side)})
+                            require_all=require_all, sidecar={"file": side.name, "sha256": file_sha256(side)})
 
     def save_json(tmp):
         Path(tmp).write_text(json.dumps(cert, indent=1, ensure_ascii=False) + "\n",
@@ -692,6 +698,20 @@ def _evaluation_line(cert: Mapping[str, Any]) -> list[str]:
             f"convention {convention if convention is not None else 'from the overlap'}"]
 
 
+def _case_status(entry: Mapping[str, Any]) -> str:
+    """A case entry's status; a certificate made before statuses were recorded has
+    only ``passed``."""
+    status = entry.get("status")
+    if status in ("passed", "failed", "unsupported"):
+        return status
+    return "passed" if entry.get("passed") else "failed"
+
+
+def _verdict_word(entry: Mapping[str, Any]) -> str:
+    return {"passed": "passed", "unsupported": "unsupported"}.get(_case_status(entry),
+                                                                  "FAILED")
+
+
 def summary_markdown(cert: Mapping[str, Any]) -> str:
     """A short Markdown summary for a reviewer: versions, evaluation options, per case
     method/basis, energy, reference, verdict, the checks (value vs tolerance), and the
@@ -700,6 +720,8 @@ def summary_markdown(cert: Mapping[str, Any]) -> str:
     plat = _obj(cert.get("platform"))
     cases = _case_entries(cert)
     n_pass = sum(1 for c in cases if c.get("passed"))
+    n_unsupported = sum(1 for c in cases if _case_status(c) == "unsupported")
+    unsupported_text = f", {n_unsupported} unsupported" if n_unsupported else ""
     lines = [
         "# SCF verdict certificate",
         "",
@@ -709,7 +731,8 @@ def summary_markdown(cert: Mapping[str, Any]) -> str:
         f"- code: `{cert.get('plugin') or '?'}`",
         *_evaluation_line(cert),
         f"- verdict: **{'PASSED' if cert.get('passed') else 'FAILED'}** "
-        f"({n_pass} of {len(cases)} cases passed); energies in hartree (Eh), lengths in bohr",
+        f"({n_pass} of {len(cases)} cases passed{unsupported_text}); energies in hartree "
+        f"(Eh), lengths in bohr",
         "",
         "| case | method/basis | energy (Eh) | reference (Eh) | reference from | verdict |",
         "|---|---|---|---|---|---|",
@@ -721,11 +744,13 @@ def summary_markdown(cert: Mapping[str, Any]) -> str:
                                                  else "")
         lines.append(f"| {c.get('name')} | {inputs.get('method', '?')}/{basis} | "
                      f"{_fmt(c.get('energy'))} | {_fmt(ref.get('energy'))} | "
-                     f"{ref.get('source') or '—'} | {'passed' if c.get('passed') else 'FAILED'} |")
+                     f"{ref.get('source') or '—'} | {_verdict_word(c)} |")
     for c in cases:
         lines += ["", f"## {c.get('name')}", ""]
         if c.get("error"):
             lines.append(f"- error: {c['error']}")
+        elif _case_status(c) == "unsupported":
+            lines.append(f"- unsupported: {c.get('unsupported')}")
         checks = c.get("checks") if isinstance(c.get("checks"), list) else []
         for check in (k for k in checks if isinstance(k, dict)):
             status = check.get("status")

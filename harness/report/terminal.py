@@ -2,7 +2,8 @@
 
 Terminal output uses rich and stays readable without a terminal (CI logs are 140
 columns, no colour when ``NO_COLOR`` is set or the output is not a TTY). The last
-line of :func:`render` is ``"N passed, M failed"`` alone on a line, which CI reads.
+line of :func:`render` is ``"N passed, M failed"`` alone on a line, which CI reads
+(``"N passed, M failed, K unsupported"`` when some case is unsupported).
 All energies in hartree (Eh), lengths in bohr, times in seconds.
 """
 
@@ -55,16 +56,30 @@ def _marks(console: Console) -> tuple[str, str]:
     return ("✓", "✗") if encoding.startswith("utf") else ("ok", "X")
 
 
+#: The cell of an unsupported case in every check column of the verdict table.
+UNSUPPORTED_CELL = "uns."
+
+
+def _tally(cases: Sequence[CaseResult]) -> tuple[int, int, int]:
+    statuses = [c.status for c in cases]
+    return (statuses.count("passed"), statuses.count("failed"),
+            statuses.count("unsupported"))
+
+
 def summary_line(outcome) -> str:
-    """``"12 passed, 1 failed"``: the counts of the finished cases."""
-    n_pass = sum(1 for c in outcome.cases if c.passed)
-    return f"{n_pass} passed, {len(outcome.cases) - n_pass} failed"
+    """``"12 passed, 1 failed"``: the counts of the finished cases, with
+    ``", 3 unsupported"`` appended when some case is unsupported."""
+    n_pass, n_fail, n_unsupported = _tally(outcome.cases)
+    line = f"{n_pass} passed, {n_fail} failed"
+    return line + (f", {n_unsupported} unsupported" if n_unsupported else "")
 
 
 def first_failure(result: CaseResult) -> str | None:
     """The message that says first why a case failed (its error, or its first failing check)."""
     if result.error is not None:
         return result.error
+    if result.status == "unsupported":
+        return None
     fails = result.failures
     if fails:
         return fails[0].message
@@ -74,13 +89,17 @@ def first_failure(result: CaseResult) -> str | None:
 
 
 def progress_line(result: CaseResult, console: Console | None = None) -> Text:
-    """``✓ water-sto-3g-rhf  1.2 s`` or ``✗ ...  <first failing message>``."""
+    """``✓ water-sto-3g-rhf  1.2 s``, ``✗ ...  <first failing message>`` or
+    ``– ...  unsupported: <reason>``."""
     ok_mark, bad_mark = _marks(console) if console is not None else ("✓", "✗")
     seconds = result.plugin_seconds
     took = f"{seconds:.1f} s" if isinstance(seconds, (int, float)) else "-"
     line = Text()
+    unsupported = result.status == "unsupported"
     if result.passed:
         line.append(ok_mark, style="green")
+    elif unsupported:
+        line.append(_unsupported_mark(console), style="yellow")
     else:
         line.append(bad_mark, style="bold red")
     line.append(f" {result.name}  {took}")
@@ -91,7 +110,14 @@ def progress_line(result: CaseResult, console: Console | None = None) -> Text:
     why = first_failure(result)
     if why is not None:
         line.append(f"  {why}", style="red")
+    elif unsupported:
+        line.append(f"  unsupported: {result.unsupported}", style="yellow")
     return line
+
+
+def _unsupported_mark(console: Console | None) -> str:
+    encoding = (getattr(console, "encoding", "") or "utf").lower() if console else "utf"
+    return "–" if encoding.startswith("utf") else "-"
 
 
 def print_progress(console: Console, result: CaseResult) -> None:
@@ -124,7 +150,8 @@ def verdict_tables(cases: Sequence[CaseResult], console: Console | None = None,
 def verdict_table(cases: Sequence[CaseResult], console: Console | None = None,
                   names: Sequence[str] | None = None) -> Table:
     """Rows = cases, columns = the checks in CHECK_NAMES order; each cell the measured
-    value (``.0e``) with ✓/✗, or ``n.a.`` / ``skip``; ``·`` when the check did not run."""
+    value (``.0e``) with ✓/✗, or ``n.a.`` / ``skip``; ``·`` when the check did not run;
+    ``uns.`` across the row of an unsupported case."""
     marks = _marks(console) if console is not None else ("✓", "✗")
     table = Table(box=box.SIMPLE_HEAD, padding=(0, 1), pad_edge=False, show_edge=False,
                   collapse_padding=True)
@@ -133,6 +160,10 @@ def verdict_table(cases: Sequence[CaseResult], console: Console | None = None,
     for name in names:
         table.add_column(SHORT_NAMES.get(name, name), justify="right", no_wrap=True)
     for result in cases:
+        if result.status == "unsupported":
+            table.add_row(Text(result.name, style="yellow"),
+                          *(Text(UNSUPPORTED_CELL, style="yellow") for _ in names))
+            continue
         by_name = {c.name: c for c in result.checks}
         name = Text(result.name, style=None if result.passed else "bold red")
         table.add_row(name, *(_cell(by_name.get(n), marks) for n in names))
@@ -163,7 +194,8 @@ def _legend_lines(width: int, names: Sequence[str] = CHECK_NAMES) -> list[str]:
 
 def render(outcome, console: Console, *, quiet: bool = False) -> None:
     """Print the final report: the verdict table (unless quiet), the failing checks'
-    messages and hints per failed case, then ``N passed, M failed`` alone on a line."""
+    messages and hints per failed case, the unsupported cases with their reasons, then
+    ``N passed, M failed`` (``, K unsupported``) alone on a line."""
     if outcome.cases and not quiet:
         for k, table in enumerate(verdict_tables(outcome.cases, console,
                                                  min(console.width, PLAIN_WIDTH))):
@@ -172,7 +204,11 @@ def render(outcome, console: Console, *, quiet: bool = False) -> None:
             console.print(table)
         for line in _legend_lines(min(console.width, PLAIN_WIDTH), shown_checks(outcome.cases)):
             console.print(Text(line, style="dim"), soft_wrap=True)
-    failed_cases = [c for c in outcome.cases if not c.passed]
+        if any(c.status == "unsupported" for c in outcome.cases):
+            console.print(Text(f"{UNSUPPORTED_CELL} = unsupported by the code (reasons "
+                               f"below; --require-all makes that a failure)", style="dim"),
+                          soft_wrap=True)
+    failed_cases = [c for c in outcome.cases if c.failed]
     if failed_cases:
         if not quiet:
             console.print()
@@ -188,6 +224,14 @@ def render(outcome, console: Console, *, quiet: bool = False) -> None:
                 console.print(Text(f"    hint: {check.hint}", style="dim"), soft_wrap=True)
         if result.error is None and not result.failures:
             console.print(Text("  no check passed"), soft_wrap=True)
+    unsupported = [c for c in outcome.cases if c.status == "unsupported"]
+    if unsupported:
+        if failed_cases or not quiet:
+            console.print()
+        console.print(Text("Unsupported", style="bold"))
+    for result in unsupported:
+        console.print(Text(f"{result.name} ({result.method}/{result.basis}): unsupported: "
+                           f"{result.unsupported}", style="yellow"), soft_wrap=True)
     if outcome.interrupted:
         console.print(Text("interrupted: cases not finished are not counted", style="yellow"))
     console.print(summary_line(outcome), markup=False, highlight=False, style=None,
@@ -230,14 +274,21 @@ def harness_version() -> str:
 
 
 def to_json(outcome, *, plugin: str, suite_names: Sequence[str],
-            tolerances_table: Mapping[str, float], versions: Mapping[str, str]) -> dict[str, Any]:
+            tolerances_table: Mapping[str, float], versions: Mapping[str, str],
+            require_all: bool = False) -> dict[str, Any]:
     """The machine-readable report (energies in Eh, lengths in bohr, times in s).
 
-    Not-applicable and skipped checks have ``"passed": null``.
+    Not-applicable and skipped checks have ``"passed": null``. Each case has a
+    ``"status"``: ``"passed"``, ``"failed"`` or ``"unsupported"`` (then ``"unsupported"``
+    holds the code's reason and ``"passed"`` is false); ``"counts"`` has the three
+    numbers; ``"passed"`` at the top is true when no case failed.
     """
+    n_pass, n_fail, n_unsupported = _tally(outcome.cases)
     return {
         "passed": bool(outcome.passed),
         "summary": summary_line(outcome),
+        "counts": {"passed": n_pass, "failed": n_fail, "unsupported": n_unsupported},
+        "require_all": bool(require_all),
         "cases": [c.to_json() for c in outcome.cases],
         "plugin": plugin,
         "suites": list(suite_names),

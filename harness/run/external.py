@@ -11,8 +11,9 @@ dict``). For each case it makes a scratch directory and writes the problem there
     The molecule in standard XYZ, coordinates in **ångström**; the comment line names
     the case and says so.
 ``basis.nwchem``
-    The basis in NWChem's text format, written from the exponents and contraction
-    coefficients pyscf uses for the reference (``mol._basis``), at full precision.
+    The basis in NWChem's text format, exactly as the reference uses it, at full
+    precision: ``Problem.basis_nwchem`` (``harness.contract.basis.nwchem_text`` of
+    ``Problem.basis_set``).
 ``ao_order.txt``
     The AO order the harness expects, one label per line (pyscf's order).
 
@@ -43,6 +44,12 @@ more than one link (a hard link to a file elsewhere), on another device than the
 scratch directory, or last modified before the command started (moved or copied in
 with its old time; compared with the file system's own clock through ``stdout.log``).
 
+A case the code cannot run (a basis, element or method it lacks) is *unsupported*,
+neither passed nor failed: the command writes ``unsupported.txt`` in its working
+directory (first non-empty line: the reason; any exit status) or exits with status
+``77`` (UNSUPPORTED_STATUS; the reason is its last stderr line). The plug-in then
+raises ``harness.Unsupported`` with that reason.
+
 Failures raise :class:`ExternalCodeError` with one line: ``exited with status 3``,
 ``killed by signal SIGSEGV``, ``timed out after 5 s``, ``cannot start ...``,
 ``wrote no solution file ...``, or the solution file's own error, each followed by
@@ -64,7 +71,7 @@ import tempfile
 from pathlib import Path
 from typing import Any
 
-from harness.contract.errors import HarnessError
+from harness.contract.errors import HarnessError, Unsupported
 from harness.contract.units import BOHR_IN_ANGSTROM
 
 #: Format tag of ``problem.json``.
@@ -77,6 +84,17 @@ AO_ORDER_FILE = "ao_order.txt"
 INITIAL_DENSITY_FILE = "initial_density.npy"
 STDOUT_FILE = "stdout.log"
 STDERR_FILE = "stderr.log"
+#: A command that cannot run a case (a basis, element or method it does not have) says
+#: so by writing this file in its working directory, its first non-empty line the
+#: reason, or by exiting with UNSUPPORTED_STATUS (the reason: its last stderr line). The
+#: case is then unsupported (``harness.Unsupported``), neither passed nor failed.
+UNSUPPORTED_FILE = "unsupported.txt"
+#: Exit status meaning "this case is unsupported": 77, the "skipped" status of the GNU
+#: Automake test driver (so a test script may already use it); not 1-3, which programs
+#: use for errors (the bundled C example exits 3 when it does not converge).
+UNSUPPORTED_STATUS = 77
+#: Most bytes of ``unsupported.txt`` read.
+UNSUPPORTED_READ = 4096
 #: The solution file ``{solution}`` names unless another name is given.
 DEFAULT_SOLUTION = "solution.npz"
 #: Names looked for when the template has no ``{solution}`` (a Molden file first: its
@@ -86,7 +104,7 @@ SOLUTION_CANDIDATES = ("solution.molden", "solution.npz", "solution.json", "solu
 #: Files of the scratch directory a command may name relatively (they are never made
 #: absolute against the start directory).
 SCRATCH_NAMES = (PROBLEM_FILE, GEOMETRY_FILE, BASIS_FILE, AO_ORDER_FILE, INITIAL_DENSITY_FILE,
-                 STDOUT_FILE, STDERR_FILE) + SOLUTION_CANDIDATES
+                 STDOUT_FILE, STDERR_FILE, UNSUPPORTED_FILE) + SOLUTION_CANDIDATES
 #: Placeholders a template may use.
 PLACEHOLDERS = ("problem", "solution", "geometry", "basis", "ao_order", "dir")
 #: Longest stderr excerpt put into an error message (characters).
@@ -196,42 +214,6 @@ def geometry_xyz(problem) -> str:
     return "\n".join(lines) + "\n"
 
 
-def basis_nwchem(mol, *, title: str = "") -> str:
-    """The basis of a pyscf ``Mole`` in NWChem's text format, at full precision.
-
-    Written from ``mol._basis`` (the exponents and the contraction coefficients as
-    pyscf read them, before its own normalisation), one block per element in order of
-    appearance: ``<symbol> <S|P|D|...>`` then one line per primitive ``exponent c1
-    c2 ...`` (general contractions keep their columns). The block is headed by
-    ``BASIS "ao basis" SPHERICAL|CARTESIAN PRINT`` and closed by ``END``.
-    pyscf's parser (``pyscf.gto.basis.parse_nwchem``) reads it back to the same basis.
-    """
-    letters = "SPDFGHIKLM"
-    kind = "CARTESIAN" if mol.cart else "SPHERICAL"
-    out = []
-    if title:
-        out.append(f"# {title}")
-    out.append(f'BASIS "ao basis" {kind} PRINT')
-    seen = []
-    for i in range(mol.natm):
-        symbol = mol.atom_symbol(i)
-        if symbol not in seen:
-            seen.append(symbol)
-    for symbol in seen:
-        shells = mol._basis[symbol]
-        out.append(f"#BASIS SET: {symbol}")
-        for shell in shells:
-            l = int(shell[0])
-            rows = shell[1:]
-            if rows and isinstance(rows[0], (int, float)) and not isinstance(rows[0], list):
-                rows = rows[1:]  # a kappa entry (relativistic bases): not needed here
-            out.append(f"{symbol:<2}    {letters[l]}")
-            for row in rows:
-                out.append("  " + "  ".join(repr(float(x)) for x in row))
-    out.append("END")
-    return "\n".join(out) + "\n"
-
-
 def write_inputs(problem, directory, *, solution: str = DEFAULT_SOLUTION) -> dict[str, Path]:
     """Write problem.json, geometry.xyz, basis.nwchem, ao_order.txt (and
     initial_density.npy) into ``directory``; return their absolute paths by
@@ -242,11 +224,7 @@ def write_inputs(problem, directory, *, solution: str = DEFAULT_SOLUTION) -> dic
     doc = problem_document(problem, solution=solution)
     (directory / PROBLEM_FILE).write_text(json.dumps(doc, indent=1) + "\n", encoding="utf-8")
     (directory / GEOMETRY_FILE).write_text(geometry_xyz(problem), encoding="utf-8")
-    mol = problem.to_pyscf()
-    title = (f"scf-harness: basis {problem.basis!r} "
-             f"({'cartesian' if problem.cartesian else 'spherical'}) of case {problem.name}, "
-             f"exactly as the reference uses it")
-    (directory / BASIS_FILE).write_text(basis_nwchem(mol, title=title), encoding="utf-8")
+    (directory / BASIS_FILE).write_text(problem.basis_nwchem, encoding="utf-8")
     (directory / AO_ORDER_FILE).write_text("\n".join(doc["ao_labels"]) + "\n", encoding="utf-8")
     if problem.initial_density is not None:
         np.save(directory / INITIAL_DENSITY_FILE, np.asarray(problem.initial_density))
@@ -319,7 +297,8 @@ class CommandPlugin:
     stands for (default ``solution.npz``; ``.json``, ``.h5``, ``.molden`` work too).
 
     Calling it with a ``Problem`` (bohr) returns the solution mapping (Eh), or raises
-    :class:`ExternalCodeError`. It pickles (plain attributes), so it can be sent to
+    :class:`ExternalCodeError`, or ``harness.Unsupported`` when the command says it
+    cannot run the case (UNSUPPORTED_FILE or UNSUPPORTED_STATUS). It pickles (plain attributes), so it can be sent to
     the harness's child process. Raises :class:`CommandSetupError` (a
     ``HarnessError``) at construction for a bad template (empty, no program, unknown
     placeholder), a ``scratch_root`` that is not a directory or cannot be created, a
@@ -439,6 +418,9 @@ class CommandPlugin:
             _kill_group(proc)  # what the command left running in its group ends with it
         if code < 0:
             raise fail(f"killed by signal {_signal_name(-code)}", code)
+        reason = _unsupported_reason(scratch, code)
+        if reason is not None:
+            raise Unsupported(reason)
         if code > 0:
             raise fail(f"exited with status {code}", code)
         found = self._solution_file(scratch, fail)
@@ -472,6 +454,28 @@ class CommandPlugin:
             raise fail(f"wrote several solution files ({', '.join(p.name for p in present)}): "
                        f"write one", 0)
         return present[0]
+
+
+def _unsupported_reason(scratch: Path, code: int) -> str | None:
+    """The reason a command that ended with status ``code`` gave for not running its
+    case, or None when it did not say so: the first non-empty line of UNSUPPORTED_FILE
+    (a regular file, not a link; whatever the status), else, for UNSUPPORTED_STATUS, the
+    last line of its stderr."""
+    path = scratch / UNSUPPORTED_FILE
+    if path.is_file() and not path.is_symlink():
+        try:
+            with open(path, "rb") as fh:
+                text = fh.read(UNSUPPORTED_READ).decode("utf-8", errors="replace")
+        except OSError:
+            text = ""
+        lines = [line.strip() for line in text.splitlines() if line.strip()]
+        return lines[0] if lines else f"no reason given ({UNSUPPORTED_FILE} is empty)"
+    if code == UNSUPPORTED_STATUS:
+        lines = [line.strip() for line in _tail(scratch / STDERR_FILE).splitlines()
+                 if line.strip()]
+        return lines[-1] if lines else (f"exited with status {UNSUPPORTED_STATUS} "
+                                        f"(unsupported) and gave no reason on stderr")
+    return None
 
 
 def _not_written_here(path: Path, started: os.stat_result) -> str | None:

@@ -30,11 +30,21 @@ class RunOutcome:
 
     @property
     def passed(self) -> bool:
-        """True when the run finished and every case passed (an empty run does not pass)."""
-        return bool(self.cases) and not self.interrupted and all(c.passed for c in self.cases)
+        """True when the run finished and no case failed (an empty run does not pass).
+        Unsupported cases (``CaseResult.unsupported``) are not failures; ``--require-all``
+        turns them into failures before they get here."""
+        return bool(self.cases) and not self.interrupted and not any(
+            c.failed for c in self.cases)
 
     @property
     def counts(self) -> tuple[int, int]:
-        """(passed, failed) among the finished cases."""
-        n_pass = sum(1 for c in self.cases if c.passed)
-        return n_pass, len(self.cases) - n_pass
+        """(passed, failed) among the finished cases (unsupported ones in neither)."""
+        passed, failed, _ = self.tally
+        return passed, failed
+
+    @property
+    def tally(self) -> tuple[int, int, int]:
+        """(passed, failed, unsupported) among the finished cases."""
+        statuses = [c.status for c in self.cases]
+        return (statuses.count("passed"), statuses.count("failed"),
+                statuses.count("unsupported"))

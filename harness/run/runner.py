@@ -33,7 +33,7 @@ from pathlib import Path
 from typing import Any, Callable, Iterable
 
 from harness.contract import defaults as _defaults
-from harness.contract.errors import PluginLoadError, innermost_frame
+from harness.contract.errors import PluginLoadError, Unsupported, innermost_frame
 from harness.run.plugins import load_plugin
 from harness.contract.results import CaseResult
 from harness.run.outcome import RunOutcome  # noqa: F401  (re-exported: run_cases returns it)
@@ -125,6 +125,28 @@ def describe_exception(exc: BaseException, tb=None) -> str:
     except BaseException:  # a frame or attribute the plug-in made unreadable: no location
         pass
     return text
+
+
+#: The ``kind`` of the child's message for a case the plug-in does not support.
+UNSUPPORTED_KIND = "unsupported"
+
+
+def unsupported_message(reason: str, seconds: float | None = None) -> dict:
+    """The plain message a child sends for an unsupported case:
+    ``{"kind": "unsupported", "reason": str, "seconds": float | None}``."""
+    return {"kind": UNSUPPORTED_KIND, "reason": str(reason), "seconds": seconds}
+
+
+def _reason(exc: BaseException) -> str:
+    """The one-line reason of an ``Unsupported`` (its ``reason``, or its text when a
+    subclass made that unreadable). Never raises."""
+    try:
+        reason = exc.reason
+        if isinstance(reason, str) and reason.strip():
+            return " ".join(reason.split())
+    except BaseException:
+        pass
+    return " ".join(_message(exc).split()) or "no reason given"
 
 
 def _send(conn, message: dict, fallback: str) -> None:
@@ -287,15 +309,22 @@ def _child_main(conn, plugin_spec, path: list[str], cwd: str, problem,
     parent = os.getppid()
     # Only while the plug-in runs: before and after, SIGTERM ends the child quietly.
     signal.signal(signal.SIGTERM, _stop_on_sigterm)
+    unsupported = None
     try:
         raw, error = function(problem), None
     except _Stopped:  # the parent stopped this case and reads nothing more
         return
+    except Unsupported as exc:  # the code cannot run this case: neither pass nor fail
+        raw, error, unsupported = None, None, _reason(exc)
     except BaseException as exc:  # SystemExit from a plug-in is a failure too
         raw, error = None, exc
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
     if os.getppid() != parent:  # the fork server died under the plug-in
         _send(conn, {"error": PARENT_KILLED}, "cannot send that the fork server died")
+        return
+    if unsupported is not None:
+        _send(conn, unsupported_message(unsupported, time.perf_counter() - start),
+              "cannot send that the case is unsupported")
         return
     if error is not None:
         _send(conn, {"error": describe_exception(error)}, "cannot send the plug-in's error")
@@ -388,13 +417,33 @@ def _base_result(case, **fields) -> CaseResult:
                       basis=getattr(case, "basis", ""), **fields)
 
 
+#: The error of an unsupported case under require-all (``--require-all``,
+#: ``require_all`` in ``[tool.scf-harness]``): ``{reason}`` is the code's reason.
+REQUIRED_ERROR = "unsupported: {reason} (require-all: every selected case must run)"
+
+
+def unsupported_result(case, reason: str, *, require_all: bool = False,
+                       **fields) -> CaseResult:
+    """The CaseResult of a case the code does not support: ``unsupported=reason``
+    (neither passed nor failed), or, with ``require_all``, also an error
+    (REQUIRED_ERROR), so that the case failed."""
+    error = REQUIRED_ERROR.format(reason=reason) if require_all else None
+    return _base_result(case, unsupported=reason, error=error, **fields)
+
+
 def _finish(run: _Running, message: dict | None, error: str | None,
-            settings: JudgeSettings) -> CaseResult:
+            settings: JudgeSettings, require_all: bool = False) -> CaseResult:
     """Turn what the child sent (or why it sent nothing) into a CaseResult: an error
-    as it is, a solution through ``harness.verdict.judge.judge``."""
+    as it is, an unsupported case as :func:`unsupported_result`, a solution through
+    ``harness.verdict.judge.judge``."""
     if error is None and message is not None and "error" in message:
         error = message["error"]
     seconds = message.get("seconds") if message else None
+    if error is None and message is not None and message.get("kind") == UNSUPPORTED_KIND:
+        return unsupported_result(run.case, str(message.get("reason") or "no reason given"),
+                                  require_all=require_all, plugin_seconds=seconds,
+                                  reference_energy=_ref_energy(run),
+                                  reference_source=run.reference_source)
     if error is not None:
         return _base_result(run.case, error=error, plugin_seconds=seconds,
                             reference_energy=_ref_energy(run),
@@ -559,7 +608,7 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
               write_references: bool = False, results_path=None,
               on_start: Callable[[str], None] | None = None,
               on_result: Callable[[CaseResult], None] | None = None,
-              plugin_checked: bool = False) -> RunOutcome:
+              plugin_checked: bool = False, require_all: bool = False) -> RunOutcome:
     """Run ``plugin_spec`` on each case in a child process and check the results here.
 
     ``plugin_spec`` is a ``MODULE:FUNCTION`` / ``path.py:FUNCTION`` string (re-imported
@@ -580,6 +629,11 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
 
     The outcome also holds, per case name, the problems, the extracted solutions and
     the references (for ``harness.report.certificate``).
+
+    A plug-in that raises ``harness.Unsupported`` (a ``CommandPlugin`` whose command
+    exits with ``UNSUPPORTED_STATUS`` or writes ``unsupported.txt``) makes its case
+    unsupported (``CaseResult.unsupported``, neither passed nor failed);
+    ``require_all=True`` makes such a case fail instead (:func:`unsupported_result`).
 
     Raises ``PluginLoadError`` before running anything if the spec cannot be loaded
     (or the callable does not pickle): :func:`check_plugin`, in a child process, with
@@ -667,7 +721,7 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
             error = f"plug-in process sent an unexpected message ({type(message).__name__})"
         if error is None and isinstance(message, dict) and "solution" in message:
             solutions[run.case.name] = message["solution"]
-        record(run.index, _finish(run, message, error, settings))
+        record(run.index, _finish(run, message, error, settings, require_all))
 
     try:
         while pending or running:

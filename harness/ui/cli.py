@@ -2,7 +2,8 @@
 solution file, write and verify certificates, bench an accelerator, manage references,
 list cases.
 
-Exit status: 0 when every case passed, 1 when a case failed or the run was
+Exit status: 0 when no case failed (unsupported cases, ``harness.Unsupported``, are
+not failures unless ``--require-all``), 1 when a case failed or the run was
 interrupted (or ``references verify`` / ``verify-certificate`` found a mismatch, or
 the bench found the accelerator worse), 2 for usage and setup errors (bad plug-in
 spec, unknown suite or case, bad tolerance, unreadable cases file, missing file),
@@ -157,7 +158,16 @@ def _add_selection(parser: argparse.ArgumentParser, default_text: str, *,
                        help=f"a suite of the catalogue (repeatable; default: {default_text})")
     where = "the catalogue or --cases-file" if cases_file else "the catalogue"
     group.add_argument("--case", action="append", dest="case_names", default=None,
-                       metavar="NAME", help=f"a single case of {where} (repeatable)")
+                       metavar="NAME", help=f"a case of {where}, or a shell-style pattern "
+                       "of case names such as 'h2-*' or '*-cc-pvdz-?hf' (quote it; "
+                       "repeatable)")
+    group.add_argument("--basis", action="append", dest="bases", default=None,
+                       metavar="NAME", help="keep only the selected cases in this basis "
+                       "(case-insensitive, e.g. cc-pVDZ; repeatable; default: any basis)")
+    group.add_argument("--method", action="append", dest="methods", default=None,
+                       choices=("rhf", "uhf", "rohf"),
+                       help="keep only the selected cases of this method (repeatable; "
+                       "default: any method)")
     return group
 
 
@@ -174,8 +184,9 @@ def build_parser() -> argparse.ArgumentParser:
 
     cert = sub.add_parser("certify", help="run an SCF plug-in on cases and check the results",
                           description="Run PLUGIN on each case in its own process, check "
-                          "the result and print a verdict per case. Exit 0 if all cases "
-                          "passed, 1 otherwise, 2 for usage errors.")
+                          "the result and print a verdict per case. Exit 0 if no case "
+                          "failed (unsupported cases do not fail unless --require-all), 1 "
+                          "otherwise, 2 for usage errors.")
     cert.add_argument("plugin", nargs="?", default=None, metavar="PLUGIN",
                       help="MODULE:FUNCTION or path/to/file.py:FUNCTION; the function takes "
                       f"a Problem (bohr) and returns the solution mapping (Eh) "
@@ -198,6 +209,10 @@ def build_parser() -> argparse.ArgumentParser:
                      f"(default: {DEFAULT_TIMEOUT:g})")
     run.add_argument("--jobs", type=_positive_int, default=1, metavar="N",
                      help="cases run at once, each in its own process (default: 1)")
+    run.add_argument("--require-all", action="store_true",
+                     help="a case the code reports unsupported (harness.Unsupported, "
+                     "or a command's exit status 77 / unsupported.txt) fails (default: "
+                     "it is counted as unsupported, neither passed nor failed)"),
     ext = cert.add_argument_group("an external code instead of PLUGIN")
     ext.add_argument("--command", dest="command_template", metavar="TEMPLATE",
                      help="run this command per case in a scratch folder, e.g. \"./my_scf "
@@ -338,9 +353,13 @@ def build_parser() -> argparse.ArgumentParser:
 
     cases = sub.add_parser("cases", help="list the catalogue",
                            description="List the catalogue's cases (name, method, basis, "
-                           "number of AOs, suites, note).")
-    cases.add_argument("--suite", action="append", dest="suites", default=None, metavar="NAME",
-                       help="only the cases of this suite (repeatable; default: all cases)")
+                           "number of AOs, suites, note): all of them, or the selection "
+                           "--suite, --case, --basis and --method make, as certify would "
+                           "run it.")
+    listed = _add_selection(cases, "every catalogue case", cases_file=True)
+    listed.add_argument("--cases-file", type=Path, metavar="FILE",
+                        help="also list the cases of this TOML suite file (as certify "
+                        "--cases-file; default: none)")
 
     selftest = sub.add_parser("selftest", help="run the built-in planted-bug plug-ins and "
                               "check that each is caught by the checks meant to catch it",
@@ -359,22 +378,31 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def select_cases(suites: Sequence[str] | None, case_names: Sequence[str] | None,
-                 cases_file: Path | None = None, *, default_suite: str | None = DEFAULT_SUITE):
+                 cases_file: Path | None = None, *, default_suite: str | None = DEFAULT_SUITE,
+                 bases: Sequence[str] | None = None, methods: Sequence[str] | None = None):
     """The cases named by the options, in order, without duplicates.
 
     Returns ``(cases, suite_names)``. With no suite, case or file given, the
     ``default_suite`` (or, if None, the whole catalogue) is used. A ``cases_file``
     adds all its cases, unless case names are given: then each name is looked up in
     the file first, then in the catalogue, and only the named cases (and suites) run.
+    A case name with ``*``, ``?`` or ``[...]`` is a shell-style pattern (``fnmatch``)
+    matched against the file's cases and the catalogue's; one that matches nothing is
+    a one-line CaseError naming it with the closest case names. ``bases`` (compared as
+    ``harness.catalogue.cases.basis_key``) and ``methods`` then keep only the cases with
+    one of those bases and methods; a filter that leaves nothing is a UsageError
+    naming what the selection holds.
     """
-    from harness.catalogue.cases import load_catalogue, load_user_suite
+    from harness.catalogue.cases import (filter_cases, is_pattern, load_catalogue,
+                                         load_user_suite, matching, no_match)
 
     chosen = []
     suite_names = list(suites or [])
     if not suite_names and not case_names and cases_file is None:
         if default_suite is None:
-            return list(load_catalogue().cases), []
-        suite_names = [default_suite]
+            chosen = list(load_catalogue().cases)
+        else:
+            suite_names = [default_suite]
     own = {}
     if cases_file is not None:
         if not cases_file.is_file():
@@ -385,7 +413,13 @@ def select_cases(suites: Sequence[str] | None, case_names: Sequence[str] | None,
     for name in suite_names:
         chosen.extend(catalogue.suite(name))
     for name in case_names or []:
-        chosen.append(own[name] if name in own else catalogue.case(name))
+        if isinstance(name, str) and is_pattern(name):
+            found = matching(name, own.values()) + matching(name, catalogue.cases)
+            if not found:
+                raise no_match(name, list(own) + list(catalogue.names))
+            chosen.extend(found)
+        else:
+            chosen.append(own[name] if name in own else catalogue.case(name))
     if not case_names:
         chosen.extend(own.values())
     seen, unique = set(), []
@@ -393,6 +427,16 @@ def select_cases(suites: Sequence[str] | None, case_names: Sequence[str] | None,
         if case.name not in seen:
             seen.add(case.name)
             unique.append(case)
+    if bases or methods:
+        kept = filter_cases(unique, bases=bases, methods=methods)
+        if unique and not kept:
+            asked = [f"--basis {' / '.join(bases)}"] if bases else []
+            asked += [f"--method {' / '.join(methods)}"] if methods else []
+            held = sorted({f"{c.method}/{c.basis}" for c in unique})
+            raise UsageError(f"{' and '.join(asked)}: no selected case has "
+                             f"{'these' if len(asked) > 1 else 'this'} (the "
+                             f"{len(unique)} selected have {', '.join(held)})")
+        unique = kept
     return unique, suite_names
 
 
@@ -477,7 +521,8 @@ def _plugin(args):
 
 
 def _write_certificate(path: Path, outcome, *, tolerances, plugin: str, console,
-                       quiet: bool, ao_convention: str | None, stability: str) -> None:
+                       quiet: bool, ao_convention: str | None, stability: str,
+                       require_all: bool = False) -> None:
     """Write the certificate of the cases whose problem could be built (the others
     have no inputs to certify), recording the evaluation options (--ao-convention,
     --stability) that a recompute must use again."""
@@ -486,7 +531,8 @@ def _write_certificate(path: Path, outcome, *, tolerances, plugin: str, console,
     results = [r for r in outcome.cases if r.name in outcome.problems]
     write_certificate(path, results, problems=outcome.problems, solutions=outcome.solutions,
                       references=outcome.references, tolerances=tolerances, plugin=plugin,
-                      ao_convention=ao_convention, stability=stability)
+                      ao_convention=ao_convention, stability=stability,
+                      require_all=require_all)
     if not quiet:
         console.print(f"certificate: {path} (solutions in {sidecar_path(path).name})",
                       markup=False, soft_wrap=True)
@@ -498,7 +544,8 @@ def _certify(args, console) -> int:
 
     plugin, label = _plugin(args)
     tolerances = _tolerances(args)
-    cases, suite_names = select_cases(args.suites, args.case_names, args.cases_file)
+    cases, suite_names = select_cases(args.suites, args.case_names, args.cases_file,
+                                      bases=args.bases, methods=args.methods)
     if not cases:
         raise UsageError("no cases selected")
     if (args.references is not None and not args.references.is_dir()
@@ -528,14 +575,16 @@ def _certify(args, console) -> int:
                             stability=args.stability, timeout=args.timeout,
                             jobs=args.jobs, reference_dir=args.references,
                             write_references=args.write_references, results_path=partial,
-                            on_result=on_result, plugin_checked=True)
+                            on_result=on_result, plugin_checked=True,
+                            require_all=args.require_all)
         if not args.quiet and outcome.cases:
             console.print()
         report.render(outcome, console, quiet=args.quiet)
         if args.json is not None:
             data = report.to_json(outcome, plugin=label, suite_names=suite_names,
                                   tolerances_table=tolerances.table(convergence),
-                                  versions=report.collect_versions())
+                                  versions=report.collect_versions(),
+                                  require_all=args.require_all)
             data["convergence"] = convergence
             data["timeout_seconds"] = args.timeout
             if args.cases_file is not None:
@@ -546,7 +595,8 @@ def _certify(args, console) -> int:
         if args.certificate is not None:
             _write_certificate(args.certificate, outcome, tolerances=tolerances, plugin=label,
                                console=console, quiet=args.quiet,
-                               ao_convention=args.ao_convention, stability=args.stability)
+                               ao_convention=args.ao_convention, stability=args.stability,
+                               require_all=args.require_all)
     return 0 if outcome.passed else 1
 
 
@@ -694,7 +744,8 @@ def _references(args, console) -> int:
     from harness.catalogue import references
     if args.action is None:
         raise UsageError("references needs an action: build or verify")
-    cases, _ = select_cases(args.suites, args.case_names, default_suite=None)
+    cases, _ = select_cases(args.suites, args.case_names, default_suite=None,
+                            bases=args.bases, methods=args.methods)
     directory = args.references
     if args.action == "verify" and directory is not None and not directory.is_dir():
         raise UsageError(f"--references: not a folder: {directory}")
@@ -729,7 +780,8 @@ def _cases(args, console) -> int:
     from harness.catalogue.cases import load_catalogue
 
     catalogue = load_catalogue()
-    cases, _ = select_cases(args.suites, None, default_suite=None)
+    cases, _ = select_cases(args.suites, args.case_names, args.cases_file,
+                            default_suite=None, bases=args.bases, methods=args.methods)
     table = Table(box=box.SIMPLE_HEAD, pad_edge=False, show_edge=False)
     for column in ("case", "method", "basis", "nao", "suites", "note"):
         table.add_column(column, no_wrap=column != "note",

@@ -15,6 +15,7 @@ over its key, and ``--scf-tol`` wins per check over ``tolerances``)::
     timeout = 600                      # seconds per case (the plug-in call)
     convergence = 1e-6                 # stationarity asked of the plug-in (atomic units)
     stability = "internal"             # internal | external | off (as certify --stability)
+    require_all = false                # true: a case the code reports unsupported fails
 
 This module imports only the standard library, ``harness.contract.errors``,
 ``harness.contract.defaults`` and, when needed, ``harness.checks.tolerances`` (all light),
@@ -52,7 +53,8 @@ STABILITY_CHOICES = _defaults.STABILITY_MODES
 DEFAULT_STABILITY = _defaults.DEFAULT_STABILITY
 
 #: The keys of the table, in the order the documentation lists them.
-KEYS = ("plugin", "suite", "cases_file", "tolerances", "timeout", "convergence", "stability")
+KEYS = ("plugin", "suite", "cases_file", "tolerances", "timeout", "convergence", "stability",
+        "require_all")
 
 
 class ConfigError(HarnessError):
@@ -69,6 +71,8 @@ class Settings:
     ``tolerances``: check name → absolute tolerance.
     ``timeout``: seconds per case. ``convergence``: the stationarity asked, or None for
     the default. ``stability``: one of STABILITY_CHOICES, as ``certify --stability``.
+    ``require_all``: a case the code reports unsupported (``harness.Unsupported``) fails
+    instead of being skipped, as ``certify --require-all``.
     ``source``: the pyproject.toml that was read ("" if none); ``from_flags``: the
     names of the settings that came from flags.
     """
@@ -80,6 +84,7 @@ class Settings:
     timeout: float = DEFAULT_TIMEOUT
     convergence: float | None = None
     stability: str = DEFAULT_STABILITY
+    require_all: bool = False
     source: str = ""
     from_flags: frozenset = frozenset()
 
@@ -104,6 +109,8 @@ class Settings:
             parts += ["--timeout", f"{self.timeout:g}"]
         if self.stability != DEFAULT_STABILITY:
             parts += ["--stability", self.stability]
+        if self.require_all:
+            parts.append("--require-all")
         return " ".join(parts)
 
 
@@ -227,8 +234,15 @@ def _stability(value, where, field) -> str:
     return value.strip().lower()
 
 
+def _boolean(value, where, field) -> bool:
+    if not isinstance(value, bool):
+        raise ConfigError(f"expected true or false, got {value!r}", case=where, field=field)
+    return value
+
+
 _PARSERS = {"plugin": _plugin, "suite": _suites, "tolerances": _tolerances,
-            "timeout": _timeout, "convergence": _convergence, "stability": _stability}
+            "timeout": _timeout, "convergence": _convergence, "stability": _stability,
+            "require_all": _boolean}
 
 
 def parse_table(table: Mapping[str, Any], source: str = "pyproject.toml") -> dict[str, Any]:
@@ -254,7 +268,8 @@ def parse_table(table: Mapping[str, Any], source: str = "pyproject.toml") -> dic
 def parse_flags(*, plugin: str | None = None, suites: Sequence[str] | None = None,
                 tolerances: Sequence[str] | None = None, timeout: str | None = None,
                 convergence: str | None = None, stability: str | None = None,
-                cases_file: str | None = None, base=None) -> dict[str, Any]:
+                cases_file: str | None = None, require_all: bool | None = None,
+                base=None) -> dict[str, Any]:
     """Validate the ``--scf-…`` flag values (strings as typed; None: not given).
 
     ``tolerances`` are ``CHECK=VALUE`` strings as for ``--tol``; a relative
@@ -287,6 +302,8 @@ def parse_flags(*, plugin: str | None = None, suites: Sequence[str] | None = Non
         out["convergence"] = _convergence(convergence, None, "--scf-convergence")
     if stability is not None:
         out["stability"] = _stability(stability, None, "--scf-stability")
+    if require_all:
+        out["require_all"] = True
     return out
 
 
@@ -303,7 +320,8 @@ def resolve(flags: Mapping[str, Any], keys: Mapping[str, Any], source: str = "")
     return Settings(plugin=pick("plugin", None), suites=tuple(suites), cases_file=cases_file,
                     tolerances=tolerances, timeout=float(pick("timeout", DEFAULT_TIMEOUT)),
                     convergence=pick("convergence", None),
-                    stability=pick("stability", DEFAULT_STABILITY), source=source,
+                    stability=pick("stability", DEFAULT_STABILITY),
+                    require_all=bool(pick("require_all", False)), source=source,
                     from_flags=frozenset(flags))
 
 

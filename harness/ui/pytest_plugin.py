@@ -18,7 +18,9 @@ hints, then the verdict table, then a ``reproduce: scf-harness certify ...`` lin
 
 Options (group "scf-harness"; each also a key of ``[tool.scf-harness]``, the flag wins):
 ``--scf-plugin``, ``--scf-suite``, ``--scf-cases-file``, ``--scf-tol``, ``--scf-timeout``,
-``--scf-convergence``, ``--scf-stability``. pytest's ``addini`` is not used: ini keys live in
+``--scf-convergence``, ``--scf-stability``, ``--scf-require-all``. A case the plug-in
+reports unsupported (``harness.Unsupported``) is skipped with its reason, or fails with
+``--scf-require-all``. pytest's ``addini`` is not used: ini keys live in
 ``[tool.pytest.ini_options]``, and the harness's own table is read by
 :mod:`harness.ui.config`, so that flag and key have one parser and one meaning.
 
@@ -37,7 +39,7 @@ import pytest
 
 from harness.checks import table as _table
 from harness.ui import config as _config
-from harness.contract.errors import CaseError, HarnessError
+from harness.contract.errors import CaseError, HarnessError, Unsupported
 
 #: Node id (and name) of the collector that holds the generated case items.
 SUITE_NODE = "scf-harness"
@@ -84,6 +86,11 @@ def pytest_addoption(parser: pytest.Parser) -> None:
                     help="stationarity asked of the plug-in: max|X(FPS - SPF)X|, X = S^-1/2, "
                     "in (0, 1); the derived tolerances follow it. Key: convergence. "
                     f"Default: {_config.DEFAULT_CONVERGENCE:g}")
+    group.addoption("--scf-require-all", dest="scf_require_all", action="store_true",
+                    default=None,
+                    help="a case the code reports unsupported (harness.Unsupported) fails "
+                    "instead of being skipped; as certify --require-all. Key: require_all "
+                    "(true/false). Default: skipped with the reason")
     group.addoption("--scf-stability", dest="scf_stability", default=None,
                     metavar="|".join(_config.STABILITY_CHOICES),
                     help="orbital stability analysis of the code's solution, as certify "
@@ -103,6 +110,7 @@ def pytest_configure(config: pytest.Config) -> None:
             convergence=getattr(opt, "scf_convergence", None),
             stability=getattr(opt, "scf_stability", None),
             cases_file=getattr(opt, "scf_cases_file", None),
+            require_all=getattr(opt, "scf_require_all", None),
             base=config.invocation_params.dir)
         pyproject = _config.pyproject_for(config.rootpath, config.inipath)
         settings = _config.load_settings(pyproject, flags)
@@ -131,7 +139,8 @@ def pytest_report_header(config: pytest.Config) -> str | None:
     if settings.cases_file is not None:
         chosen.append(f"cases file {settings.cases_file}")
     return (f"scf-harness: {settings.plugin} on {' and '.join(chosen)}, "
-            f"timeout {settings.timeout:g} s, stability {settings.stability}{source}")
+            f"timeout {settings.timeout:g} s, stability {settings.stability}"
+            f"{', require-all' if settings.require_all else ''}{source}")
 
 
 # --------------------------------------------------------------------------- collection
@@ -201,11 +210,14 @@ class CaseItem(pytest.Item):
         outcome = run_cases([self.case], settings.plugin,
                             tolerances=Tolerances(overrides=dict(settings.tolerances)),
                             timeout=settings.timeout, convergence=settings.convergence,
-                            stability=settings.stability, plugin_checked=True)
+                            stability=settings.stability, plugin_checked=True,
+                            require_all=settings.require_all)
         if outcome.interrupted or not outcome.cases:
             raise KeyboardInterrupt
         result = outcome.cases[0]
         self.user_properties.append(("scf-harness energy (Eh)", result.energy))
+        if result.status == "unsupported":
+            pytest.skip(f"unsupported: {result.unsupported}")
         if not result.passed:
             raise CaseFailed(result, settings.reproduce_command(self.case.name))
 
@@ -296,8 +308,11 @@ def scf_check(request, scf_case):
     """``scf_check(solution, case, *, reference=None, ao_convention=None)`` runs every
     harness check (``harness.verdict.judge.judge``, as ``certify`` does).
 
-    ``solution`` is a plug-in return value (Eh); ``case`` a Case, a case name or a
-    Problem (bohr). The reference of a Case is found as ``certify`` finds it (the stored
+    ``solution`` is a plug-in return value (Eh), or the ``harness.Unsupported`` your code
+    raised; ``case`` a Case, a case name or a Problem (bohr). An unsupported case is
+    skipped (``pytest.skip("unsupported: <reason>")``), and so is a test using this
+    fixture that raises ``harness.Unsupported`` itself; with ``--scf-require-all`` (key
+    ``require_all``) either fails instead. The reference of a Case is found as ``certify`` finds it (the stored
     one when it matches, else computed by pyscf); when there is none, reference-energy
     fails with the reason. Pass ``reference=`` to give one; a Problem has none
     (reference-energy is then not applicable). ``ao_convention`` names the code's AO
@@ -327,6 +342,8 @@ def scf_check(request, scf_case):
         if reference is not None and not hasattr(reference, "energy"):
             raise CaseError(f"reference: expected a Reference (from scf_reference), got "
                             f"{type(reference).__name__}", field="scf_check")
+        if isinstance(solution, Unsupported):
+            _unsupported(solution, settings)
         source, reference_error = None, None
         if isinstance(case, Problem):
             problem = case
@@ -353,6 +370,28 @@ def scf_check(request, scf_case):
         return result.checks
 
     return check
+
+
+def _unsupported(exc: Unsupported, settings: _config.Settings):
+    """Skip the test for an unsupported case, or fail it under require-all."""
+    __tracebackhide__ = True
+    reason = getattr(exc, "reason", None) or str(exc) or "no reason given"
+    if settings.require_all:
+        pytest.fail(f"unsupported: {reason} (require-all: every case must run)",
+                    pytrace=False)
+    pytest.skip(f"unsupported: {reason}")
+
+
+@pytest.hookimpl(wrapper=True)
+def pytest_pyfunc_call(pyfuncitem):
+    """A test that uses ``scf_check`` and raises ``harness.Unsupported`` (its code cannot
+    run the case) is skipped with the reason, or fails under require-all."""
+    try:
+        return (yield)
+    except Unsupported as exc:
+        if "scf_check" not in getattr(pyfuncitem, "fixturenames", ()):
+            raise
+        _unsupported(exc, settings_of(pyfuncitem.config))
 
 
 def _reference_of(case):

@@ -91,3 +91,17 @@ def test_the_scanner_sees_every_kind_of_import():
     found = list(_import_names(source, ["harness", "checks"]))
     assert [line for line, name in found if _is(name, "pyscf")] == [4, 4, 7]
     assert [line for line, name in found if _is(name, "harness.backend")] == [11, 12, 12]
+
+
+def test_only_the_backend_reads_the_private_basis():
+    """``mol._basis`` (pyscf's private basis dictionary) is read in harness/backend/ only;
+    everyone else uses ``harness.backend.mole.basis_set`` / ``Problem.basis_set``."""
+    offenders = [f"{_relative(p)}:{node.lineno} reads ._basis" for p in _modules()
+                 if not _in(p, "backend")
+                 for node in ast.walk(ast.parse(p.read_text(encoding="utf-8")))
+                 if isinstance(node, ast.Attribute) and node.attr == "_basis"]
+    assert not offenders, "\n".join(offenders)
+    seen = [node for p in _modules() if _in(p, "backend")
+            for node in ast.walk(ast.parse(p.read_text(encoding="utf-8")))
+            if isinstance(node, ast.Attribute) and node.attr == "_basis"]
+    assert seen  # the scan sees the one reader

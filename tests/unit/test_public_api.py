@@ -10,9 +10,9 @@ import harness
 EXPECTED = {
     "CHECK_NAMES", "Case", "CaseError", "CaseResult", "CheckResult", "DEFAULT_CONVERGENCE",
     "HarnessError", "JudgeSettings", "Measurement", "PluginLoadError", "Problem", "Reference",
-    "ReferenceDataError", "RunOutcome", "Status", "ToleranceError", "Tolerances",
-    "Solution", "__version__", "compute_reference", "evaluate", "extract", "judge",
-            "load_catalogue",
+    "ReferenceDataError", "RunOutcome", "Solution", "Status", "ToleranceError", "Tolerances",
+    "Unsupported", "__version__", "compute_reference", "evaluate", "extract", "judge",
+    "load_catalogue",
     "load_plugin", "load_suite_file", "reference_for", "run_cases",
 }
 

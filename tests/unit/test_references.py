@@ -90,14 +90,19 @@ def test_hash_depends_on_every_input(catalogue, monkeypatch):
     # the name alone does not enter the hash
     assert refs.input_hash(dataclasses.replace(case, name="renamed")) == base
     # a changed basis definition (same name) invalidates the reference
-    original = Case.mole
+    from harness.backend import mole as backend_mole
+    from harness.contract.basis import Shell
 
-    def edited(self):
-        mol = original(self)
-        mol._basis["H"][0][1][0] *= 1.0001
-        return mol
+    original = backend_mole.basis_set
 
-    monkeypatch.setattr(Case, "mole", edited)
+    def edited(mol):
+        basis = original(mol)
+        first = basis["H"][0]
+        moved = (first.exponents[0] * 1.0001,) + first.exponents[1:]
+        basis["H"] = (Shell(first.l, moved, first.coefficients),) + basis["H"][1:]
+        return basis
+
+    monkeypatch.setattr(backend_mole, "basis_set", edited)
     assert refs.input_hash(case) != base
 
 
