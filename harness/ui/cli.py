@@ -336,11 +336,16 @@ def build_parser() -> argparse.ArgumentParser:
     verify.add_argument("--references", type=Path, metavar="DIR",
                         help=REFERENCES_HELP)
 
-    cases = sub.add_parser("cases", help="list the catalogue",
+    cases = sub.add_parser("cases", help="list the catalogue (or a suite file's cases)",
                            description="List the catalogue's cases (name, method, basis, "
-                           "number of AOs, suites, note).")
+                           "number of AOs, suites, note), or with --cases-file the cases of "
+                           "a suite file, its [[matrix]] tables expanded, and their count.")
     cases.add_argument("--suite", action="append", dest="suites", default=None, metavar="NAME",
-                       help="only the cases of this suite (repeatable; default: all cases)")
+                       help="only the cases of this suite (repeatable; default: all cases, "
+                       "or none with --cases-file)")
+    cases.add_argument("--cases-file", type=Path, metavar="FILE",
+                       help="a TOML suite file of your own: list its cases, with every "
+                       "[[matrix]] expanded (default: none)")
 
     selftest = sub.add_parser("selftest", help="run the built-in planted-bug plug-ins and "
                               "check that each is caught by the checks meant to catch it",
@@ -729,7 +734,11 @@ def _cases(args, console) -> int:
     from harness.catalogue.cases import load_catalogue
 
     catalogue = load_catalogue()
-    cases, _ = select_cases(args.suites, None, default_suite=None)
+    cases_file = getattr(args, "cases_file", None)
+    if cases_file is not None and not args.suites:
+        cases, _ = select_cases(None, None, cases_file, default_suite=None)
+    else:
+        cases, _ = select_cases(args.suites, None, cases_file, default_suite=None)
     table = Table(box=box.SIMPLE_HEAD, pad_edge=False, show_edge=False)
     for column in ("case", "method", "basis", "nao", "suites", "note"):
         table.add_column(column, no_wrap=column != "note",
@@ -739,8 +748,24 @@ def _cases(args, console) -> int:
         table.add_row(case.name, case.method, basis, _nao(case), ",".join(case.suites),
                       case.note)
     console.print(table)
+    if cases_file is not None and not args.suites:
+        console.print(f"{len(cases)} case{'s' if len(cases) != 1 else ''} "
+                      f"({_expansion_counts(cases_file, len(cases))})", markup=False,
+                      soft_wrap=True)
+        return 0
     console.print(f"{len(cases)} cases; suites: {', '.join(catalogue.suites)}", markup=False)
     return 0
+
+
+def _expansion_counts(cases_file: Path, total: int) -> str:
+    """``"<n> from [[case]] tables, <m> from [[matrix]] tables"`` of a suite file that
+    expanded into ``total`` cases (already read without error by the caller)."""
+    import tomllib
+
+    with open(cases_file, "rb") as fh:
+        data = tomllib.load(fh)
+    n_single = len(data.get("case", []))
+    return f"{n_single} from [[case]] tables, {total - n_single} from [[matrix]] tables"
 
 
 def _selftest(args, console) -> int:
@@ -780,7 +805,7 @@ def main(argv: Sequence[str] | None = None) -> int:
             return _selftest(args, console)
         return _cases(args, console)
     except (UsageError, HarnessError) as exc:
-        _error(str(exc))
+        _error(str(exc), getattr(exc, "problems", None))
         return 2
     except OSError as exc:
         _error(f"{exc.strerror or exc}: {exc.filename}" if exc.filename else str(exc))
@@ -790,7 +815,16 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 1
 
 
-def _error(message: str) -> None:
+def _error(message: str, problems: Sequence[str] | None = None) -> None:
+    """``scf-harness: error: <message>`` on one line; with ``problems`` (a
+    ``CaseListError``: bad entries found together) the first line of the message, then
+    one indented line per problem."""
+    if problems:
+        head = " ".join(str(message).splitlines()[0].split())
+        print(f"{PROG}: error: {head}", file=sys.stderr)
+        for problem in problems:
+            print("  " + " ".join(str(problem).split()), file=sys.stderr)
+        return
     line = " ".join(str(message).split())  # one line, whatever the message held
     print(f"{PROG}: error: {line}", file=sys.stderr)
 
