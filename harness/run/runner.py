@@ -454,6 +454,28 @@ def _judge_worker_init(threads: int) -> None:
         pass
 
 
+def _size(case) -> int:
+    """The number of basis functions of ``case`` (0 when it cannot be told): a cost
+    estimate for the launch order."""
+    try:
+        return int(case.mole().nao)
+    except Exception:
+        return 0
+
+
+def launch_order(cases: list, jobs: int) -> list[tuple[int, Any]]:
+    """``(index, case)`` in the order the cases are started: with one job the given
+    order; with more, the largest first (by number of basis functions, ties in the given
+    order), so that the longest case does not start last and run alone while the other
+    cores idle (a 114-AO benzene costs more than the other 27 standard cases together).
+    Results keep the given order."""
+    indexed = list(enumerate(cases))
+    if jobs <= 1 or len(indexed) <= 1:
+        return indexed
+    sizes = {i: _size(case) for i, case in indexed}
+    return sorted(indexed, key=lambda item: -sizes[item[0]])
+
+
 class JudgePool:
     """``workers`` judge worker processes (:func:`judge_case`), whose finished tasks the
     run loop waits for with its children: :attr:`fileno` becomes readable when a task
@@ -701,7 +723,8 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
               write_references: bool = False, results_path=None,
               on_start: Callable[[str], None] | None = None,
               on_result: Callable[[CaseResult], None] | None = None,
-              plugin_checked: bool = False) -> RunOutcome:
+              plugin_checked: bool = False, judge_workers: int | None = None
+              ) -> RunOutcome:
     """Run ``plugin_spec`` on each case in a child process and check the results here.
 
     ``plugin_spec`` is a ``MODULE:FUNCTION`` / ``path.py:FUNCTION`` string (re-imported
@@ -717,8 +740,13 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     when a case starts, ``on_result(case_result)`` when it is finished. Ctrl-C stops
     the children and returns the finished cases with ``interrupted=True``.
 
-    ``ao_convention`` and ``stability`` are passed to ``harness.verdict.judge.judge``, which
-    judges each solution here, in the harness process.
+    ``ao_convention`` and ``stability`` are passed to ``harness.verdict.judge.judge``.
+    ``judge_workers``: how many judge worker processes (:class:`JudgePool`, processes
+    that never run plug-in code) check the solutions and look the references up; 0
+    judges each solution here, in the harness process, one at a time. Default: ``jobs``
+    when ``jobs > 1`` (so the checks run in parallel as the plug-in calls do), else 0.
+    With more than one job the largest cases (by number of basis functions) start
+    first (:func:`launch_order`); results keep the input order.
 
     The outcome also holds, per case name, the problems, the extracted solutions and
     the references (for ``harness.report.certificate``).
@@ -750,11 +778,12 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     problems: dict[str, Any] = {}
     solutions: dict[str, Any] = {}
     references: dict[str, Any] = {}
-    pending = list(enumerate(cases))
+    pending = launch_order(cases, jobs)
     interrupted = False
     ctx = None
     # --jobs > 1: the checks run in judge workers, not one at a time here
-    pool = JudgePool(jobs) if jobs > 1 and len(cases) > 1 else None
+    workers = (jobs if jobs > 1 else 0) if judge_workers is None else int(judge_workers)
+    pool = JudgePool(workers) if workers > 0 and len(cases) > 1 else None
 
     def record(index: int, result: CaseResult) -> None:
         finished[index] = result
