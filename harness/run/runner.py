@@ -723,7 +723,8 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
               write_references: bool = False, results_path=None,
               on_start: Callable[[str], None] | None = None,
               on_result: Callable[[CaseResult], None] | None = None,
-              plugin_checked: bool = False, judge_workers: int | None = None
+              plugin_checked: bool = False, judge_workers: int | None = None,
+              reference_lookup: Callable[[Any], tuple[Any, str]] | None = None
               ) -> RunOutcome:
     """Run ``plugin_spec`` on each case in a child process and check the results here.
 
@@ -747,6 +748,9 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     when ``jobs > 1`` (so the checks run in parallel as the plug-in calls do), else 0.
     With more than one job the largest cases (by number of basis functions) start
     first (:func:`launch_order`); results keep the input order.
+    ``reference_lookup(case) -> (reference, source)`` replaces the usual lookup
+    (``reference_dir``, ``write_references``) in this process, e.g. the shared cache of
+    ``harness.run.cluster``; it is not used by judge workers (give ``judge_workers=0``).
 
     The outcome also holds, per case name, the problems, the extracted solutions and
     the references (for ``harness.report.certificate``).
@@ -818,8 +822,11 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
             return
         # The reference is looked up while the child works (a stored one is instant).
         try:
-            run.reference, run.reference_source = _reference(case, reference_dir,
-                                                             write_references)
+            if reference_lookup is not None:
+                run.reference, run.reference_source = reference_lookup(case)
+            else:
+                run.reference, run.reference_source = _reference(case, reference_dir,
+                                                                 write_references)
         except Exception as exc:
             run.reference_error = f"{type(exc).__name__}: {exc}".splitlines()[0]
         references[case.name] = run.reference

@@ -197,7 +197,17 @@ def build_parser() -> argparse.ArgumentParser:
                      help="seconds allowed for the plug-in on one case "
                      f"(default: {DEFAULT_TIMEOUT:g})")
     run.add_argument("--jobs", type=_positive_int, default=1, metavar="N",
-                     help="cases run at once, each in its own process (default: 1)")
+                     help="cases run at once, each in its own process; their checks also "
+                     "run N at a time, in processes of their own (default: 1)")
+    run.add_argument("--scheduler", metavar="ADDRESS",
+                     help="run each case as a task on a Dask cluster: tcp://HOST:PORT of a "
+                     "running scheduler, or local:N to start N worker processes on this "
+                     "machine; needs the cluster extra (pip install -e \".[cluster]\"); see "
+                     "docs/cluster.md (default: none, cases run here)")
+    run.add_argument("--reference-cache", type=Path, metavar="DIR",
+                     help="with --scheduler: the shared folder where workers keep the "
+                     "references they compute, by input hash (default: "
+                     "$SCF_HARNESS_REFERENCE_CACHE or ~/.cache/scf-harness/references)")
     ext = cert.add_argument_group("an external code instead of PLUGIN")
     ext.add_argument("--command", dest="command_template", metavar="TEMPLATE",
                      help="run this command per case in a scratch folder, e.g. \"./my_scf "
@@ -458,6 +468,26 @@ def _distinct_outputs(args) -> None:
         seen[key] = option
 
 
+def _scheduler(args) -> str | None:
+    """``--scheduler``, checked (an address or local:N; dask.distributed installed), or
+    None; ``--reference-cache`` only with it; not together with ``--jobs``."""
+    if args.scheduler is None:
+        if args.reference_cache is not None:
+            raise UsageError("--reference-cache needs --scheduler")
+        return None
+    if args.jobs != 1:
+        raise UsageError("give either --jobs or --scheduler, not both (a cluster runs as "
+                         "many cases at once as it has workers)")
+    from harness.run.cluster import parse_scheduler, require_dask
+
+    scheduler = parse_scheduler(args.scheduler)
+    require_dask()
+    if args.reference_cache is not None and args.reference_cache.exists() \
+            and not args.reference_cache.is_dir():
+        raise UsageError(f"--reference-cache: not a folder: {args.reference_cache}")
+    return scheduler
+
+
 def _tolerances(args):
     from harness.checks.tolerances import Tolerances, parse_override
 
@@ -511,8 +541,10 @@ def _certify(args, console) -> int:
         raise UsageError(f"--references: not a folder: {args.references}")
 
     _distinct_outputs(args)
-    # loads the plug-in in a child process: what its import does cannot reach this one
-    check_plugin(plugin, timeout=args.timeout)
+    scheduler = _scheduler(args)
+    if scheduler is None:
+        # loads the plug-in in a child process: what its import does cannot reach this one
+        check_plugin(plugin, timeout=args.timeout)
     convergence = args.convergence if args.convergence is not None else DEFAULT_CONVERGENCE
     partial = None
     if args.json is not None:
@@ -524,16 +556,30 @@ def _certify(args, console) -> int:
     if not args.quiet:
         console.print(f"scf-harness: {label} on {len(cases)} case"
                       f"{'s' if len(cases) != 1 else ''} ({selection}), convergence "
-                      f"{convergence:g}, timeout {args.timeout:g} s, jobs {args.jobs}",
+                      f"{convergence:g}, timeout {args.timeout:g} s, "
+                      + (f"scheduler {scheduler}" if scheduler else f"jobs {args.jobs}"),
                       markup=False, soft_wrap=True)
     on_result = None if args.quiet else (lambda r: report.print_progress(console, r))
     with _signals_as_interrupt():
-        outcome = run_cases(cases, plugin, tolerances=tolerances,
-                            convergence=args.convergence, ao_convention=args.ao_convention,
-                            stability=args.stability, timeout=args.timeout,
-                            jobs=args.jobs, reference_dir=args.references,
-                            write_references=args.write_references, results_path=partial,
-                            on_result=on_result, plugin_checked=True)
+        if scheduler is not None:
+            from harness.run.cluster import run_cases_on_cluster
+
+            # the plug-in is loaded on every worker first (in a child process there)
+            outcome = run_cases_on_cluster(
+                cases, plugin, scheduler=scheduler, tolerances=tolerances,
+                convergence=args.convergence, ao_convention=args.ao_convention,
+                stability=args.stability, timeout=args.timeout,
+                reference_dir=args.references, reference_cache=args.reference_cache,
+                write_references=args.write_references, results_path=partial,
+                on_result=on_result, plugin_checked=False)
+        else:
+            outcome = run_cases(cases, plugin, tolerances=tolerances,
+                                convergence=args.convergence,
+                                ao_convention=args.ao_convention, stability=args.stability,
+                                timeout=args.timeout, jobs=args.jobs,
+                                reference_dir=args.references,
+                                write_references=args.write_references, results_path=partial,
+                                on_result=on_result, plugin_checked=True)
         if not args.quiet and outcome.cases:
             console.print()
         report.render(outcome, console, quiet=args.quiet)
