@@ -309,7 +309,10 @@ class ClusterRun:
         try:
             if m:
                 n = int(m.group(1))
-                threads = max(1, (os.cpu_count() or 1) // n)
+                # each worker's share of the cores for pyscf's OpenMP threads, unless
+                # the environment says otherwise
+                threads = os.environ.get("OMP_NUM_THREADS") or max(1, (os.cpu_count() or 1)
+                                                                  // n)
                 self._cluster = distributed.LocalCluster(
                     n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
                     dashboard_address=":0", silence_logs=logging.CRITICAL, memory_limit=0,

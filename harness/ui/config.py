@@ -15,6 +15,8 @@ over its key, and ``--scf-tol`` wins per check over ``tolerances``)::
     timeout = 600                      # seconds per case (the plug-in call)
     convergence = 1e-6                 # stationarity asked of the plug-in (atomic units)
     stability = "internal"             # internal | external | off (as certify --stability)
+    scheduler = "local:2"              # a Dask cluster: tcp://HOST:PORT or local:N (as
+                                       # certify --scheduler; needs the cluster extra)
 
 This module imports only the standard library, ``harness.contract.errors``,
 ``harness.contract.defaults`` and, when needed, ``harness.checks.tolerances`` (all light),
@@ -52,7 +54,8 @@ STABILITY_CHOICES = _defaults.STABILITY_MODES
 DEFAULT_STABILITY = _defaults.DEFAULT_STABILITY
 
 #: The keys of the table, in the order the documentation lists them.
-KEYS = ("plugin", "suite", "cases_file", "tolerances", "timeout", "convergence", "stability")
+KEYS = ("plugin", "suite", "cases_file", "tolerances", "timeout", "convergence", "stability",
+        "scheduler")
 
 
 class ConfigError(HarnessError):
@@ -69,6 +72,8 @@ class Settings:
     ``tolerances``: check name → absolute tolerance.
     ``timeout``: seconds per case. ``convergence``: the stationarity asked, or None for
     the default. ``stability``: one of STABILITY_CHOICES, as ``certify --stability``.
+    ``scheduler``: a Dask scheduler address or ``local:N`` (the cases then run as tasks
+    on that cluster, ``harness.run.cluster``), or None (each item runs its case here).
     ``source``: the pyproject.toml that was read ("" if none); ``from_flags``: the
     names of the settings that came from flags.
     """
@@ -80,6 +85,7 @@ class Settings:
     timeout: float = DEFAULT_TIMEOUT
     convergence: float | None = None
     stability: str = DEFAULT_STABILITY
+    scheduler: str | None = None
     source: str = ""
     from_flags: frozenset = frozenset()
 
@@ -227,7 +233,21 @@ def _stability(value, where, field) -> str:
     return value.strip().lower()
 
 
-_PARSERS = {"plugin": _plugin, "suite": _suites, "tolerances": _tolerances,
+def _scheduler(value, where, field) -> str:
+    """``tcp://HOST:PORT`` or ``local:N``, checked by ``harness.run.cluster`` (imported
+    only when a scheduler is given)."""
+    from harness.run.cluster import parse_scheduler
+
+    if not isinstance(value, str):
+        raise ConfigError(f"expected tcp://HOST:PORT or local:N, got {value!r}", case=where,
+                          field=field)
+    try:
+        return parse_scheduler(value)
+    except HarnessError as exc:
+        raise ConfigError(exc.detail, case=where, field=field) from None
+
+
+_PARSERS = {"scheduler": _scheduler, "plugin": _plugin, "suite": _suites, "tolerances": _tolerances,
             "timeout": _timeout, "convergence": _convergence, "stability": _stability}
 
 
@@ -254,7 +274,8 @@ def parse_table(table: Mapping[str, Any], source: str = "pyproject.toml") -> dic
 def parse_flags(*, plugin: str | None = None, suites: Sequence[str] | None = None,
                 tolerances: Sequence[str] | None = None, timeout: str | None = None,
                 convergence: str | None = None, stability: str | None = None,
-                cases_file: str | None = None, base=None) -> dict[str, Any]:
+                cases_file: str | None = None, base=None,
+                scheduler: str | None = None) -> dict[str, Any]:
     """Validate the ``--scf-…`` flag values (strings as typed; None: not given).
 
     ``tolerances`` are ``CHECK=VALUE`` strings as for ``--tol``; a relative
@@ -287,6 +308,8 @@ def parse_flags(*, plugin: str | None = None, suites: Sequence[str] | None = Non
         out["convergence"] = _convergence(convergence, None, "--scf-convergence")
     if stability is not None:
         out["stability"] = _stability(stability, None, "--scf-stability")
+    if scheduler is not None:
+        out["scheduler"] = _scheduler(scheduler, None, "--scf-scheduler")
     return out
 
 
@@ -303,7 +326,8 @@ def resolve(flags: Mapping[str, Any], keys: Mapping[str, Any], source: str = "")
     return Settings(plugin=pick("plugin", None), suites=tuple(suites), cases_file=cases_file,
                     tolerances=tolerances, timeout=float(pick("timeout", DEFAULT_TIMEOUT)),
                     convergence=pick("convergence", None),
-                    stability=pick("stability", DEFAULT_STABILITY), source=source,
+                    stability=pick("stability", DEFAULT_STABILITY),
+                    scheduler=pick("scheduler", None), source=source,
                     from_flags=frozenset(flags))
 
 
