@@ -5,7 +5,8 @@ XYZ files are in ångström by the XYZ convention, unless their comment line car
 token ``units=bohr``. Inside the harness every coordinate is in **bohr**.
 
 The bundled catalogue is ``references/cases.toml``; users can write their own suite
-files in the same format (:func:`load_suite_file`).
+files in the same format (:func:`load_suite_file`), which may also declare case
+matrices (``[[matrix]]`` tables: geometries × bases × methods, ``harness.catalogue.matrix``).
 """
 
 from __future__ import annotations
@@ -456,11 +457,13 @@ def _read_cases(path, require_suites: bool) -> tuple[Case, ...]:
 
 
 def load_suite_file(path) -> tuple[Case, ...]:
-    """Read a user's suite file: ``[[case]]`` tables as in ``references/cases.toml``.
+    """Read a user's suite file: ``[[case]]`` tables as in ``references/cases.toml``, then
+    the cases of its ``[[matrix]]`` tables (``harness.catalogue.matrix``).
 
     Geometry paths are relative to the suite file; ``suites``, ``note``, ``charge``
     (0), ``multiplicity`` (1) and ``cartesian`` (false) are optional. Every field is
-    validated; problems raise a one-line :class:`CaseError` of the form
+    validated and every problem collected: several raise one :class:`CaseListError`
+    (one line per problem), a single one a one-line :class:`CaseError` of the form
     ``"<file>: case '<name>': <field>: <what is wrong>"``.
     """
     return _read_cases(path, require_suites=False)
