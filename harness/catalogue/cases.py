@@ -5,7 +5,8 @@ XYZ files are in ångström by the XYZ convention, unless their comment line car
 token ``units=bohr``. Inside the harness every coordinate is in **bohr**.
 
 The bundled catalogue is ``references/cases.toml``; users can write their own suite
-files in the same format (:func:`load_suite_file`).
+files in the same format (:func:`load_suite_file`), which may also declare case
+matrices (``[[matrix]]`` tables: geometries × bases × methods, ``harness.catalogue.matrix``).
 """
 
 from __future__ import annotations
@@ -24,7 +25,7 @@ from typing import Any
 
 import numpy as np
 
-from harness.contract.errors import CaseError
+from harness.contract.errors import CaseError, CaseListError
 from harness.contract.problem import DEFAULT_CONVERGENCE, METHODS, Problem, closest_pair
 from harness.contract.units import ANGSTROM_IN_BOHR
 
@@ -321,12 +322,13 @@ def _type_name(t) -> str:
 
 
 def _case_from_table(table: Any, index: int, base: Path, where: str,
-                     require_suites: bool) -> Case:
+                     require_suites: bool, label: str | None = None) -> Case:
     if not isinstance(table, dict):
         raise CaseError(f"case #{index} is not a table", case=where)
     raw_name = table.get("name")
-    label = f"{where}: case '{raw_name}'" if isinstance(raw_name, str) and raw_name \
-        else f"{where}: case #{index}"
+    if label is None:
+        label = f"{where}: case '{raw_name}'" if isinstance(raw_name, str) and raw_name \
+            else f"{where}: case #{index}"
 
     def fail(field: str, message: str):
         raise CaseError(message, case=label, field=field)
@@ -377,6 +379,9 @@ def _case_from_table(table: Any, index: int, base: Path, where: str,
     if n_electrons < 1:
         fail("charge", f"charge {values['charge']} leaves {n_electrons} electrons")
     spin = values["multiplicity"] - 1
+    if method == "rhf" and n_electrons % 2:
+        fail("method", f"rhf is closed-shell but the molecule has {n_electrons} electrons "
+                       f"(an odd number; use uhf or rohf with an even multiplicity)")
     if spin > n_electrons or (n_electrons - spin) % 2:
         fail("multiplicity", f"{values['multiplicity']} is impossible with {n_electrons} "
                              f"electrons")
@@ -396,6 +401,11 @@ def _case_from_table(table: Any, index: int, base: Path, where: str,
 
 
 def _read_cases(path, require_suites: bool) -> tuple[Case, ...]:
+    """Every case of a suite file: its ``[[case]]`` tables, then its expanded
+    ``[[matrix]]`` tables (``harness.catalogue.matrix``). All problems are collected
+    first: one is raised as it is, several as one :class:`CaseListError` listing them."""
+    from harness.catalogue.matrix import expand
+
     path = Path(path)
     where = str(path)
     try:
@@ -407,30 +417,54 @@ def _read_cases(path, require_suites: bool) -> tuple[Case, ...]:
         raise CaseError(f"not valid TOML ({exc})", case=where) from None
     except OSError as exc:
         raise CaseError(f"cannot read suite file ({type(exc).__name__})", case=where) from None
-    extra = sorted(set(data) - {"case"})
+    extra = sorted(set(data) - {"case", "matrix"})
     if extra:
         raise CaseError(f"unknown top-level key {extra[0]!r} (a suite file holds only "
-                        f"[[case]] tables)", case=where)
-    tables = data.get("case")
-    if not isinstance(tables, list) or not tables:
-        raise CaseError("no [[case]] tables", case=where)
-    cases, seen = [], set()
+                        f"[[case]] and [[matrix]] tables)", case=where)
+    tables = data.get("case", [])
+    matrices = data.get("matrix", [])
+    if not isinstance(tables, list) or not isinstance(matrices, list) \
+            or not (tables or matrices):
+        raise CaseError("no [[case]] or [[matrix]] tables", case=where)
+    cases: list[Case] = []
+    problems: list[CaseError] = []
     for index, table in enumerate(tables, start=1):
-        case = _case_from_table(table, index, path.parent, where, require_suites)
+        try:
+            cases.append(_case_from_table(table, index, path.parent, where, require_suites))
+        except CaseError as exc:
+            problems.append(exc)
+
+    def make_case(entry: dict, label: str) -> Case:
+        return _case_from_table(entry, 0, path.parent, where, require_suites, label=label)
+
+    for index, table in enumerate(matrices, start=1):
+        made, bad = expand(table, index, path.parent, where, require_suites, make_case)
+        cases.extend(made)
+        problems.extend(bad)
+    seen: set[str] = set()
+    unique = []
+    for case in cases:
         if case.name in seen:
-            raise CaseError("duplicate case name", case=f"{where}: case '{case.name}'",
-                            field="name")
+            problems.append(CaseError("duplicate case name",
+                                      case=f"{where}: case '{case.name}'", field="name"))
+            continue
         seen.add(case.name)
-        cases.append(case)
-    return tuple(cases)
+        unique.append(case)
+    if len(problems) == 1:
+        raise problems[0] from None
+    if problems:
+        raise CaseListError(problems, case=where)
+    return tuple(unique)
 
 
 def load_suite_file(path) -> tuple[Case, ...]:
-    """Read a user's suite file: ``[[case]]`` tables as in ``references/cases.toml``.
+    """Read a user's suite file: ``[[case]]`` tables as in ``references/cases.toml``, then
+    the cases of its ``[[matrix]]`` tables (``harness.catalogue.matrix``).
 
     Geometry paths are relative to the suite file; ``suites``, ``note``, ``charge``
     (0), ``multiplicity`` (1) and ``cartesian`` (false) are optional. Every field is
-    validated; problems raise a one-line :class:`CaseError` of the form
+    validated and every problem collected: several raise one :class:`CaseListError`
+    (one line per problem), a single one a one-line :class:`CaseError` of the form
     ``"<file>: case '<name>': <field>: <what is wrong>"``.
     """
     return _read_cases(path, require_suites=False)

@@ -37,6 +37,24 @@ class CaseError(HarnessError):
     """A case, suite file or geometry file is invalid."""
 
 
+class CaseListError(CaseError):
+    """Several bad cases (or matrix entries) of one suite file, found together before
+    anything runs. ``problems`` holds one line per bad entry (each naming the case or
+    entry and the field); the message is a count line followed by those lines, one
+    per line, so the CLI prints each on its own line."""
+
+    def __init__(self, problems, *, case: str | None = None):
+        self.problems = tuple(str(p) for p in problems)
+        count = len(self.problems)
+        super().__init__(f"{count} bad entr{'y' if count == 1 else 'ies'}:\n"
+                         + "\n".join(self.problems), case=case)
+
+    @property
+    def lines(self) -> tuple[str, ...]:
+        """The lines to print: the count line, then one per problem."""
+        return tuple(str(self).splitlines())
+
+
 class PluginLoadError(HarnessError):
     """A ``MODULE:FUNCTION`` plug-in specification cannot be imported or called."""
 

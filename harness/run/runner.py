@@ -436,21 +436,187 @@ def _finish(run: _Running, message: dict | None, error: str | None,
     """Turn what the child sent (or why it sent nothing) into a CaseResult: an error
     as it is, an unsupported case as :func:`unsupported_result`, a solution through
     ``harness.verdict.judge.judge``."""
+    return finish_case(run.case, run.problem, message, error, settings, run.reference,
+                       run.reference_source, run.reference_error, require_all=require_all)
+
+
+def finish_case(case, problem, message: dict | None, error: str | None,
+                settings: JudgeSettings, reference, reference_source: str | None,
+                reference_error: str | None, *, require_all: bool = False) -> CaseResult:
+    """The CaseResult of one case from what its child sent (``message``: a dict with
+    ``"solution"`` or ``"error"``, and ``"seconds"``; or an unsupported message) or why
+    it sent nothing (``error``): an error as it is (with the reference energy, Eh), an
+    unsupported case as :func:`unsupported_result`, a solution through
+    ``harness.verdict.judge.judge``. No process, no I/O: the same in the harness
+    process and in a judge worker (:func:`judge_case`)."""
     if error is None and message is not None and "error" in message:
         error = message["error"]
     seconds = message.get("seconds") if message else None
     if error is None and message is not None and message.get("kind") == UNSUPPORTED_KIND:
-        return unsupported_result(run.case, str(message.get("reason") or "no reason given"),
+        return unsupported_result(case, str(message.get("reason") or "no reason given"),
                                   require_all=require_all, plugin_seconds=seconds,
-                                  reference_energy=_ref_energy(run),
-                                  reference_source=run.reference_source)
+                                  reference_energy=reference_energy(reference),
+                                  reference_source=reference_source)
     if error is not None:
-        return _base_result(run.case, error=error, plugin_seconds=seconds,
-                            reference_energy=_ref_energy(run),
-                            reference_source=run.reference_source)
-    return judge(run.problem, message["solution"], run.reference, dataclasses.replace(
-        settings, reference_source=run.reference_source,
-        reference_error=run.reference_error, plugin_seconds=seconds))
+        return _base_result(case, error=error, plugin_seconds=seconds,
+                            reference_energy=reference_energy(reference),
+                            reference_source=reference_source)
+    return judge(problem, message["solution"], reference, dataclasses.replace(
+        settings, reference_source=reference_source,
+        reference_error=reference_error, plugin_seconds=seconds))
+
+
+# ------------------------------------------------------------------- judge workers
+#
+# With --jobs N > 1 the checks of finished cases run in N judge worker processes
+# (started by the same fork server, so numpy and pyscf are preloaded) instead of one
+# at a time in the harness process, which would otherwise be the bottleneck: every
+# case's checks cost about as much as its plug-in run. Judge workers never run
+# plug-in code: they receive the Problem, the extracted Solution (plain arrays) and
+# the settings, look the reference up and return the CaseResult. A plug-in therefore
+# still cannot touch the checks.
+
+
+def judge_case(case, problem, message: dict | None, error: str | None,
+               settings: JudgeSettings, reference_dir, write_references: bool,
+               require_all: bool = False):
+    """The task of a judge worker: ``(CaseResult, reference, reference_source)`` for a
+    case whose child has ended. The reference is found as the harness process finds it
+    (``harness.catalogue.references.reference_for``); then :func:`finish_case`."""
+    reference, source, reference_error = None, None, None
+    try:
+        reference, source = _reference(case, reference_dir, write_references)
+    except Exception as exc:
+        reference_error = f"{type(exc).__name__}: {exc}".splitlines()[0]
+    result = finish_case(case, problem, message, error, settings, reference, source,
+                         reference_error, require_all=require_all)
+    return result, reference, source
+
+
+def _judge_worker_init(threads: int) -> None:
+    """Start of a judge worker: Ctrl-C is the harness's (it cancels the work), pyscf's
+    OpenMP threads are this worker's share of the cores."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        from harness.backend.mole import set_threads
+
+        set_threads(max(1, threads))
+    except Exception:  # pragma: no cover - pyscf without OpenMP
+        pass
+
+
+def _size(case) -> int:
+    """The number of basis functions of ``case`` (0 when it cannot be told): a cost
+    estimate for the launch order."""
+    try:
+        return int(case.mole().nao)
+    except Exception:
+        return 0
+
+
+def launch_order(cases: list, jobs: int) -> list[tuple[int, Any]]:
+    """``(index, case)`` in the order the cases are started: with one job the given
+    order; with more, the largest first (by number of basis functions, ties in the given
+    order), so that the longest case does not start last and run alone while the other
+    cores idle (a 114-AO benzene costs more than the other 27 standard cases together).
+    Results keep the given order."""
+    indexed = list(enumerate(cases))
+    if jobs <= 1 or len(indexed) <= 1:
+        return indexed
+    sizes = {i: _size(case) for i, case in indexed}
+    return sorted(indexed, key=lambda item: -sizes[item[0]])
+
+
+class JudgePool:
+    """``workers`` judge worker processes (:func:`judge_case`), whose finished tasks the
+    run loop waits for with its children: :attr:`fileno` becomes readable when a task
+    is done. A broken pool (a worker killed) is not fatal: :meth:`done` returns the
+    failed tasks, which the caller judges in its own process."""
+
+    def __init__(self, workers: int):
+        from concurrent.futures import ProcessPoolExecutor
+
+        self.workers = max(1, int(workers))
+        threads = max(1, (os.cpu_count() or 1) // self.workers)
+        self._executor = ProcessPoolExecutor(max_workers=self.workers, mp_context=_context(),
+                                             initializer=_judge_worker_init,
+                                             initargs=(threads,))
+        self._read, self._write = os.pipe()
+        os.set_blocking(self._read, False)
+        self._tasks: dict[Any, Any] = {}  # future -> the caller's key
+        self._lock = threading.Lock()
+        self._closed = False
+
+    @property
+    def fileno(self) -> int:
+        return self._read
+
+    def __len__(self) -> int:
+        return len(self._tasks)
+
+    def submit(self, key, *args) -> None:
+        """Judge ``judge_case(*args)`` in a worker; ``key`` comes back from :meth:`done`."""
+        try:
+            future = self._executor.submit(judge_case, *args)
+        except Exception as exc:  # a broken pool: reported as a failed task at once
+            from concurrent.futures import Future
+
+            future = Future()
+            future.set_exception(exc)
+        self._tasks[future] = (key, args)
+        future.add_done_callback(self._wake)
+
+    def _wake(self, future) -> None:
+        with self._lock:
+            if self._closed:  # the run is over (and the descriptor may be reused)
+                return
+            try:
+                os.write(self._write, b"x")
+            except OSError:
+                pass
+
+    def done(self) -> list[tuple[Any, tuple, Any, BaseException | None]]:
+        """The finished tasks: ``(key, args, value, exception)`` each (once)."""
+        try:
+            while os.read(self._read, 4096):
+                pass
+        except (BlockingIOError, OSError):
+            pass
+        out = []
+        for future in [f for f in self._tasks if f.done()]:
+            key, args = self._tasks.pop(future)
+            try:
+                out.append((key, args, future.result(), None))
+            except BaseException as exc:  # a broken pool, an unpicklable value
+                out.append((key, args, None, exc))
+        return out
+
+    def close(self) -> None:
+        """Cancel what has not started, end the workers (SIGTERM, then reap)."""
+        processes = list((getattr(self._executor, "_processes", None) or {}).values())
+        busy = bool(self._tasks)
+        self._executor.shutdown(wait=not busy, cancel_futures=True)
+        for proc in processes if busy else ():
+            try:
+                proc.terminate()
+            except Exception:
+                pass
+        for proc in processes if busy else ():
+            try:
+                proc.join(TERMINATE_GRACE)
+                if proc.is_alive():
+                    proc.kill()
+                    proc.join()
+            except Exception:
+                pass
+        with self._lock:
+            self._closed = True
+            for fd in (self._read, self._write):
+                try:
+                    os.close(fd)
+                except OSError:
+                    pass
+        self._tasks.clear()
 
 
 def _ended(exitcode: int | None) -> str:
@@ -608,7 +774,10 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
               write_references: bool = False, results_path=None,
               on_start: Callable[[str], None] | None = None,
               on_result: Callable[[CaseResult], None] | None = None,
-              plugin_checked: bool = False, require_all: bool = False) -> RunOutcome:
+              plugin_checked: bool = False, require_all: bool = False,
+              judge_workers: int | None = None,
+              reference_lookup: Callable[[Any], tuple[Any, str]] | None = None
+              ) -> RunOutcome:
     """Run ``plugin_spec`` on each case in a child process and check the results here.
 
     ``plugin_spec`` is a ``MODULE:FUNCTION`` / ``path.py:FUNCTION`` string (re-imported
@@ -624,8 +793,16 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     when a case starts, ``on_result(case_result)`` when it is finished. Ctrl-C stops
     the children and returns the finished cases with ``interrupted=True``.
 
-    ``ao_convention`` and ``stability`` are passed to ``harness.verdict.judge.judge``, which
-    judges each solution here, in the harness process.
+    ``ao_convention`` and ``stability`` are passed to ``harness.verdict.judge.judge``.
+    ``judge_workers``: how many judge worker processes (:class:`JudgePool`, processes
+    that never run plug-in code) check the solutions and look the references up; 0
+    judges each solution here, in the harness process, one at a time. Default: ``jobs``
+    when ``jobs > 1`` (so the checks run in parallel as the plug-in calls do), else 0.
+    With more than one job the largest cases (by number of basis functions) start
+    first (:func:`launch_order`); results keep the input order.
+    ``reference_lookup(case) -> (reference, source)`` replaces the usual lookup
+    (``reference_dir``, ``write_references``) in this process, e.g. the shared cache of
+    ``harness.run.cluster``; it is not used by judge workers (give ``judge_workers=0``).
 
     The outcome also holds, per case name, the problems, the extracted solutions and
     the references (for ``harness.report.certificate``).
@@ -662,9 +839,12 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     problems: dict[str, Any] = {}
     solutions: dict[str, Any] = {}
     references: dict[str, Any] = {}
-    pending = list(enumerate(cases))
+    pending = launch_order(cases, jobs)
     interrupted = False
     ctx = None
+    # --jobs > 1: the checks run in judge workers, not one at a time here
+    workers = (jobs if jobs > 1 else 0) if judge_workers is None else int(judge_workers)
+    pool = JudgePool(workers) if workers > 0 and len(cases) > 1 else None
 
     def record(index: int, result: CaseResult) -> None:
         finished[index] = result
@@ -695,10 +875,15 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
         now = time.monotonic()
         run = _Running(index, case, problem, proc, reader, now + timeout, now)
         running.append(run)
+        if pool is not None:  # looked up by the judge worker
+            return
         # The reference is looked up while the child works (a stored one is instant).
         try:
-            run.reference, run.reference_source = _reference(case, reference_dir,
-                                                             write_references)
+            if reference_lookup is not None:
+                run.reference, run.reference_source = reference_lookup(case)
+            else:
+                run.reference, run.reference_source = _reference(case, reference_dir,
+                                                                 write_references)
         except Exception as exc:
             run.reference_error = f"{type(exc).__name__}: {exc}".splitlines()[0]
         references[case.name] = run.reference
@@ -721,24 +906,45 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
             error = f"plug-in process sent an unexpected message ({type(message).__name__})"
         if error is None and isinstance(message, dict) and "solution" in message:
             solutions[run.case.name] = message["solution"]
-        record(run.index, _finish(run, message, error, settings, require_all))
+        conclude(run, message, error)
+
+    def conclude(run: _Running, message: dict | None, error: str | None) -> None:
+        """Judge a case whose child has ended: in a judge worker, or here."""
+        if pool is None:
+            record(run.index, _finish(run, message, error, settings, require_all))
+            return
+        pool.submit(run, run.case, run.problem, message, error, settings, reference_dir,
+                    write_references, require_all)
+
+    def judged() -> None:
+        """Record the cases the judge workers have finished (a failed task is judged
+        here instead: a judge worker that died takes no case with it)."""
+        for run, args, value, exc in pool.done():
+            if exc is not None:
+                value = judge_case(*args)
+            result, reference, source = value
+            references[run.case.name] = reference
+            record(run.index, result)
 
     try:
-        while pending or running:
+        while pending or running or (pool is not None and len(pool)):
             if _interrupt.is_set():
                 raise KeyboardInterrupt
             while pending and len(running) < jobs:
                 launch(*pending.pop(0))
-            if not running:
+            if pool is not None:
+                judged()
+            if not running and not (pool is not None and len(pool)):
                 continue
             now = time.monotonic()
-            wait_for = min(INTERRUPT_POLL, max(0.0, min(r.deadline for r in running) - now))
+            wait_for = min([INTERRUPT_POLL] + [max(0.0, r.deadline - now) for r in running])
             handles = {}
             for r in running:
                 handles[r.conn] = r
                 handles[r.process.sentinel] = r
-            ready = multiprocessing.connection.wait(list(handles), timeout=wait_for)
-            for r in {id(handles[h]): handles[h] for h in ready}.values():
+            waited = list(handles) + ([pool.fileno] if pool is not None else [])
+            ready = multiprocessing.connection.wait(waited, timeout=wait_for)
+            for r in {id(handles[h]): handles[h] for h in ready if h in handles}.values():
                 collect(r)
             now = time.monotonic()
             for r in [r for r in running if now >= r.deadline]:
@@ -747,9 +953,7 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
                     continue
                 running.remove(r)
                 _stop(r, grace=TERMINATE_GRACE)
-                record(r.index, _base_result(
-                    r.case, error=f"timed out after {timeout:.1f} s",
-                    reference_energy=_ref_energy(r), reference_source=r.reference_source))
+                conclude(r, None, f"timed out after {timeout:.1f} s")
     except KeyboardInterrupt:
         interrupted = True
     finally:
@@ -757,6 +961,8 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
         for r in list(running):
             running.remove(r)
             _stop(r, grace=TERMINATE_GRACE)
+        if pool is not None:  # judging not finished is dropped with the run
+            pool.close()
     ordered = tuple(finished[i] for i in sorted(finished))
     return RunOutcome(cases=ordered, interrupted=interrupted,
                       seconds=time.perf_counter() - started, problems=problems,

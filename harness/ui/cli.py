@@ -208,11 +208,21 @@ def build_parser() -> argparse.ArgumentParser:
                      help="seconds allowed for the plug-in on one case "
                      f"(default: {DEFAULT_TIMEOUT:g})")
     run.add_argument("--jobs", type=_positive_int, default=1, metavar="N",
-                     help="cases run at once, each in its own process (default: 1)")
+                     help="cases run at once, each in its own process; their checks also "
+                     "run N at a time, in processes of their own (default: 1)")
     run.add_argument("--require-all", action="store_true",
                      help="a case the code reports unsupported (harness.Unsupported, "
                      "or a command's exit status 77 / unsupported.txt) fails (default: "
-                     "it is counted as unsupported, neither passed nor failed)"),
+                     "it is counted as unsupported, neither passed nor failed)")
+    run.add_argument("--scheduler", metavar="ADDRESS",
+                     help="run each case as a task on a Dask cluster: tcp://HOST:PORT of a "
+                     "running scheduler, or local:N to start N worker processes on this "
+                     "machine; needs the cluster extra (pip install -e \".[cluster]\"); see "
+                     "docs/cluster.md (default: none, cases run here)")
+    run.add_argument("--reference-cache", type=Path, metavar="DIR",
+                     help="with --scheduler: the shared folder where workers keep the "
+                     "references they compute, by input hash (default: "
+                     "$SCF_HARNESS_REFERENCE_CACHE or ~/.cache/scf-harness/references)")
     ext = cert.add_argument_group("an external code instead of PLUGIN")
     ext.add_argument("--command", dest="command_template", metavar="TEMPLATE",
                      help="run this command per case in a scratch folder, e.g. \"./my_scf "
@@ -351,15 +361,16 @@ def build_parser() -> argparse.ArgumentParser:
     verify.add_argument("--references", type=Path, metavar="DIR",
                         help=REFERENCES_HELP)
 
-    cases = sub.add_parser("cases", help="list the catalogue",
+    cases = sub.add_parser("cases", help="list the catalogue (or a suite file's cases)",
                            description="List the catalogue's cases (name, method, basis, "
                            "number of AOs, suites, note): all of them, or the selection "
                            "--suite, --case, --basis and --method make, as certify would "
-                           "run it.")
+                           "run it; with --cases-file the cases of a suite file, its "
+                           "[[matrix]] tables expanded, and their count.")
     listed = _add_selection(cases, "every catalogue case", cases_file=True)
     listed.add_argument("--cases-file", type=Path, metavar="FILE",
-                        help="also list the cases of this TOML suite file (as certify "
-                        "--cases-file; default: none)")
+                        help="a TOML suite file of your own: list its cases, with every "
+                        "[[matrix]] expanded (default: none)")
 
     selftest = sub.add_parser("selftest", help="run the built-in planted-bug plug-ins and "
                               "check that each is caught by the checks meant to catch it",
@@ -497,6 +508,26 @@ def _distinct_outputs(args) -> None:
         seen[key] = option
 
 
+def _scheduler(args) -> str | None:
+    """``--scheduler``, checked (an address or local:N; dask.distributed installed), or
+    None; ``--reference-cache`` only with it; not together with ``--jobs``."""
+    if args.scheduler is None:
+        if args.reference_cache is not None:
+            raise UsageError("--reference-cache needs --scheduler")
+        return None
+    if args.jobs != 1:
+        raise UsageError("give either --jobs or --scheduler, not both (a cluster runs as "
+                         "many cases at once as it has workers)")
+    from harness.run.cluster import parse_scheduler, require_dask
+
+    scheduler = parse_scheduler(args.scheduler)
+    require_dask()
+    if args.reference_cache is not None and args.reference_cache.exists() \
+            and not args.reference_cache.is_dir():
+        raise UsageError(f"--reference-cache: not a folder: {args.reference_cache}")
+    return scheduler
+
+
 def _tolerances(args):
     from harness.checks.tolerances import Tolerances, parse_override
 
@@ -553,8 +584,10 @@ def _certify(args, console) -> int:
         raise UsageError(f"--references: not a folder: {args.references}")
 
     _distinct_outputs(args)
-    # loads the plug-in in a child process: what its import does cannot reach this one
-    check_plugin(plugin, timeout=args.timeout)
+    scheduler = _scheduler(args)
+    if scheduler is None:
+        # loads the plug-in in a child process: what its import does cannot reach this one
+        check_plugin(plugin, timeout=args.timeout)
     convergence = args.convergence if args.convergence is not None else DEFAULT_CONVERGENCE
     partial = None
     if args.json is not None:
@@ -566,17 +599,31 @@ def _certify(args, console) -> int:
     if not args.quiet:
         console.print(f"scf-harness: {label} on {len(cases)} case"
                       f"{'s' if len(cases) != 1 else ''} ({selection}), convergence "
-                      f"{convergence:g}, timeout {args.timeout:g} s, jobs {args.jobs}",
+                      f"{convergence:g}, timeout {args.timeout:g} s, "
+                      + (f"scheduler {scheduler}" if scheduler else f"jobs {args.jobs}"),
                       markup=False, soft_wrap=True)
     on_result = None if args.quiet else (lambda r: report.print_progress(console, r))
     with _signals_as_interrupt():
-        outcome = run_cases(cases, plugin, tolerances=tolerances,
-                            convergence=args.convergence, ao_convention=args.ao_convention,
-                            stability=args.stability, timeout=args.timeout,
-                            jobs=args.jobs, reference_dir=args.references,
-                            write_references=args.write_references, results_path=partial,
-                            on_result=on_result, plugin_checked=True,
-                            require_all=args.require_all)
+        if scheduler is not None:
+            from harness.run.cluster import run_cases_on_cluster
+
+            # the plug-in is loaded on every worker first (in a child process there)
+            outcome = run_cases_on_cluster(
+                cases, plugin, scheduler=scheduler, tolerances=tolerances,
+                convergence=args.convergence, ao_convention=args.ao_convention,
+                stability=args.stability, timeout=args.timeout,
+                reference_dir=args.references, reference_cache=args.reference_cache,
+                write_references=args.write_references, results_path=partial,
+                on_result=on_result, plugin_checked=False, require_all=args.require_all)
+        else:
+            outcome = run_cases(cases, plugin, tolerances=tolerances,
+                                convergence=args.convergence,
+                                ao_convention=args.ao_convention, stability=args.stability,
+                                timeout=args.timeout, jobs=args.jobs,
+                                reference_dir=args.references,
+                                write_references=args.write_references, results_path=partial,
+                                on_result=on_result, plugin_checked=True,
+                                require_all=args.require_all)
         if not args.quiet and outcome.cases:
             console.print()
         report.render(outcome, console, quiet=args.quiet)
@@ -780,7 +827,8 @@ def _cases(args, console) -> int:
     from harness.catalogue.cases import load_catalogue
 
     catalogue = load_catalogue()
-    cases, _ = select_cases(args.suites, args.case_names, args.cases_file,
+    cases_file = args.cases_file
+    cases, _ = select_cases(args.suites, args.case_names, cases_file,
                             default_suite=None, bases=args.bases, methods=args.methods)
     table = Table(box=box.SIMPLE_HEAD, pad_edge=False, show_edge=False)
     for column in ("case", "method", "basis", "nao", "suites", "note"):
@@ -791,8 +839,24 @@ def _cases(args, console) -> int:
         table.add_row(case.name, case.method, basis, _nao(case), ",".join(case.suites),
                       case.note)
     console.print(table)
+    if cases_file is not None and not args.suites:
+        console.print(f"{len(cases)} case{'s' if len(cases) != 1 else ''} "
+                      f"({_expansion_counts(cases_file, len(cases))})", markup=False,
+                      soft_wrap=True)
+        return 0
     console.print(f"{len(cases)} cases; suites: {', '.join(catalogue.suites)}", markup=False)
     return 0
+
+
+def _expansion_counts(cases_file: Path, total: int) -> str:
+    """``"<n> from [[case]] tables, <m> from [[matrix]] tables"`` of a suite file that
+    expanded into ``total`` cases (already read without error by the caller)."""
+    import tomllib
+
+    with open(cases_file, "rb") as fh:
+        data = tomllib.load(fh)
+    n_single = len(data.get("case", []))
+    return f"{n_single} from [[case]] tables, {total - n_single} from [[matrix]] tables"
 
 
 def _selftest(args, console) -> int:
@@ -832,7 +896,7 @@ def main(argv: Sequence[str] | None = None) -> int:
             return _selftest(args, console)
         return _cases(args, console)
     except (UsageError, HarnessError) as exc:
-        _error(str(exc))
+        _error(str(exc), getattr(exc, "problems", None))
         return 2
     except OSError as exc:
         _error(f"{exc.strerror or exc}: {exc.filename}" if exc.filename else str(exc))
@@ -842,7 +906,16 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 1
 
 
-def _error(message: str) -> None:
+def _error(message: str, problems: Sequence[str] | None = None) -> None:
+    """``scf-harness: error: <message>`` on one line; with ``problems`` (a
+    ``CaseListError``: bad entries found together) the first line of the message, then
+    one indented line per problem."""
+    if problems:
+        head = " ".join(str(message).splitlines()[0].split())
+        print(f"{PROG}: error: {head}", file=sys.stderr)
+        for problem in problems:
+            print("  " + " ".join(str(problem).split()), file=sys.stderr)
+        return
     line = " ".join(str(message).split())  # one line, whatever the message held
     print(f"{PROG}: error: {line}", file=sys.stderr)
 

@@ -16,6 +16,8 @@ over its key, and ``--scf-tol`` wins per check over ``tolerances``)::
     convergence = 1e-6                 # stationarity asked of the plug-in (atomic units)
     stability = "internal"             # internal | external | off (as certify --stability)
     require_all = false                # true: a case the code reports unsupported fails
+    scheduler = "local:2"              # a Dask cluster: tcp://HOST:PORT or local:N (as
+                                       # certify --scheduler; needs the cluster extra)
 
 This module imports only the standard library, ``harness.contract.errors``,
 ``harness.contract.defaults`` and, when needed, ``harness.checks.tolerances`` (all light),
@@ -54,7 +56,7 @@ DEFAULT_STABILITY = _defaults.DEFAULT_STABILITY
 
 #: The keys of the table, in the order the documentation lists them.
 KEYS = ("plugin", "suite", "cases_file", "tolerances", "timeout", "convergence", "stability",
-        "require_all")
+        "require_all", "scheduler")
 
 
 class ConfigError(HarnessError):
@@ -73,6 +75,8 @@ class Settings:
     the default. ``stability``: one of STABILITY_CHOICES, as ``certify --stability``.
     ``require_all``: a case the code reports unsupported (``harness.Unsupported``) fails
     instead of being skipped, as ``certify --require-all``.
+    ``scheduler``: a Dask scheduler address or ``local:N`` (the cases then run as tasks
+    on that cluster, ``harness.run.cluster``), or None (each item runs its case here).
     ``source``: the pyproject.toml that was read ("" if none); ``from_flags``: the
     names of the settings that came from flags.
     """
@@ -85,6 +89,7 @@ class Settings:
     convergence: float | None = None
     stability: str = DEFAULT_STABILITY
     require_all: bool = False
+    scheduler: str | None = None
     source: str = ""
     from_flags: frozenset = frozenset()
 
@@ -240,9 +245,23 @@ def _boolean(value, where, field) -> bool:
     return value
 
 
+def _scheduler(value, where, field) -> str:
+    """``tcp://HOST:PORT`` or ``local:N``, checked by ``harness.run.cluster`` (imported
+    only when a scheduler is given)."""
+    from harness.run.cluster import parse_scheduler
+
+    if not isinstance(value, str):
+        raise ConfigError(f"expected tcp://HOST:PORT or local:N, got {value!r}", case=where,
+                          field=field)
+    try:
+        return parse_scheduler(value)
+    except HarnessError as exc:
+        raise ConfigError(exc.detail, case=where, field=field) from None
+
+
 _PARSERS = {"plugin": _plugin, "suite": _suites, "tolerances": _tolerances,
             "timeout": _timeout, "convergence": _convergence, "stability": _stability,
-            "require_all": _boolean}
+            "require_all": _boolean, "scheduler": _scheduler}
 
 
 def parse_table(table: Mapping[str, Any], source: str = "pyproject.toml") -> dict[str, Any]:
@@ -269,7 +288,7 @@ def parse_flags(*, plugin: str | None = None, suites: Sequence[str] | None = Non
                 tolerances: Sequence[str] | None = None, timeout: str | None = None,
                 convergence: str | None = None, stability: str | None = None,
                 cases_file: str | None = None, require_all: bool | None = None,
-                base=None) -> dict[str, Any]:
+                base=None, scheduler: str | None = None) -> dict[str, Any]:
     """Validate the ``--scf-…`` flag values (strings as typed; None: not given).
 
     ``tolerances`` are ``CHECK=VALUE`` strings as for ``--tol``; a relative
@@ -304,6 +323,8 @@ def parse_flags(*, plugin: str | None = None, suites: Sequence[str] | None = Non
         out["stability"] = _stability(stability, None, "--scf-stability")
     if require_all:
         out["require_all"] = True
+    if scheduler is not None:
+        out["scheduler"] = _scheduler(scheduler, None, "--scf-scheduler")
     return out
 
 
@@ -321,7 +342,8 @@ def resolve(flags: Mapping[str, Any], keys: Mapping[str, Any], source: str = "")
                     tolerances=tolerances, timeout=float(pick("timeout", DEFAULT_TIMEOUT)),
                     convergence=pick("convergence", None),
                     stability=pick("stability", DEFAULT_STABILITY),
-                    require_all=bool(pick("require_all", False)), source=source,
+                    require_all=bool(pick("require_all", False)),
+                    scheduler=pick("scheduler", None), source=source,
                     from_flags=frozenset(flags))
 
 

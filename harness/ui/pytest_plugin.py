@@ -18,9 +18,11 @@ hints, then the verdict table, then a ``reproduce: scf-harness certify ...`` lin
 
 Options (group "scf-harness"; each also a key of ``[tool.scf-harness]``, the flag wins):
 ``--scf-plugin``, ``--scf-suite``, ``--scf-cases-file``, ``--scf-tol``, ``--scf-timeout``,
-``--scf-convergence``, ``--scf-stability``, ``--scf-require-all``. A case the plug-in
-reports unsupported (``harness.Unsupported``) is skipped with its reason, or fails with
-``--scf-require-all``. pytest's ``addini`` is not used: ini keys live in
+``--scf-convergence``, ``--scf-stability``, ``--scf-require-all``, ``--scf-scheduler``. A case
+the plug-in reports unsupported (``harness.Unsupported``) is skipped with its reason, or fails
+with ``--scf-require-all``. With ``--scf-scheduler`` the cases run as tasks on a Dask cluster
+(``harness.run.cluster``: all selected items are submitted when the first one runs, and each
+item waits for its own case). pytest's ``addini`` is not used: ini keys live in
 ``[tool.pytest.ini_options]``, and the harness's own table is read by
 :mod:`harness.ui.config`, so that flag and key have one parser and one meaning.
 
@@ -97,6 +99,12 @@ def pytest_addoption(parser: pytest.Parser) -> None:
                     "--stability: internal (within the method), external (RHF also against "
                     "UHF), off. Key: stability. "
                     f"Default: {_config.DEFAULT_STABILITY}")
+    group.addoption("--scf-scheduler", dest="scf_scheduler", default=None,
+                    metavar="ADDRESS",
+                    help="run the cases as tasks on a Dask cluster: tcp://HOST:PORT of a "
+                    "running scheduler, or local:N worker processes on this machine (needs "
+                    "pip install -e \".[cluster]\"). Key: scheduler. Default: none (each "
+                    "item runs its case here)")
 
 
 def pytest_configure(config: pytest.Config) -> None:
@@ -111,9 +119,14 @@ def pytest_configure(config: pytest.Config) -> None:
             stability=getattr(opt, "scf_stability", None),
             cases_file=getattr(opt, "scf_cases_file", None),
             require_all=getattr(opt, "scf_require_all", None),
-            base=config.invocation_params.dir)
+            base=config.invocation_params.dir,
+            scheduler=getattr(opt, "scf_scheduler", None))
         pyproject = _config.pyproject_for(config.rootpath, config.inipath)
         settings = _config.load_settings(pyproject, flags)
+        if settings.active and settings.scheduler is not None:
+            from harness.run.cluster import require_dask
+
+            require_dask("--scf-scheduler" if "scheduler" in flags else "scheduler")
     except HarnessError as exc:
         raise pytest.UsageError(f"scf-harness: {exc}") from None
     if not settings.active:
@@ -207,14 +220,17 @@ class CaseItem(pytest.Item):
         from harness.checks.tolerances import Tolerances
 
         settings = settings_of(self.config)
-        outcome = run_cases([self.case], settings.plugin,
-                            tolerances=Tolerances(overrides=dict(settings.tolerances)),
-                            timeout=settings.timeout, convergence=settings.convergence,
-                            stability=settings.stability, plugin_checked=True,
-                            require_all=settings.require_all)
-        if outcome.interrupted or not outcome.cases:
-            raise KeyboardInterrupt
-        result = outcome.cases[0]
+        if settings.scheduler is not None:
+            result = _cluster_result(self)
+        else:
+            outcome = run_cases([self.case], settings.plugin,
+                                tolerances=Tolerances(overrides=dict(settings.tolerances)),
+                                timeout=settings.timeout, convergence=settings.convergence,
+                                stability=settings.stability, plugin_checked=True,
+                                require_all=settings.require_all)
+            if outcome.interrupted or not outcome.cases:
+                raise KeyboardInterrupt
+            result = outcome.cases[0]
         self.user_properties.append(("scf-harness energy (Eh)", result.energy))
         if result.status == "unsupported":
             pytest.skip(f"unsupported: {result.unsupported}")
@@ -230,6 +246,40 @@ class CaseItem(pytest.Item):
 
     def reportinfo(self):
         return self.path, None, f"scf-harness case {self.case.name}"
+
+
+_CLUSTER = pytest.StashKey[Any]()
+
+
+def _cluster_result(item: "CaseItem"):
+    """The CaseResult of ``item``'s case from the cluster run of this session: the first
+    item to ask starts it (``harness.run.cluster.ClusterRun``) and submits the cases of
+    every selected CaseItem at once; each item then waits for its own."""
+    from harness.checks.tolerances import Tolerances
+    from harness.run.cluster import ClusterRun, task_options
+
+    config = item.config
+    state = config.stash.get(_CLUSTER, None)
+    if state is None:
+        settings = settings_of(config)
+        items = [i for i in item.session.items if isinstance(i, CaseItem)]
+        options = task_options(tolerances=Tolerances(overrides=dict(settings.tolerances)),
+                               convergence=settings.convergence, stability=settings.stability,
+                               timeout=settings.timeout, require_all=settings.require_all)
+        run = ClusterRun(settings.scheduler, settings.plugin, options)
+        state = {"run": run, "index": {}}
+        config.stash[_CLUSTER] = state
+        run.submit([i.case for i in items])
+        state["index"] = {id(i): n for n, i in enumerate(items)}
+    return state["run"].wait_for(state["index"][id(item)])["result"]
+
+
+def pytest_sessionfinish(session: pytest.Session) -> None:
+    """Stop the cluster run of this session, if one was started."""
+    state = session.config.stash.get(_CLUSTER, None)
+    if state is not None:
+        state["run"].close()
+        del session.config.stash[_CLUSTER]
 
 
 def failure_report(result, reproduce: str) -> str:

@@ -353,11 +353,11 @@ def test_suite_file_duplicates_and_structure(suite_dir):
     with pytest.raises(CaseError) as err:
         load_suite_file(path)
     assert str(err.value) == (f"{path}: unknown top-level key 'title' (a suite file holds "
-                              f"only [[case]] tables)")
+                              f"only [[case]] and [[matrix]] tables)")
     path = _write(suite_dir / "none.toml", "")
     with pytest.raises(CaseError) as err:
         load_suite_file(path)
-    assert str(err.value) == f"{path}: no [[case]] tables"
+    assert str(err.value) == f"{path}: no [[case]] or [[matrix]] tables"
     path = _write(suite_dir / "broken.toml", "[[case]\nname = 1\n")
     with pytest.raises(CaseError) as err:
         load_suite_file(path)

@@ -89,6 +89,7 @@ def fakes(monkeypatch):
 
 def run(function: str, names=("h2-sto-3g-rhf",), **kw):
     kw.setdefault("timeout", 30.0)
+    kw.setdefault("judge_workers", 0)  # the fakes are monkeypatched into this process
     return runner.run_cases([FakeCase(n) for n in names], spec(function),
                             tolerances=Tolerances(), **kw)
 
