@@ -653,7 +653,8 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
             run.reference, run.reference_source = _reference(case, reference_dir,
                                                              write_references)
         except Exception as exc:
-            run.reference_error = f"{type(exc).__name__}: {exc}".splitlines()[0]
+            from harness.catalogue.references import reference_error_text
+            run.reference_error = reference_error_text(exc)
         references[case.name] = run.reference
 
     def collect(run: _Running) -> None:
