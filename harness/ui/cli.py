@@ -658,7 +658,7 @@ def _verify_certificate(args, console) -> int:
             cert = None
         if cert is not None:
             args.markdown.parent.mkdir(parents=True, exist_ok=True)
-            args.markdown.write_text(summary_markdown(cert), encoding="utf-8")
+            args.markdown.write_text(summary_markdown(cert, result), encoding="utf-8")
             console.print(f"summary: {args.markdown}", markup=False, soft_wrap=True)
         else:
             console.print(f"summary: not written ({path} is not a readable certificate)",
