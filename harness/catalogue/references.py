@@ -10,7 +10,14 @@ coordinate origin), lengths in bohr.
 
 Storage: one JSON file per case, ``<data directory>/<case name>.json`` (default data
 directory: ``default_reference_dir() / "data"``). Each file carries an input hash
-(:func:`input_hash`); a stored reference is used only while the hash still matches.
+(:func:`input_hash`); a stored reference is used only while the hash still matches. Each
+file also carries a hash of its own content (:data:`CONTENT_HASH_KEY`,
+:func:`content_hashes`: one SHA-256 per stored field, each energy term on its own), and
+its energy terms must sum to its total (:data:`STORED_TERMS_TOLERANCE`): a file whose
+content no longer matches is refused everywhere it is read (``references verify``,
+``certify``, the pytest plug-in) as "reference tampered or corrupted: <file>: <what
+differs>" (:class:`ReferenceTampered`), never recomputed over silently. The hashes detect
+edits; they are not a signature (whoever edits a file can recompute them).
 """
 
 from __future__ import annotations
@@ -55,6 +62,16 @@ STABILITY_POLICY = (
     f"solution distinct by > {KNOWN_STATE_SEPARATION:g} Eh as a known state")
 #: |E_total − (E_nuc + E_1 + E_J + E_K)| allowed when the energy terms are stored (Eh).
 ENERGY_SUM_TOLERANCE = 1e-9
+#: |E_total − (E_nuc + E_1 + E_J + E_K)| allowed in a *stored* reference file (Eh). The
+#: terms are stored as full-precision doubles (17 significant digits, ~1e-16 relative), so
+#: they reproduce the stored total to rounding: at most 2.3e-13 Eh over the 32 stored files
+#: (measured 2026-12-03, o2-cc-pvdz-uhf). 1e-10 Eh is far above that rounding and far below
+#: any hand edit of an energy. A larger gap means the file was edited or corrupted.
+STORED_TERMS_TOLERANCE = 1e-10
+#: Key of the per-field content hashes in a reference file (:func:`content_hashes`).
+CONTENT_HASH_KEY = "content_hashes"
+#: Start of the reason a stored reference whose content does not match is refused with.
+TAMPERED = "reference tampered or corrupted"
 #: |E_recomputed − E_stored| allowed by ``verify(..., recompute=True)`` (Eh).
 RECOMPUTE_TOLERANCE = 1e-9
 
@@ -109,6 +126,74 @@ def input_hash(case: Case) -> str:
                            "stability_policy": STABILITY_POLICY}
     text = json.dumps(payload, sort_keys=True, separators=(",", ":"))
     return "sha256:" + hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def _content_fields(data: Mapping[str, Any]) -> dict[str, Any]:
+    """The stored fields a reference file's content hashes cover: every top-level key of
+    :meth:`Reference.to_json` but the hashes themselves, ``energies`` split into one
+    field per term (``energies.total``, ``energies.nuclear``, …)."""
+    out: dict[str, Any] = {}
+    for key, value in data.items():
+        if key == CONTENT_HASH_KEY:
+            continue
+        if key == "energies" and isinstance(value, Mapping):
+            out.update({f"energies.{term}": v for term, v in value.items()})
+        else:
+            out[key] = value
+    return out
+
+
+def content_hashes(data: Mapping[str, Any]) -> dict[str, str]:
+    """``{field: "sha256:<hex>"}`` of the canonical JSON (sorted keys, full-precision
+    floats) of each stored field of a reference's JSON form (:func:`_content_fields`):
+    the energy and each of its terms, orbital energies, occupations, ⟨S²⟩, dipole, the
+    known states, the inputs and provenance, every other stored value."""
+    return {field: "sha256:" + hashlib.sha256(
+                json.dumps(_clean(value), sort_keys=True, separators=(",", ":"))
+                .encode("utf-8")).hexdigest()
+            for field, value in sorted(_content_fields(data).items())}
+
+
+class ReferenceTampered(ReferenceDataError):
+    """A stored reference whose content does not match its own hashes, or whose energy
+    terms do not sum to its total: ``"reference tampered or corrupted: <file>: <what
+    differs>"`` (one line). Never recomputed over: the case fails with this reason."""
+
+    def __init__(self, path, what: str, *, case: str | None = None):
+        super().__init__(f"{TAMPERED}: {path}: {what}")
+        self.case = case
+        self.path = str(path)
+
+
+def tamper_problems(data: Mapping[str, Any], ref: "Reference") -> list[str]:
+    """What differs between a reference file's stored content hashes (``data``, the file's
+    JSON) and its content (``ref``, read from it), and whether its energy terms miss the
+    total by more than STORED_TERMS_TOLERANCE Eh. Empty for an intact file."""
+    problems = []
+    stored = data.get(CONTENT_HASH_KEY)
+    if not isinstance(stored, Mapping):
+        problems.append(f"no {CONTENT_HASH_KEY} (written before content hashing or removed; "
+                        f"`scf-harness references rehash` re-stores them)")
+    else:
+        now = content_hashes(ref.to_json())
+        differ = [f for f in now if stored.get(f) != now[f]]
+        differ += [f"{f} (not stored)" for f in stored if f not in now]
+        if differ:
+            problems.append(f"content hash differs for {', '.join(differ)}")
+    gap = ref.energy - ref.energy_terms_sum
+    if not abs(gap) <= STORED_TERMS_TOLERANCE:
+        problems.append(f"energy terms sum to {ref.energy_terms_sum!r} Eh, the total is "
+                        f"{ref.energy!r} Eh (difference {gap:.1e} Eh > "
+                        f"{STORED_TERMS_TOLERANCE:.0e})")
+    return problems
+
+
+def reference_error_text(exc: BaseException) -> str:
+    """The one line a case's reference-energy failure gives for ``exc``: a tampered
+    reference's own text, ``"<ExcType>: <message>"`` for anything else."""
+    if isinstance(exc, ReferenceTampered):
+        return str(exc)
+    return f"{type(exc).__name__}: {exc}".splitlines()[0]
 
 
 # --------------------------------------------------------------------------- Reference
@@ -200,8 +285,9 @@ class Reference:
                 + self.energy_exchange)
 
     def to_json(self) -> dict[str, Any]:
-        """A JSON-ready dict (floats at full precision), tagged with REFERENCE_FORMAT."""
-        return _clean({
+        """A JSON-ready dict (floats at full precision), tagged with REFERENCE_FORMAT,
+        with the content hashes of its values (:data:`CONTENT_HASH_KEY`)."""
+        data = _clean({
             "format": REFERENCE_FORMAT,
             "case": self.case,
             "input_hash": self.input_hash,
@@ -222,6 +308,8 @@ class Reference:
             "provenance": dict(self.provenance),
             "known_states": [k.to_json() for k in self.known_states],
         })
+        data[CONTENT_HASH_KEY] = content_hashes(data)
+        return data
 
     @classmethod
     def from_json(cls, data: Mapping[str, Any]) -> "Reference":
@@ -384,10 +472,14 @@ def _read_file(case: Case, path: Path) -> Reference:
         raise ReferenceDataError(f"{path} is unreadable ({type(exc).__name__}: {exc})"
                                  .splitlines()[0], case=case.name, field="reference") from None
     try:
-        return Reference.from_json(data)
+        ref = Reference.from_json(data)
     except ReferenceDataError as exc:
         raise ReferenceDataError(f"{path} is malformed: {exc}", case=case.name,
                                  field="reference") from None
+    problems = tamper_problems(data, ref)
+    if problems:
+        raise ReferenceTampered(path, "; ".join(problems), case=case.name)
+    return ref
 
 
 def _what_changed(case: Case, ref: Reference) -> str:
@@ -401,7 +493,9 @@ def _what_changed(case: Case, ref: Reference) -> str:
 def load_reference(case: Case, directory=None) -> Reference:
     """Load the stored reference of ``case``; raises a one-line ReferenceDataError when
     the file is missing, unreadable or malformed, belongs to another case, or its input
-    hash no longer matches the case (naming what changed)."""
+    hash no longer matches the case (naming what changed); ReferenceTampered (a
+    ReferenceDataError) when its content does not match its content hashes or its energy
+    terms do not sum to its total (:func:`tamper_problems`)."""
     path = reference_path(case, directory)
     ref = _read_file(case, path)
     if ref.case != case.name:
@@ -419,9 +513,13 @@ def reference_for(case: Case, directory=None, *, write: bool = False
                   ) -> tuple[Reference, str]:
     """The reference of ``case`` and where it came from: ``"stored"`` when a stored file
     matches the input hash, else computed now: ``"written"`` when ``write`` stored it in
-    ``directory``, ``"computed"`` otherwise."""
+    ``directory``, ``"computed"`` otherwise. A stored file that was tampered with or
+    corrupted (:class:`ReferenceTampered`) is not computed over: the error is raised, so
+    the case fails reference-energy naming the file."""
     try:
         return load_reference(case, directory), "stored"
+    except ReferenceTampered:
+        raise
     except ReferenceDataError:
         pass
     ref = compute_reference(case)
@@ -461,9 +559,11 @@ def build(cases: Iterable[Case], directory=None, *, force: bool = False
 
 def verify(cases: Iterable[Case], directory=None, *, recompute: bool = False
            ) -> list[tuple[str, bool, str]]:
-    """Check the stored references: file well-formed, hash matches, energy terms sum to
-    the total (ENERGY_SUM_TOLERANCE), converged and stable; with ``recompute`` also
-    recompute and compare the total energy to RECOMPUTE_TOLERANCE (Eh).
+    """Check the stored references: file well-formed, input hash matches, content
+    matches its content hashes and the energy terms sum to the total
+    (STORED_TERMS_TOLERANCE; else "reference tampered or corrupted: …"), converged and
+    stable; with ``recompute`` also recompute and compare the total energy to
+    RECOMPUTE_TOLERANCE (Eh).
 
     Returns ``(case name, ok, one-line message)`` per case.
     """
@@ -475,12 +575,9 @@ def verify(cases: Iterable[Case], directory=None, *, recompute: bool = False
             out.append((case.name, False, str(exc)))
             continue
         problems = []
-        gap = ref.energy - ref.energy_terms_sum
-        if abs(gap) > ENERGY_SUM_TOLERANCE:
-            problems.append(f"energy terms miss the total by {gap:.1e} Eh")
         if not (ref.converged and ref.stable):
             problems.append(f"converged={ref.converged}, stable={ref.stable}")
-        message = f"hash matches, E = {ref.energy:.10f} Eh"
+        message = f"input and content hashes match, E = {ref.energy:.10f} Eh"
         if recompute:
             new = compute_reference(case)
             diff = new.energy - ref.energy
@@ -493,4 +590,38 @@ def verify(cases: Iterable[Case], directory=None, *, recompute: bool = False
             out.append((case.name, False, "; ".join(problems)))
         else:
             out.append((case.name, True, message))
+    return out
+
+
+def rehash(cases: Iterable[Case], directory=None) -> list[tuple[str, str]]:
+    """Re-store the content hashes of stored references, values untouched: each file is
+    read (it must be well-formed and match its case's input hash), and written back
+    with :data:`CONTENT_HASH_KEY` recomputed from its values (the energies, arrays and
+    everything else exactly as read; JSON floats round-trip exactly). A file whose energy
+    terms miss the total by more than STORED_TERMS_TOLERANCE is not rehashed. Returns
+    ``(case name, what happened)``. A maintenance step after content hashing was added:
+    re-hashing an edited file makes the edit pass, so review the diff of the values."""
+    out = []
+    for case in cases:
+        path = reference_path(case, directory)
+        try:
+            data = json.loads(path.read_text(encoding="utf-8"))
+            ref = Reference.from_json(data)
+        except (OSError, ValueError) as exc:
+            out.append((case.name, f"not rehashed: {type(exc).__name__}: {exc}"
+                        .splitlines()[0]))
+            continue
+        if ref.case != case.name or ref.input_hash != input_hash(case):
+            out.append((case.name, "not rehashed: the file does not match the case's "
+                                   "input hash"))
+            continue
+        problems = [p for p in tamper_problems(data, ref) if p.startswith("energy terms")]
+        if problems:
+            out.append((case.name, f"not rehashed: {problems[0]}"))
+            continue
+        if data.get(CONTENT_HASH_KEY) == ref.to_json()[CONTENT_HASH_KEY]:
+            out.append((case.name, "kept (content hashes match)"))
+            continue
+        write_reference(ref, directory)
+        out.append((case.name, f"rehashed, E = {ref.energy!r} Eh (values unchanged)"))
     return out

@@ -334,6 +334,9 @@ class VerificationResult:
     issues: tuple[str, ...]
     recomputed: bool
     cases: int
+    #: With ``recomputed``: the re-judged ``CaseResult`` of each case with a solution, by
+    #: name (:func:`summary_markdown` reports these, not the certified claims).
+    results: Mapping[str, CaseResult] = dataclasses.field(default_factory=dict)
 
     @property
     def ok(self) -> bool:
@@ -536,6 +539,104 @@ def _integrity(cert: dict, folder: Path, issues: list[str]) -> dict[str, np.ndar
     return arrays
 
 
+#: Start of every line about a certificate whose own fields disagree with each other.
+INTEGRITY = "certificate integrity"
+#: The check whose value is a signed eigenvalue (Eh/rad²) rather than a deviation: it
+#: must pass when value ≥ −tolerance, and may pass below (when following the instability
+#: does not lower the energy), so only the first direction is a contradiction.
+SIGNED_VALUE_CHECKS = ("stability",)
+
+
+def _number(x) -> float | None:
+    """A certified value as a float (NaN and ±inf are stored as strings), else None."""
+    if isinstance(x, bool) or x is None:
+        return None
+    if isinstance(x, str):
+        try:
+            return float(x) if x.lower() in ("nan", "inf", "-inf") else None
+        except ValueError:  # pragma: no cover
+            return None
+    return float(x) if isinstance(x, (int, float)) else None
+
+
+def _within(name, value, tolerance) -> tuple[bool | None, str]:
+    """Whether ``value`` says the check passed (True), failed (False) or cannot tell
+    (None), with the words saying why (``"value 3.1e-04 > tolerance 1e-06"``)."""
+    v, t = _number(value), _number(tolerance)
+    if v is None or t is None:
+        return None, ""
+    if name in SIGNED_VALUE_CHECKS:
+        return (True, f"value {v:.1e} ≥ −tolerance {-t:g}") if v >= -t else (None, "")
+    ok = v <= t  # False for NaN, as in harness.contract.results.judge
+    return ok, f"value {v:.1e} {'≤' if ok else '>'} tolerance {t:g}"
+
+
+def _flag(x) -> str:
+    return json.dumps(x) if isinstance(x, (bool, type(None))) else repr(x)
+
+
+def _check_consistency(case: str, check: Mapping[str, Any]) -> str | None:
+    """One line when a certified check's ``passed`` flag, ``status`` and value against
+    tolerance disagree, else None."""
+    from harness.contract.results import Status
+
+    name, status, flag = check.get("name"), check.get("status"), check.get("passed")
+    where = f"{INTEGRITY}: case {case}, check {name}"
+    statuses = [s.value for s in Status]
+    if status not in statuses:
+        return f"{where}: status {_flag(status)} is not one of {', '.join(statuses)}"
+    expected = {"passed": True, "failed": False}.get(status)
+    verdict, words = _within(name, check.get("value"), check.get("tolerance"))
+    if status not in ("passed", "failed"):
+        verdict = None  # not applicable / skipped: no value is judged
+    if flag is not expected or (flag is not None and not isinstance(flag, bool)):
+        if verdict is None:
+            return f"{where}: passed={_flag(flag)} but status {status}"
+        if verdict == expected:  # the flag is the odd one out
+            return f"{where}: passed={_flag(flag)} but status {status} and {words}"
+        return f"{where}: status {status} but passed={_flag(flag)} and {words}"
+    if verdict is not None and verdict != expected:
+        return f"{where}: passed={_flag(flag)} but {words}"
+    return None
+
+
+def _consistency(cert: Mapping[str, Any], issues: list[str]) -> None:
+    """Every disagreement between a certificate's own fields, one line each: per check
+    the ``passed`` flag, the ``status`` and the value against the tolerance; per case
+    its ``passed`` against its error and its checks' statuses (passed when no error, no
+    check failed and one passed: ``CaseResult.passed``); the certificate's ``passed``
+    against its cases. A forger who flips a flag and recomputes every hash is caught
+    here, without recomputing anything."""
+    cases = _case_entries(cert)
+    for entry in cases:
+        name = entry.get("name")
+        checks = entry.get("checks") if isinstance(entry.get("checks"), list) else []
+        checks = [c for c in checks if isinstance(c, dict)]
+        for check in checks:
+            line = _check_consistency(name, check)
+            if line is not None:
+                issues.append(line)
+        failed = [c.get("name") for c in checks if c.get("status") == "failed"]
+        if entry.get("error") is not None:
+            expected, why = False, "the case has an error"
+        elif failed:
+            expected, why = False, f"check {failed[0]} failed"
+        elif not any(c.get("status") == "passed" for c in checks):
+            expected, why = False, "no check passed"
+        else:
+            expected, why = True, "no check failed"
+        if entry.get("passed") is not expected:
+            issues.append(f"{INTEGRITY}: case {name}: passed={_flag(entry.get('passed'))} "
+                          f"but {why}")
+    if not isinstance(cert.get("cases"), list) or len(cases) != len(cert["cases"]):
+        return  # a damaged list of cases: named by the digests, no verdict to compare
+    n_passed = sum(1 for c in cases if c.get("passed") is True)
+    expected = bool(cases) and n_passed == len(cases)
+    if cert.get("passed") is not expected:
+        issues.append(f"{INTEGRITY}: passed={_flag(cert.get('passed'))} but {n_passed} of "
+                      f"{len(cases)} cases passed")
+
+
 def _evaluation_options(cert: Mapping[str, Any], issues: list[str]) -> dict[str, Any] | None:
     """The keyword options to recompute with (``harness.verdict.judge.JudgeSettings``): the
     certified ones; none (its defaults) for a certificate made before they were
@@ -562,7 +663,8 @@ def _evaluation_options(cert: Mapping[str, Any], issues: list[str]) -> dict[str,
     return {k: data[k] for k in EVALUATION_OPTIONS if k in data}
 
 
-def _recompute(cert: dict, arrays, issues: list[str], reference_dir) -> None:
+def _recompute(cert: dict, arrays, issues: list[str], reference_dir,
+               results: dict | None = None) -> None:
     from harness.contract.errors import first_line
     from harness.checks.tolerances import Tolerances
 
@@ -582,13 +684,18 @@ def _recompute(cert: dict, arrays, issues: list[str], reference_dir) -> None:
         if not entry.get("solution") or record is None:
             continue
         try:
-            _recompute_case(entry, record, arrays, tolerances, options, issues, reference_dir)
+            result = _recompute_case(entry, record, arrays, tolerances, options, issues,
+                                     reference_dir)
+            if result is not None and results is not None:
+                results[name] = result
         except Exception as exc:
             issues.append(f"cases/{name}: could not be recomputed ({first_line(exc)})")
 
 
 def _recompute_case(entry: dict, record: dict, arrays, tolerances, options: dict,
-                    issues: list[str], reference_dir) -> None:
+                    issues: list[str], reference_dir) -> CaseResult | None:
+    """Re-judge one certified case; its issues appended; the recomputed result (None when
+    it could not be recomputed)."""
     from harness.contract.problem import Problem
     from harness.catalogue.references import reference_for
     from harness.verdict.judge import JudgeSettings, judge
@@ -600,19 +707,19 @@ def _recompute_case(entry: dict, record: dict, arrays, tolerances, options: dict
                              charge=inputs["charge"], multiplicity=inputs["multiplicity"],
                              basis=inputs["basis"], cartesian=inputs["cartesian"],
                              method=inputs["method"], convergence=inputs["convergence"])
-    reference = None
+    reference, source = None, None
     if entry.get("reference") is not None:
-        reference, _ = reference_for(_case_of(problem), reference_dir)
+        reference, source = reference_for(_case_of(problem), reference_dir)
         certified = float(entry["reference"]["energy"])
         if abs(reference.energy - certified) > REFERENCE_AGREEMENT:
             issues.append(f"cases/{name}/reference: the reference energy is now "
                           f"{fixed(reference.energy)} Eh, certified {fixed(certified)} Eh")
     solution = _solution_from_sidecar(name, record, arrays)
     result = judge(problem, solution, reference,
-                   JudgeSettings(tolerances=tolerances, **options))
+                   JudgeSettings(tolerances=tolerances, reference_source=source, **options))
     if result.error is not None:
         issues.append(f"cases/{name}: could not be recomputed ({result.error})")
-        return
+        return None
     checks = {c.name: c for c in result.checks}
     for old in entry.get("checks") or []:
         old = old if isinstance(old, dict) else {"name": old}
@@ -628,6 +735,7 @@ def _recompute_case(entry: dict, record: dict, arrays, tolerances, options: dict
         elif not _agree(data["value"], old.get("value")):
             issues.append(f"{where}: certified value {old.get('value')!r}, recomputed "
                           f"{data['value']!r}")
+    return result
 
 
 def verify_certificate(path, *, recompute: bool = False,
@@ -637,7 +745,9 @@ def verify_certificate(path, *, recompute: bool = False,
     Integrity: the format tag, the whole-certificate hash, every field's digest (an
     edited, added or removed field is named; a case removed or added as a whole is one
     issue), the sidecar file's SHA-256 and each case's solution hash recomputed from
-    the sidecar's arrays. Recompute: each case with a solution is re-judged
+    the sidecar's arrays; and the agreement of the certificate's own fields with each
+    other (:func:`_consistency`: flags, statuses, values against tolerances, case and
+    overall verdicts; "certificate integrity: …"). Recompute: each case with a solution is re-judged
     (``harness.verdict.judge.judge``) with the certified tolerances and evaluation
     options (:data:`EVALUATION_KEY`; the defaults when absent) and the reference from
     ``harness.catalogue.references.reference_for`` (stored under ``reference_dir`` when its hash
@@ -662,12 +772,17 @@ def verify_certificate(path, *, recompute: bool = False,
         # a structure hashing cannot walk (e.g. nested too deeply to encode)
         issues.append(f"not a readable certificate ({type(exc).__name__})")
         arrays = None
+    try:
+        _consistency(cert, issues)
+    except (RecursionError, ValueError, TypeError) as exc:  # pragma: no cover - odd JSON
+        issues.append(f"{INTEGRITY}: not checkable ({type(exc).__name__})")
+    results: dict[str, CaseResult] = {}
     if recompute and arrays is not None:
         try:
-            _recompute(cert, arrays, issues, reference_dir)
+            _recompute(cert, arrays, issues, reference_dir, results)
         except Exception as exc:
             issues.append(f"recompute: failed ({type(exc).__name__}: {exc})".splitlines()[0])
-    return VerificationResult(str(path), tuple(issues), recompute, len(cases))
+    return VerificationResult(str(path), tuple(issues), recompute, len(cases), results)
 
 
 # --------------------------------------------------------------------------- summary
@@ -707,21 +822,82 @@ def _case_status(entry: Mapping[str, Any]) -> str:
     return "passed" if entry.get("passed") else "failed"
 
 
-def _verdict_word(entry: Mapping[str, Any]) -> str:
-    return {"passed": "passed", "unsupported": "unsupported"}.get(_case_status(entry),
-                                                                  "FAILED")
+#: The verdict column's word per case status.
+_WORDS = {"passed": "passed", "unsupported": "unsupported", "failed": "FAILED"}
 
 
-def summary_markdown(cert: Mapping[str, Any]) -> str:
+#: The closing section of every reviewer's summary: what a certificate covers, what its
+#: hashes do and do not prove, and where the limits of a pass are written.
+COVERAGE_LINES = (
+    "## What this certificate covers",
+    "",
+    "- Only the cases and checks listed above, for the inputs recorded with each case "
+    "(molecule, basis, method, convergence) and the tolerances and options recorded here; "
+    "nothing about other molecules, bases, methods, or quantities the code did not return.",
+    "- The hashes (input, solution, sidecar, certificate) detect edits made after the "
+    "certificate was written; they are not a signature: whoever edits the file can "
+    "recompute them. `scf-harness verify-certificate --recompute` re-runs every check on "
+    "the stored solutions instead of trusting the recorded results.",
+    "- The limits of a pass are written in the README (\"What a pass means\", "
+    "\"Reliability\") and in docs/what-a-pass-means.md.",
+)
+
+
+def _row_of(entry: Mapping[str, Any], result: CaseResult | None) -> dict[str, Any]:
+    """What the summary shows of one case: the recomputed result when there is one, else
+    the certificate's own fields."""
+    if result is None:
+        ref = _obj(entry.get("reference"))
+        checks = entry.get("checks") if isinstance(entry.get("checks"), list) else []
+        return {"passed": entry.get("passed") is True, "error": entry.get("error"),
+                "status": _case_status(entry), "unsupported": entry.get("unsupported"),
+                "energy": entry.get("energy"), "reference": ref.get("energy"),
+                "source": ref.get("source"),
+                "checks": [k for k in checks if isinstance(k, dict)]}
+    return {"passed": result.passed, "error": result.error, "status": result.status,
+            "unsupported": result.unsupported, "energy": result.energy,
+            "reference": result.reference_energy, "source": result.reference_source,
+            "checks": [_check_entry(c) for c in result.checks]}
+
+
+def _verdict_line(rows: list[dict], verification) -> str:
+    n_pass = sum(1 for r in rows if r["status"] == "passed")
+    n_unsupported = sum(1 for r in rows if r["status"] == "unsupported")
+    unsupported = f", {n_unsupported} unsupported" if n_unsupported else ""
+    counted = (f"({n_pass} of {len(rows)} cases passed{unsupported}); energies in hartree "
+               f"(Eh), lengths in bohr")
+    if verification is not None and not verification.ok:
+        issues = verification.issues
+        return (f"- verdict: **REJECTED**: the certificate did not verify ({len(issues)} "
+                f"problem{'s' if len(issues) != 1 else ''}; first: {issues[0]}) {counted}")
+    passed = bool(rows) and not any(r["status"] == "failed" for r in rows)
+    return f"- verdict: **{'PASSED' if passed else 'FAILED'}** {counted}"
+
+
+def _source_line(verification) -> str:
+    if verification is None:
+        return "- results as recorded in the certificate (not verified)"
+    if verification.recomputed:
+        return ("- results recomputed from the stored solutions by this harness "
+                "(`verify-certificate --recompute`), not read from the certificate")
+    return ("- results as recorded in the certificate (hashes and internal consistency "
+            "verified; not recomputed)")
+
+
+def summary_markdown(cert: Mapping[str, Any], verification=None) -> str:
     """A short Markdown summary for a reviewer: versions, evaluation options, per case
-    method/basis, energy, reference, verdict, the checks (value vs tolerance), and the
-    hashes. Eh. Parts of a damaged certificate that are not objects are left out."""
+    method/basis, energy, reference, verdict, the checks (value vs tolerance), the
+    hashes, and what the certificate covers (:data:`COVERAGE_LINES`). Eh.
+
+    ``verification``: the :class:`VerificationResult` of this certificate. When it was
+    recomputed, every case it recomputed is shown with the recomputed values and verdict,
+    never the certificate's own claims; when it found problems the verdict is REJECTED
+    with the first one. Parts of a damaged certificate that are not objects are left out."""
     versions = _obj(cert.get("versions"))
     plat = _obj(cert.get("platform"))
     cases = _case_entries(cert)
-    n_pass = sum(1 for c in cases if c.get("passed"))
-    n_unsupported = sum(1 for c in cases if _case_status(c) == "unsupported")
-    unsupported_text = f", {n_unsupported} unsupported" if n_unsupported else ""
+    recomputed = dict(verification.results) if verification is not None else {}
+    rows = [_row_of(c, recomputed.get(c.get("name"))) for c in cases]
     lines = [
         "# SCF verdict certificate",
         "",
@@ -730,29 +906,26 @@ def summary_markdown(cert: Mapping[str, Any]) -> str:
         f"({plat.get('python', '?')}, {plat.get('platform', '?')})",
         f"- code: `{cert.get('plugin') or '?'}`",
         *_evaluation_line(cert),
-        f"- verdict: **{'PASSED' if cert.get('passed') else 'FAILED'}** "
-        f"({n_pass} of {len(cases)} cases passed{unsupported_text}); energies in hartree "
-        f"(Eh), lengths in bohr",
+        _verdict_line(rows, verification),
+        _source_line(verification),
         "",
         "| case | method/basis | energy (Eh) | reference (Eh) | reference from | verdict |",
         "|---|---|---|---|---|---|",
     ]
-    for c in cases:
+    for c, row in zip(cases, rows):
         inputs = _obj(c.get("inputs"))
-        ref = _obj(c.get("reference"))
         basis = f"{inputs.get('basis', '?')}" + (" (cartesian)" if inputs.get("cartesian")
                                                  else "")
         lines.append(f"| {c.get('name')} | {inputs.get('method', '?')}/{basis} | "
-                     f"{_fmt(c.get('energy'))} | {_fmt(ref.get('energy'))} | "
-                     f"{ref.get('source') or '—'} | {_verdict_word(c)} |")
-    for c in cases:
+                     f"{_fmt(row['energy'])} | {_fmt(row['reference'])} | "
+                     f"{row['source'] or '—'} | {_WORDS.get(row['status'], 'FAILED')} |")
+    for c, row in zip(cases, rows):
         lines += ["", f"## {c.get('name')}", ""]
-        if c.get("error"):
-            lines.append(f"- error: {c['error']}")
-        elif _case_status(c) == "unsupported":
-            lines.append(f"- unsupported: {c.get('unsupported')}")
-        checks = c.get("checks") if isinstance(c.get("checks"), list) else []
-        for check in (k for k in checks if isinstance(k, dict)):
+        if row["error"]:
+            lines.append(f"- error: {row['error']}")
+        elif row["status"] == "unsupported":
+            lines.append(f"- unsupported: {row['unsupported']}")
+        for check in row["checks"]:
             status = check.get("status")
             mark = {"passed": "✓", "failed": "✗"}.get(status, "–")
             if check.get("value") is not None and check.get("tolerance") is not None:
@@ -765,5 +938,5 @@ def summary_markdown(cert: Mapping[str, Any]) -> str:
         lines.append(f"- solution hash `{solution.get('sha256', '—')}`")
     sidecar = _obj(cert.get("sidecar"))
     lines += ["", f"Sidecar `{sidecar.get('file', '—')}` `{sidecar.get('sha256', '—')}`; "
-                  f"certificate `{cert.get(HASH_KEY, '—')}`.", ""]
+                  f"certificate `{cert.get(HASH_KEY, '—')}`.", "", *COVERAGE_LINES, ""]
     return "\n".join(lines)

@@ -6,7 +6,10 @@ fork). The child re-imports the plug-in from its spec (or, when the plug-in is g
 as a picklable callable such as ``harness.run.external.CommandPlugin``, receives it
 pickled), calls it on the case's
 ``Problem`` (bohr), normalises the return value with ``harness.contract.solution.extract`` and
-sends it back, or sends a one-line error naming the plug-in's own innermost frame.
+sends it back, or sends a one-line error naming the plug-in's own innermost frame. What
+crosses back goes through the closed channel of ``harness.run.channel`` (plain data, a
+JSON header and raw buffers, checked on arrival): nothing a child sends is unpickled, so
+a plug-in that writes into the pipe itself gets its case failed, never code run here.
 A timeout (seconds), a crash (a signal, an exit), a garbage return value or an
 exception fails that case only; the run goes on. The checks run in this process.
 
@@ -34,13 +37,14 @@ from typing import Any, Callable, Iterable
 
 from harness.contract import defaults as _defaults
 from harness.contract.errors import PluginLoadError, Unsupported, innermost_frame
+from harness.run import channel
 from harness.run.plugins import load_plugin
 from harness.contract.results import CaseResult
 from harness.run.outcome import RunOutcome  # noqa: F401  (re-exported: run_cases returns it)
 from harness.verdict.judge import JudgeSettings, judge, reference_energy
 
 #: Modules the fork server imports once, so each child starts without re-importing them.
-PRELOAD = ["numpy", "pyscf", "harness.contract.solution"]
+PRELOAD = ["numpy", "pyscf", "harness.contract.solution", "harness.run.channel"]
 
 #: Seconds a child gets to exit after SIGTERM before it is killed (timed-out cases,
 #: interrupted runs): time for a plug-in's clean-up, such as removing a scratch folder.
@@ -149,16 +153,21 @@ def _reason(exc: BaseException) -> str:
     return " ".join(_message(exc).split()) or "no reason given"
 
 
-def _send(conn, message: dict, fallback: str) -> None:
-    """Send ``message``; if it cannot be pickled, send ``{"error": fallback + why}``
-    instead; if the harness is gone, nothing. Never raises (no traceback from a child)."""
+def _send(conn, message: dict, fallback: str, kind: str = "case") -> None:
+    """Send ``message`` over the closed channel (``harness.run.channel``: plain data, no
+    pickle); if it cannot cross, send ``{"error": fallback + why}`` instead; if the
+    harness is gone, nothing. Never raises (no traceback from a child)."""
     try:
-        conn.send(message)
+        channel.send(conn, kind, message)
         return
-    except BaseException as exc:  # a value that cannot be pickled, or a closed pipe
+    except BaseException as exc:  # a value that cannot cross, or a closed pipe
         why = _first_line(exc)
+    fallback_message = {"error": f"{fallback}: {why}"}
+    if kind == "case":
+        seconds = message.get("seconds")
+        fallback_message["seconds"] = seconds if isinstance(seconds, float) else None
     try:
-        conn.send({"error": f"{fallback}: {why}", "seconds": message.get("seconds")})
+        channel.send(conn, kind, fallback_message)
     except BaseException:
         pass
 
@@ -277,7 +286,7 @@ def _load_check_main(conn, plugin_spec: str, path: list[str], cwd: str, output: 
     _enter(conn, path, cwd)
     _, error = _load(plugin_spec)
     _send(conn, {"ok": True} if error is None else {"error": error},
-          f"plug-in {plugin_spec!r}: cannot report the load check")
+          f"plug-in {plugin_spec!r}: cannot report the load check", kind="load")
     os._exit(0)
 
 
@@ -671,14 +680,12 @@ def _await_load_check(proc, conn, spec: str, timeout: float) -> str | None:
         ready = multiprocessing.connection.wait([conn, proc.sentinel],
                                                 timeout=max(0.0, min(INTERRUPT_POLL, left)))
         if conn in ready or conn.poll():
-            try:
-                reply = conn.recv()
-            except (EOFError, OSError):  # the child ended without a reply
-                reply = None
-            if isinstance(reply, dict):
-                return None if reply.get("ok") is True else str(reply.get("error"))
+            try:  # never conn.recv(): nothing from plug-in code is unpickled
+                reply = channel.receive(conn, "load")
+            except channel.ChannelError as exc:
+                return f"plug-in {spec!r}: the load check failed: {channel.unreadable(str(exc))}"
             if reply is not None:
-                return f"plug-in {spec!r}: the load check sent an unexpected reply"
+                return None if reply.get("ok") is True else reply["error"]
         elif proc.sentinel not in ready:
             if left <= 0:
                 return f"plug-in {spec!r}: importing it took longer than {timeout:g} s"
@@ -885,17 +892,18 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
                 run.reference, run.reference_source = _reference(case, reference_dir,
                                                                  write_references)
         except Exception as exc:
-            run.reference_error = f"{type(exc).__name__}: {exc}".splitlines()[0]
+            from harness.catalogue.references import reference_error_text
+            run.reference_error = reference_error_text(exc)
         references[case.name] = run.reference
 
     def collect(run: _Running) -> None:
         message, error = None, None
         if run.conn.poll():
-            try:
-                message = run.conn.recv()
-            except (EOFError, OSError):
-                message = None
-        if message is None:
+            try:  # never conn.recv(): nothing from plug-in code is unpickled
+                message = channel.receive(run.conn, "case")
+            except channel.ChannelError as exc:
+                error = channel.unreadable(str(exc))
+        if message is None and error is None:
             run.process.join(TERMINATE_GRACE)
             error = death_reason(run.process.exitcode)
             if run.process.exitcode == 255 and _fork_server_died():

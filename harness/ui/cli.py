@@ -361,6 +361,15 @@ def build_parser() -> argparse.ArgumentParser:
     verify.add_argument("--references", type=Path, metavar="DIR",
                         help=REFERENCES_HELP)
 
+    rehash = rsub.add_parser("rehash", help="re-store the content hashes of stored "
+                             "references (values untouched)",
+                             description="Re-store the content hashes of the stored "
+                             "references (default: all cases), leaving every value as "
+                             "it is; a maintenance step: review the values' diff, since "
+                             "re-hashing an edited file makes the edit pass.")
+    _add_selection(rehash, "every catalogue case")
+    rehash.add_argument("--references", type=Path, metavar="DIR", help=REFERENCES_HELP)
+
     cases = sub.add_parser("cases", help="list the catalogue (or a suite file's cases)",
                            description="List the catalogue's cases (name, method, basis, "
                            "number of AOs, suites, note): all of them, or the selection "
@@ -682,7 +691,8 @@ def _check_result(args, console) -> int:
     try:
         reference, source = reference_for(case, args.references)
     except Exception as exc:
-        reference_error = f"{type(exc).__name__}: {exc}".splitlines()[0]
+        from harness.catalogue.references import reference_error_text
+        reference_error = reference_error_text(exc)
     extracted = None
     try:
         extracted = extract(read_solution(args.file, problem=problem,
@@ -745,7 +755,7 @@ def _verify_certificate(args, console) -> int:
             cert = None
         if cert is not None:
             args.markdown.parent.mkdir(parents=True, exist_ok=True)
-            args.markdown.write_text(summary_markdown(cert), encoding="utf-8")
+            args.markdown.write_text(summary_markdown(cert, result), encoding="utf-8")
             console.print(f"summary: {args.markdown}", markup=False, soft_wrap=True)
         else:
             console.print(f"summary: not written ({path} is not a readable certificate)",
@@ -790,11 +800,12 @@ def _bench(args, console) -> int:
 def _references(args, console) -> int:
     from harness.catalogue import references
     if args.action is None:
-        raise UsageError("references needs an action: build or verify")
+        raise UsageError("references needs an action: build, verify or rehash")
     cases, _ = select_cases(args.suites, args.case_names, default_suite=None,
                             bases=args.bases, methods=args.methods)
     directory = args.references
-    if args.action == "verify" and directory is not None and not directory.is_dir():
+    if args.action in ("verify", "rehash") and directory is not None \
+            and not directory.is_dir():
         raise UsageError(f"--references: not a folder: {directory}")
     if args.action == "build" and directory is not None and directory.exists() \
             and not directory.is_dir():
@@ -803,6 +814,11 @@ def _references(args, console) -> int:
         for name, what in references.build(cases, directory, force=args.force):
             console.print(f"{name}: {what}", markup=False, soft_wrap=True)
         return 0
+    if args.action == "rehash":
+        rows = references.rehash(cases, directory)
+        for name, what in rows:
+            console.print(f"{name}: {what}", markup=False, soft_wrap=True)
+        return 1 if any(what.startswith("not rehashed") for _, what in rows) else 0
     bad = 0
     rows = references.verify(cases, directory, recompute=args.recompute)
     for name, ok, detail in rows:

@@ -448,10 +448,10 @@ def _reference_of(case):
     """``(reference, source, None)`` as the runner finds it
     (``harness.catalogue.references.reference_for``: stored, else computed), or
     ``(None, None, one-line reason)`` when there is none."""
-    from harness.catalogue.references import reference_for
+    from harness.catalogue.references import reference_error_text, reference_for
 
     try:
         reference, source = reference_for(case)
     except Exception as exc:
-        return None, None, f"{type(exc).__name__}: {exc}".splitlines()[0]
+        return None, None, reference_error_text(exc)
     return reference, source, None

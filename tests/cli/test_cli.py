@@ -200,6 +200,20 @@ class TestMisbehavingPlugins:
         assert f"✗ {H2}" in result.stdout and f"✓ {WATER}" in result.stdout
         assert result.stdout.splitlines()[-1] == "1 passed, 1 failed"
 
+    def test_a_pickle_written_into_the_result_pipe_fails_the_case_unread(self, work):
+        """A plug-in that writes its own pickled message into the result pipe and calls
+        os._exit(0): the case fails with the reason, exit status 1, and the pickle's code
+        (creating a file in the harness's folder) never ran."""
+        shutil.copy(PLUGINS / "forges_channel.py", work / "forges_channel.py")
+        result = cli("certify", "forges_channel.py:pickle_into_pipe", "--case", H2,
+                     "--json", "out.json", cwd=work)
+        assert result.returncode == 1, result.stdout + result.stderr
+        assert read_json(work / "out.json")["cases"][0]["error"] == (
+            "the plug-in's process sent a message the harness cannot read: a pickle, not "
+            "the channel's plain-data format (nothing was unpickled)")
+        assert not (work / "forged-pickle-ran.txt").exists()
+        assert result.stdout.splitlines()[-1] == "0 passed, 1 failed"
+
     def test_timeout(self, work):
         """A plug-in sleeping past --timeout 2 fails 'timed out after 2.0 s', promptly."""
         begin = time.monotonic()

@@ -428,3 +428,50 @@ def test_check_judges_as_certify_does(project):
     with its reason) and passes an AO convention on to the checks."""
     project.makepyfile(test_scf_check_judging=JUDGE_TESTS)
     project.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=2)
+
+
+TAMPERED_TEST = '''
+from harness.testing.example_scf import solve
+
+
+def test_h2(scf_case, scf_check):
+    case = scf_case("h2-sto-3g-rhf")
+    scf_check(solve(case.problem()), case)
+'''
+
+
+@pytest.mark.parametrize("tampered", [False, True])
+def test_scf_check_refuses_a_tampered_reference(project, monkeypatch, tmp_path, tampered):
+    """A stored reference edited with its nuclear term (the terms still sum to the total):
+    scf_check fails the correct code's reference-energy, naming the file; untouched, it
+    passes (issue 14)."""
+    import json
+    import shutil
+    import sys
+    from pathlib import Path
+
+    from harness.catalogue.cases import default_reference_dir
+
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "unit"))
+    try:
+        from reference_tampering import H2, TAMPERINGS, tampered_reason
+    finally:
+        sys.path.pop(0)
+    root = tmp_path / "references"
+    shutil.copytree(default_reference_dir(), root)
+    path = root / "data" / f"{H2}.json"
+    if tampered:
+        data = json.loads(path.read_text())
+        TAMPERINGS["total-and-nuclear"][0](data)
+        path.write_text(json.dumps(data, indent=1))
+    monkeypatch.setenv("SCF_HARNESS_REFERENCES", str(root))
+    project.makepyfile(test_tampered=TAMPERED_TEST)
+    result = project.runpytest("-p", "no:cacheprovider")
+    if not tampered:
+        result.assert_outcomes(passed=1)
+        return
+    result.assert_outcomes(failed=1)
+    reason = tampered_reason(path, "total-and-nuclear")
+    expected = f"AssertionError: reference-energy: no reference ({H2}): {reason}"
+    assert any(line.startswith("E ") and line[1:].strip() == expected
+               for line in lines_of(result)), lines_of(result)

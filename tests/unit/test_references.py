@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 import json
+from pathlib import Path
 import shutil
 
 import numpy as np
@@ -12,6 +13,7 @@ import pytest
 from harness.catalogue import references as refs
 from harness.catalogue.cases import Case, load_catalogue
 from harness.contract.errors import ReferenceDataError
+from reference_tampering import H2, TAMPERINGS, edit_total, tamper, tampered_reason
 
 
 @pytest.fixture(scope="module")
@@ -205,12 +207,73 @@ def test_reference_for_build_and_verify(catalogue, tmp_path):
     result = refs.verify([case, other], tmp_path, recompute=True)
     assert [ok for _, ok, _ in result] == [True, True]
     assert "recomputed within" in result[0][2]
-    # a stored total that no longer matches its terms (or a recomputation) fails
+    # a recomputation that differs from an intact stored total fails
     path = tmp_path / f"{other.name}.json"
     data = json.loads(path.read_text())
-    data["energies"]["total"] += 1e-6
+    for key in ("total", "nuclear"):
+        data["energies"][key] += 1e-6
+    ref = refs.Reference.from_json(data)
+    data[refs.CONTENT_HASH_KEY] = refs.content_hashes(ref.to_json())  # a careful forger
     path.write_text(json.dumps(data, indent=1))
     name, ok, message = refs.verify([other], tmp_path, recompute=True)[0]
     assert not ok
-    assert "energy terms miss the total by 1.0e-06 Eh" in message
     assert "differs by -1.0e-06 > 1e-09" in message
+
+
+# --------------------------------------------------------------------------- tampering
+
+@pytest.mark.parametrize("kind", sorted(TAMPERINGS))
+def test_a_tampered_reference_is_refused_by_load_and_verify(catalogue, tmp_path, kind):
+    path, case = tamper(catalogue, tmp_path, TAMPERINGS[kind][0])
+    reason = tampered_reason(path, kind)
+    with pytest.raises(refs.ReferenceTampered) as err:
+        refs.load_reference(case, tmp_path)
+    assert str(err.value) == reason
+    assert refs.verify([case], tmp_path) == [(H2, False, reason)]
+    # not computed over: reference_for raises, so the case fails naming the file
+    with pytest.raises(refs.ReferenceTampered):
+        refs.reference_for(case, tmp_path)
+    assert refs.reference_error_text(err.value) == reason
+
+
+def test_untouched_references_pass_and_carry_content_hashes(catalogue, stored):
+    """Every stored file verifies; its content hashes cover every energy term, the
+    orbital energies, occupations, ⟨S²⟩ and the known states."""
+    rows = refs.verify(catalogue.cases)
+    assert [r for r in rows if not r[1]] == []
+    assert all(r[2].startswith("input and content hashes match, E = ") for r in rows)
+    data = json.loads(refs.reference_path(catalogue.case(H2)).read_text())
+    assert {"energies.total", "energies.nuclear", "energies.one_electron",
+            "energies.coulomb", "energies.exchange", "orbital_energies", "occupations",
+            "s_squared", "dipole", "known_states"} <= set(data[refs.CONTENT_HASH_KEY])
+
+
+def test_stored_terms_sum_within_the_tolerance(stored):
+    """The tolerance's reason holds: full-precision terms sum to the total to rounding."""
+    worst = max(abs(r.energy - r.energy_terms_sum) for r in stored.values())
+    assert worst < refs.STORED_TERMS_TOLERANCE / 100
+
+
+def test_missing_content_hashes_are_refused(catalogue, tmp_path):
+    path, case = tamper(catalogue, tmp_path, lambda d: d.pop(refs.CONTENT_HASH_KEY))
+    with pytest.raises(refs.ReferenceTampered) as err:
+        refs.load_reference(case, tmp_path)
+    assert str(err.value) == (f"reference tampered or corrupted: {path}: no content_hashes "
+                              f"(written before content hashing or removed; `scf-harness "
+                              f"references rehash` re-stores them)")
+
+
+def test_rehash_restores_hashes_and_keeps_values(catalogue, tmp_path):
+    """rehash writes the hashes of the values as read; every value stays as it was; a
+    file whose terms miss the total is not rehashed."""
+    path, case = tamper(catalogue, tmp_path, lambda d: d.pop(refs.CONTENT_HASH_KEY))
+    before = json.loads(path.read_text())
+    assert refs.rehash([case], tmp_path) == [
+        (H2, f"rehashed, E = {before['energies']['total']!r} Eh (values unchanged)")]
+    after = json.loads(path.read_text())
+    assert after.pop(refs.CONTENT_HASH_KEY) and after == before
+    assert refs.load_reference(case, tmp_path).energy == before["energies"]["total"]
+    assert refs.rehash([case], tmp_path) == [(H2, "kept (content hashes match)")]
+    tamper(catalogue, tmp_path, edit_total)
+    (name, what), = refs.rehash([case], tmp_path)
+    assert what.startswith("not rehashed: energy terms sum to ")

@@ -541,11 +541,48 @@ class TestUnprintableExceptions:
         assert runner.describe_exception(ValueError("a\nb")) == "ValueError: a"
 
     def test_send_falls_back_to_a_one_line_error(self):
-        """A message that does not pickle is replaced by an error naming why."""
+        """A message that cannot cross the closed channel (not plain data) is replaced by
+        an error naming why."""
+        from harness.run import channel
+
         mine, theirs = multiprocessing.Pipe()
         runner._send(mine, {"solution": {"energy": Unsendable()}, "seconds": 0.5},
                      "cannot send the plug-in's result")
-        assert theirs.recv() == {"error": "cannot send the plug-in's result: Unprintable: "
-                                          "<unprintable message>", "seconds": 0.5}
+        assert channel.receive(theirs, "case") == {
+            "error": "cannot send the plug-in's result: ChannelError: a Unsendable cannot "
+                     "cross", "seconds": 0.5}
         mine.close()
         theirs.close()
+
+
+FORGES = PLUGINS.parent / "forges_channel.py"
+
+
+class TestForgedMessages:
+    """A plug-in that writes its own pickle into the result pipe (issue 14): the harness
+    reads only the closed channel's plain data, so the pickle's code never runs here and
+    the case fails with the reason."""
+
+    @pytest.mark.parametrize("function", ["pickle_into_pipe", "raw_pickle_into_fd"])
+    def test_a_pickled_message_fails_the_case_unread(self, function, tmp_path, monkeypatch):
+        monkeypatch.chdir(tmp_path)  # the child works here; the pickle would write here
+        out = runner.run_cases([FakeCase("h2-sto-3g-rhf")], f"{FORGES}:{function}",
+                               tolerances=Tolerances(), timeout=30.0)
+        (case,) = out.cases
+        assert case.error == ("the plug-in's process sent a message the harness cannot "
+                              "read: a pickle, not the channel's plain-data format (nothing "
+                              "was unpickled)")
+        assert not case.passed and not out.passed
+        assert not (tmp_path / "forged-pickle-ran.txt").exists()
+
+    def test_a_pickle_written_at_import_fails_the_load_check_unread(self, tmp_path,
+                                                                    monkeypatch):
+        monkeypatch.chdir(tmp_path)
+        spec_ = f"{PLUGINS.parent / 'import_forges.py'}:solve"
+        with pytest.raises(PluginLoadError) as info:
+            runner.check_plugin(spec_, timeout=30.0)
+        assert str(info.value) == (
+            f"plug-in {spec_!r}: the load check failed: the plug-in's process sent a message "
+            f"the harness cannot read: a pickle, not the channel's plain-data format "
+            f"(nothing was unpickled)")
+        assert not (tmp_path / "forged-pickle-ran.txt").exists()
