@@ -138,8 +138,9 @@ def encode(kind: str, message: Mapping[str, Any]) -> bytes:
     header = json.dumps({"kind": kind, "message": body,
                          "buffers": [[b.dtype.str, list(b.shape)] for b in buffers]},
                         separators=(",", ":")).encode("utf-8")
+    # memoryviews of the contiguous arrays: their bytes are copied once, into the message
     return b"".join([MAGIC, _PREFIX.pack(len(header)), header,
-                     *(b.tobytes(order="C") for b in buffers)])
+                     *(b.reshape(-1).view(np.uint8) for b in buffers)])
 
 
 # --------------------------------------------------------------------------- decoding
