@@ -18,7 +18,7 @@ import pytest
 from hypothesis import given, settings, strategies as st
 from hypothesis.extra import numpy as hnp
 
-from harness.contract.solution import KNOWN_KEYS, MAX_ARRAY_ELEMENTS, Malformed
+from harness.contract.solution import KNOWN_KEYS, MAX_ARRAY_ELEMENTS, Malformed, Solution
 from harness.run import channel
 from harness.run.channel import ChannelError, decode, encode
 
@@ -33,7 +33,12 @@ def raw(header: dict, *buffers: bytes) -> bytes:
 
 
 def same(a, b) -> bool:
-    """Equal, arrays by dtype, shape and bytes (NaN equal to NaN)."""
+    """Equal, arrays by dtype, shape and bytes (NaN equal to NaN); a Solution as its
+    given fields."""
+    if isinstance(a, Solution):
+        a = a.as_dict()
+    if isinstance(b, Solution):
+        b = b.as_dict()
     if isinstance(a, np.ndarray) or isinstance(b, np.ndarray):
         return (isinstance(a, np.ndarray) and isinstance(b, np.ndarray)
                 and a.dtype == b.dtype and a.shape == b.shape and a.tobytes() == b.tobytes())
@@ -86,8 +91,8 @@ class TestRoundTrip:
     def test_arrays_come_back_writable_and_owned(self):
         out = decode(encode("case", {"solution": {"density": np.eye(2)}, "seconds": 1.0}),
                      "case")
-        out["solution"]["density"][0, 0] = 5.0  # a copy, not a view of the message bytes
-        assert out["solution"]["density"][0, 0] == 5.0
+        out["solution"].density[0, 0] = 5.0  # a copy, not a view of the message bytes
+        assert out["solution"].density[0, 0] == 5.0
 
     def test_a_value_that_is_not_plain_data_cannot_be_sent(self):
         with pytest.raises(ChannelError, match="^a object cannot cross$"):
@@ -216,7 +221,7 @@ class TestRefused:
 
     def test_messages_without_their_keys(self):
         assert refused(encode("case", {"seconds": 1.0})) == (
-            "neither 'solution' nor 'error' in the message")
+            "neither 'solution', 'error' nor an unsupported reason in the message")
         assert refused(encode("case", {"error": 3})) == "'error' is not a string"
         assert refused(encode("case", {"solution": {}, "seconds": "1"})) == (
             "'seconds' is not a number")
