@@ -28,7 +28,9 @@ from harness.contract.solution import extract
 
 #: The named Fock-fit and energy bugs; an entry's hint may name at most one of them.
 NAMED = ("exchange scaled by 2", "no exchange", "Coulomb from one spin only",
-         "exchange built from the total density", "core Hamiltonian missing kinetic energy",
+         "exchange built from the total density instead of each spin's density",
+         "density not rebuilt from the final orbitals", "integral screening too loose",
+         "core Hamiltonian missing kinetic energy",
          "missing nuclear attraction", "nuclear repulsion missing",
          "nuclear repulsion counted twice", "coordinates read as ångström",
          "two-electron energy double counted", "exchange energy doubled",
