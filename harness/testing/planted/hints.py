@@ -215,8 +215,8 @@ class _TracePF(LabSCF):
 
 
 def energy_as_trace_of_fock(problem) -> dict:
-    """E = Tr(P F) + E_nuc (missing ½ on the two-electron part): "two-electron energy double
-    counted" on energy-consistency (a near miss on two-electron systems, where
+    """E = Tr(P F) + E_nuc (missing ½ on the electron-repulsion part): "two-electron energy
+    double counted" on energy-consistency (a near miss on systems of two electrons, where
     E_J + E_K = −E_K and the hint must be withheld)."""
     return _run(_TracePF, problem)
 
@@ -487,10 +487,10 @@ ALSO_HINTS = {
 
 
 def _catalogue():
-    from harness.testing.planted import Planted
+    from harness.testing.planted import Planted, note_of
 
     def entry(function, case, fails, hint=None, check=None, none=()):
-        note = (function.__doc__ or "").strip().splitlines()[0]
+        note = note_of(function)
         return Planted(function.__name__, function, case, frozenset(fails), note, hint=hint,
                        hint_check=check, no_hint_on=frozenset(none))
 
