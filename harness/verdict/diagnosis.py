@@ -601,10 +601,15 @@ def screening_hint(method: str, f_code: np.ndarray, rebuilt: np.ndarray, d: np.n
     ao_loc = shell_structure(ints.mol).ao_loc
     exact = float(np.abs(f_code - rebuilt).max())
     best = (np.inf, None, None)
-    for tau in SCREENING_THRESHOLDS:
+    # from the loosest τ down; masks grow as τ falls, so an equal kept count is the same mask
+    # (the largest τ giving a mask is the one named)
+    seen: dict[str, int] = {}
+    for tau in sorted(SCREENING_THRESHOLDS, reverse=True):
         for scheme, keep in zip(SCREENING_SCHEMES, screening_masks(eri, ao_loc, tau)):
-            if keep.all():
+            kept = int(keep.sum())
+            if kept == keep.size or seen.get(scheme) == kept:
                 continue
+            seen[scheme] = kept
             gap = float(np.abs(f_code - screened_fock(eri, keep, ints.h, d)).max())
             if gap < best[0]:
                 best = (gap, scheme, tau)
