@@ -30,7 +30,7 @@ from harness.checks import energy as _energy
 from harness.checks.spin import density_by_spin, density_from_orbitals, fock_by_spin
 from harness.checks.spin import orbitals_by_spin
 from harness.contract.results import fixed
-from harness.contract.units import ANGSTROM_IN_BOHR, HARTREE_IN_EV
+from harness.contract.units import ANGSTROM_IN_BOHR, BOHR_IN_ANGSTROM, HARTREE_IN_EV
 
 # --------------------------------------------------------------------------- constants
 
@@ -79,6 +79,39 @@ MIN_SHIFT = 10 * ORBITAL_MATCH
 #: A constant shift is recognised only on at least this many virtual orbitals of a spin
 #: (a single virtual orbital's error is always "constant").
 MIN_SHIFTED_VIRTUALS = 2
+
+
+#: The name of the UHF/ROHF Fock-fit signature Fσ = … − K(Pα + Pβ) (or −½K(Pα + Pβ)).
+TOTAL_DENSITY_EXCHANGE = "exchange built from the total density instead of each spin's density"
+
+#: Stale density (density-consistency): the reported orbitals count as eigenvectors of
+#: F[P_reported] when max|X(F[P] Pc S − S Pc F[P])X| (Pc = C n Cᵀ, Eh) is at most this.
+#: Orbitals obtained by diagonalising F[P] give ~1e-13; a code that diagonalised some
+#: other matrix (a DIIS extrapolation, a damped Fock) leaves ≥ 1e-6 at any density that
+#: fails density-consistency (1e-5), so 1e-8 separates the two with room on both sides.
+STALE_ORBITALS_STATIONARY = 1e-8
+
+#: Coordinates read as ångström (basis): the code's overlap counts as that of the
+#: molecule scaled by 1/0.529177 when max|S_code − S(R × 1.8897)| is at most this.
+#: Overlaps of one molecule agree to ~1e-14 between programs (common practice); an older
+#: CODATA bohr (relative change ~1e-9) moves S by ~1e-9; any other geometry or basis
+#: misses by ≥ 1e-3.
+GEOMETRY_OVERLAP_MATCH = 1e-6
+
+#: Screening (self-consistency): a screened rebuild F_τ[P] (two-electron integrals below
+#: τ left out by one of SCREENING_SCHEMES) explains the code's Fock when
+#: max|F − F_τ[P]| ≤ SCREENING_EXPLAINED × max|F − F[P]|: the same τ and scheme
+#: reproduce F to rounding (~1e-14 relative), a neighbouring τ of the grid still leaves
+#: ≥ 10 % of the difference, and the Fock of another iterate is not reproduced by any τ.
+SCREENING_EXPLAINED = 1e-2
+#: Thresholds τ (Eh) tried: 1, 2 and 5 × 10^k for k = −10 … −1 (the values codes use).
+SCREENING_THRESHOLDS = tuple(m * 10.0 ** k for k in range(-10, 0) for m in (1, 2, 5))
+#: Largest basis for the screening test: it holds the full (μν|λσ) array (nao⁴ doubles,
+#: 20 MB at 40 AO) and rebuilds J and K once per (scheme, τ).
+SCREENING_MAX_NAO = 40
+#: How integrals are screened: each (μν|λσ) by its magnitude; by its Schwarz bound
+#: √((μν|μν)(λσ|λσ)) per AO pair; by that bound's largest value over shell pairs.
+SCREENING_SCHEMES = ("magnitude", "Schwarz bound per AO pair", "Schwarz bound per shell pair")
 
 
 # --------------------------------------------------------------------------- results
@@ -217,7 +250,9 @@ def fock_signatures(label: str, expected: Mapping[str, float]) -> dict[str, list
     RHF: "exchange scaled by 2" K = −1; "no exchange" K = 0; "core Hamiltonian missing
     kinetic energy" T = 0; "missing nuclear attraction" V = 0. UHF (own spin σ, other σ'):
     "exchange scaled by 2" K(Pσ) = −2; "no exchange" K(Pσ) = 0; "Coulomb from one spin
-    only" J(Pσ') = 0 or J(Pσ) = 0; "exchange built from the total density" K(Pσ') = −1.
+    only" J(Pσ') = 0 or J(Pσ) = 0; "exchange built from the total density instead of each
+    spin's density" (TOTAL_DENSITY_EXCHANGE) K(Pσ') = −1 (K(Pα + Pβ)) or K(Pσ) = K(Pσ')
+    = −½ (½K(Pα + Pβ), the RHF formula applied to each spin).
     Merged UHF: K(Pσ) = −2 is "exchange scaled by 2 or built from the total density",
     J(P) = ½ "Coulomb from one spin only".
     """
@@ -243,7 +278,8 @@ def fock_signatures(label: str, expected: Mapping[str, float]) -> dict[str, list
     sig["no exchange"] = [{**expected, f"K(P{own})": 0.0}]
     sig["Coulomb from one spin only"] = [{**expected, f"J(P{other})": 0.0},
                                          {**expected, f"J(P{own})": 0.0}]
-    sig["exchange built from the total density"] = [{**expected, f"K(P{other})": -1.0}]
+    sig[TOTAL_DENSITY_EXCHANGE] = [{**expected, f"K(P{other})": -1.0},
+                                   {**expected, f"K(P{own})": -0.5, f"K(P{other})": -0.5}]
     return sig
 
 
@@ -449,6 +485,150 @@ def orbital_signature(eps: np.ndarray, r: np.ndarray, occ: np.ndarray) -> str | 
             f"occupied agree to {np.abs(eps - r)[filled].max():.0e} Eh")
 
 
+# --------------------------------------------------------------------------- stale density
+
+
+def stale_density_hint(method: str, d: np.ndarray, built: np.ndarray, rebuilt: np.ndarray,
+                       s: np.ndarray, results) -> tuple[str | None, dict]:
+    """(hint, numbers) for a reported density that is not C n Cᵀ of the reported orbitals.
+
+    Given only when density-consistency failed while idempotency and electron-count
+    passed (P is a density of the right size) and, RHF/UHF, the orbitals' density
+    Pc = C n Cᵀ commutes with F[P] of the *reported* P: max|X(F[P] Pc S − S Pc F[P])X|
+    ≤ STALE_ORBITALS_STATIONARY — the orbitals came from diagonalising F[P], so P is the
+    density they were computed from, not the one rebuilt from them. ROHF: none (its
+    orbitals diagonalise an effective Fock that depends on the orbitals themselves).
+    d, built, rebuilt: (ns, nao, nao); Eh.
+    """
+    if method == "rohf" or not (_failed(results, "density-consistency")
+                                and _passed(results, "idempotency")
+                                and _passed(results, "electron-count")):
+        return None, {}
+    from harness.checks import orthonormal as _orth
+    from harness.checks import stationarity as _stat
+
+    low = _orth.lowdin(s)
+    orbitals = _stat.commutator(rebuilt, built, s, low).value
+    own = _stat.commutator(rebuilt, d, s, low).value
+    diff = float(np.abs(d - built).max())
+    numbers = {"max|P - CnC^T|": diff, "orbitals vs F[P]": orbitals, "P vs F[P]": own}
+    if not orbitals <= STALE_ORBITALS_STATIONARY:
+        return None, numbers
+    return (f"density not rebuilt from the final orbitals: the reported P is a density "
+            f"(PSP = P, Tr(PS) = N) but differs from C n Cᵀ of the reported orbitals by "
+            f"{diff:.1e}, and those orbitals diagonalise F[P] (max|X(F[P] CnCᵀ S − S CnCᵀ "
+            f"F[P])X| = {orbitals:.0e} Eh): P is the density they were computed from — "
+            f"rebuild P from the final orbitals (stale density of an earlier iterate?)"), numbers
+
+
+# --------------------------------------------------------------------------- geometry
+
+
+def geometry_hint(problem, s_code) -> tuple[str | None, dict]:
+    """(hint, numbers) when the code's overlap is that of the molecule with its bohr
+    coordinates read as ångström, R × 1/0.529177 (ANGSTROM_IN_BOHR):
+    max|S_code − S(R × ANGSTROM_IN_BOHR)| ≤ GEOMETRY_OVERLAP_MATCH (S_code in pyscf's AO
+    order, same size). The overlap is built by ``harness.backend.integrals``."""
+    from harness.backend.integrals import overlap
+
+    s_code = np.asarray(s_code, dtype=float)
+    stretched = problem.replace(coordinates=np.asarray(problem.coordinates) * ANGSTROM_IN_BOHR)
+    s_scaled = overlap(stretched.to_pyscf())
+    if s_scaled.shape != s_code.shape:
+        return None, {}
+    gap = float(np.abs(s_code - s_scaled).max())
+    numbers = {"max|S - S(R x 1/0.529177)|": gap}
+    if not gap <= GEOMETRY_OVERLAP_MATCH:
+        return None, numbers
+    return (f"coordinates read as ångström: the code's overlap is that of the molecule with "
+            f"its bohr coordinates read as ångström (max|S − S(R × {ANGSTROM_IN_BOHR:.4f})| = "
+            f"{gap:.0e}): convert bohr ↔ ångström (1 bohr = {BOHR_IN_ANGSTROM:.6f} Å)"), numbers
+
+
+# --------------------------------------------------------------------------- screening
+
+
+def screening_masks(eri: np.ndarray, ao_loc, threshold: float):
+    """Kept-integral masks of :data:`SCREENING_SCHEMES` at ``threshold`` (Eh), in order:
+    |(μν|λσ)| ≥ τ; q_μν q_λσ ≥ τ with q_μν = √|(μν|μν)|; Q_IJ Q_KL ≥ τ with Q_IJ the
+    largest q_μν over μ in shell I, ν in shell J (``ao_loc``: first AO of each shell)."""
+    n = eri.shape[0]
+    q = np.sqrt(np.abs(np.einsum("ijij->ij", eri)))
+    yield np.abs(eri) >= threshold
+    yield (np.multiply.outer(q, q) >= threshold)
+    shell = np.repeat(np.arange(len(ao_loc) - 1), np.diff(ao_loc))
+    qs = np.zeros((len(ao_loc) - 1,) * 2)
+    np.maximum.at(qs, (shell[:, None].repeat(n, 1), shell[None, :].repeat(n, 0)), q)
+    qa = qs[shell][:, shell]
+    yield np.multiply.outer(qa, qa) >= threshold
+
+
+def screened_fock(eri: np.ndarray, keep: np.ndarray, h: np.ndarray, d: np.ndarray):
+    """F_τ[P] from the kept integrals: RHF H + J − ½K, UHF Hσ + J − K(Pσ), (ns, nao, nao).
+
+    J_μν = Σ (μν|λσ) P_λσ, K_μν = Σ (μλ|νσ) P_λσ over the kept (μν|λσ) only."""
+    g = np.where(keep, eri, 0.0)
+    n = h.shape[0]
+    j = (g.reshape(n * n, n * n) @ d.sum(axis=0).reshape(n * n)).reshape(n, n)
+    k = np.einsum("ikjl,skl->sij", g, d)
+    if len(d) == 1:
+        return (h + j - 0.5 * k[0])[None]
+    return np.stack([h + j - k[0], h + j - k[1]])
+
+
+def screened_energy(d: np.ndarray, h: np.ndarray, f: np.ndarray, e_nuc: float) -> float:
+    """E = ½ Σσ Tr[Pσ (H + Fσ)] + E_nuc (RHF: one component, the total P), Eh."""
+    return float(0.5 * sum(np.einsum("pq,qp->", ds, h + fs) for ds, fs in zip(d, f))) + e_nuc
+
+
+def screening_hint(method: str, f_code: np.ndarray, rebuilt: np.ndarray, d: np.ndarray,
+                   ints, results) -> tuple[str | None, dict, np.ndarray | None]:
+    """(hint, numbers, F_τ[P]) when the code's Fock is F[P] built with screening too loose.
+
+    Tried only when self-consistency failed but stationarity passed (the code's F is
+    stationary for its own P: converged, but on another Fock) and nao ≤ SCREENING_MAX_NAO.
+    For each scheme of SCREENING_SCHEMES and τ of SCREENING_THRESHOLDS, F_τ[P] is
+    rebuilt; the hint names the (scheme, τ) with the smallest max|F − F_τ[P]| when that is
+    ≤ SCREENING_EXPLAINED × max|F − F[P]|. RHF/UHF/ROHF (Fα, Fβ); Eh.
+    """
+    nao = rebuilt.shape[-1]
+    if not (_failed(results, "self-consistency") and _passed(results, "stationarity")) \
+            or nao > SCREENING_MAX_NAO:
+        return None, {}, None
+    from harness.backend.integrals import shell_structure
+
+    eri = ints.eri()
+    ao_loc = shell_structure(ints.mol).ao_loc
+    exact = float(np.abs(f_code - rebuilt).max())
+    best = (np.inf, None, None)
+    # from the loosest τ down; masks grow as τ falls, so an equal kept count is the same mask
+    # (the largest τ giving a mask is the one named)
+    seen: dict[str, int] = {}
+    for tau in sorted(SCREENING_THRESHOLDS, reverse=True):
+        for scheme, keep in zip(SCREENING_SCHEMES, screening_masks(eri, ao_loc, tau)):
+            kept = int(keep.sum())
+            if kept == keep.size or seen.get(scheme) == kept:
+                continue
+            seen[scheme] = kept
+            gap = float(np.abs(f_code - screened_fock(eri, keep, ints.h, d)).max())
+            if gap < best[0]:
+                best = (gap, scheme, tau)
+    gap, scheme, tau = best
+    numbers = {"max|F - F[P]|": exact, "max|F - F_tau[P]|": None if scheme is None else gap,
+               "scheme": scheme, "tau": tau}
+    if scheme is None or not gap <= SCREENING_EXPLAINED * exact:
+        return None, numbers, None
+    what = {"magnitude": "magnitude |(μν|λσ)|",
+            "Schwarz bound per AO pair": "Schwarz bound √((μν|μν)(λσ|λσ))",
+            "Schwarz bound per shell pair": "shell-pair Schwarz bound"}[scheme]
+    return (f"integral screening too loose: the code's Fock differs from F[P] by up to "
+            f"{exact:.1e} Eh, and F[P] built without the two-electron integrals whose "
+            f"{what} < {tau:.0e} Eh reproduces it to {gap:.0e} Eh: tighten the screening "
+            f"threshold (typically 1e-10 or below)"), numbers, \
+        screened_fock(eri, list(screening_masks(eri, ao_loc, tau))[
+            SCREENING_SCHEMES.index(scheme)], ints.h, d)
+
+
 # --------------------------------------------------------------------------- diagnose
 
 
@@ -496,6 +676,14 @@ def diagnose(problem, sol: Solution, ints, d: np.ndarray, results, *, reference=
     method = problem.method
     d = np.asarray(d, dtype=float)
     s = ints.s
+    if _failed(results, "basis") and isinstance(sol.overlap, np.ndarray):
+        hint, numbers = geometry_hint(problem, sol.overlap)
+        if numbers:
+            analysis["geometry"] = numbers
+        if hint:
+            for name in ("basis", "overlap"):
+                if _failed(results, name):
+                    hints[name] = hint
     t = ints.kinetic()
     v = ints.h - t  # H = T + V
 
@@ -524,8 +712,18 @@ def diagnose(problem, sol: Solution, ints, d: np.ndarray, results, *, reference=
             j, vk = ints.jk_components(d)
             vj_total = j.sum(axis=0)
 
+    rebuilt = _energy.fock_from_terms(ints.h, vj_total, vk, len(d))
+    built = density_from_orbitals(*orbitals_by_spin(method, sol.coefficients,
+                                                    sol.occupations))
+    hint, numbers = stale_density_hint(method, d, built, rebuilt, s, results)
+    if numbers:
+        analysis["stale_density"] = numbers
+    if hint:
+        hints["density-consistency"] = hint
+
     # 1. Fock fit
     fock_note = None
+    screening = None
     if sol.fock is not None:
         f = fock_by_spin(method, sol.fock)
         fits = fit_fock(method, f, t, v, j, vk)
@@ -538,6 +736,13 @@ def diagnose(problem, sol: Solution, ints, d: np.ndarray, results, *, reference=
             for name in ("stationarity", "self-consistency"):
                 if _failed(results, name):
                     hints[name] = fock_note
+        if fock_note is None:
+            hint, numbers, f_tau = screening_hint(method, f, rebuilt, d, ints, results)
+            if numbers:
+                analysis["screening"] = numbers
+            if hint:
+                hints["self-consistency"] = hint
+                screening = (hint, f_tau)
 
     # 2. energy split
     terms = _energy.energy_terms(d, ints.h, vj_total, vk, ints.e_nuc)
@@ -566,6 +771,13 @@ def diagnose(problem, sol: Solution, ints, d: np.ndarray, results, *, reference=
             fock_word = FOCK_FOR_ENERGY.get(name)
             if fock_word and fock_note and fock_note.startswith(fock_word):
                 hint += "; consistent with the Fock fit"
+        elif screening is not None:
+            e_tau = screened_energy(d, ints.h, screening[1], ints.e_nuc)
+            analysis["screening"]["E_tau[P]"] = e_tau
+            if abs(e - e_tau) <= ENERGY_MATCH:
+                hint = (f"{screening[0].split(':')[0]}: E − E[P] = {fixed(diff, 6, sign=True)} "
+                        f"Eh, and E = E_τ[P] of the same screened integrals to "
+                        f"{abs(e - e_tau):.0e} Eh (see self-consistency)")
         elif abs(diff) <= ITERATE_ENERGY and _failed(results, "self-consistency"):
             sc = results["self-consistency"].value
             hint = (f"guess: energy belongs to another iterate? E − E[P] = {diff:+.2e} Eh is "

@@ -121,6 +121,52 @@ class TestWholeCatalogue:
         assert {_label(o.entry) for o in outcome.entries if o.matched} >= free
 
 
+def _checks_named(note: str) -> set[str]:
+    """Check names a note mentions outside quotation marks (quoted text is a hint's or a
+    message's wording), as whole hyphenated words."""
+    import re
+
+    from harness.checks.tolerances import CHECK_NAMES
+
+    text = re.sub(r'"[^"]*"', "", note)
+    return {n for n in CHECK_NAMES if re.search(rf"(?<![\w-]){re.escape(n)}(?![\w-])", text)}
+
+
+class TestWhatItPlants:
+    """The "what it plants" column (each entry's note) agrees with the entry's expected
+    failing checks: a check it names must be one the entry expects to fail."""
+
+    def test_named_checks_are_expected_to_fail(self):
+        wrong = {_label(e): sorted(_checks_named(e.note) - e.fails)
+                 for e in planted.catalogue() if _checks_named(e.note) - e.fails}
+        assert wrong == {}
+
+    def test_notes_are_whole_sentences(self):
+        for e in planted.catalogue():
+            assert e.note and e.note.count('"') % 2 == 0, _label(e)
+            assert e.note.count("(") == e.note.count(")"), _label(e)
+            assert not e.note.endswith((":", ",")), _label(e)
+
+    def test_the_comparison_can_fail(self):
+        """The note of the old one_electron_too_many said electron-count catches it while
+        only well-formed is expected: that disagreement is found."""
+        note = "Occupations sum to N + 1: electron-count catches it."
+        assert _checks_named(note) - {"well-formed"} == {"electron-count"}
+        assert _checks_named('hint "kinetic energy missing" on self-consistency') == {
+            "self-consistency"}
+        assert _checks_named("maximum-overlap following; the overlap-definite check") == {
+            "overlap-definite"}
+
+    def test_note_is_the_first_paragraph(self):
+        def f(problem):
+            """First line that wraps
+            onto a second line.
+
+            Details."""
+
+        assert planted.note_of(f) == "First line that wraps onto a second line."
+
+
 def _boom(problem):
     raise RuntimeError("planted crash")
 

@@ -28,7 +28,9 @@ from harness.contract.solution import extract
 
 #: The named Fock-fit and energy bugs; an entry's hint may name at most one of them.
 NAMED = ("exchange scaled by 2", "no exchange", "Coulomb from one spin only",
-         "exchange built from the total density", "core Hamiltonian missing kinetic energy",
+         "exchange built from the total density instead of each spin's density",
+         "density not rebuilt from the final orbitals", "integral screening too loose",
+         "core Hamiltonian missing kinetic energy",
          "missing nuclear attraction", "nuclear repulsion missing",
          "nuclear repulsion counted twice", "coordinates read as ångström",
          "two-electron energy double counted", "exchange energy doubled",
@@ -216,3 +218,26 @@ def test_reusing_evaluates_jk_gives_the_same_diagnosis(name, case):
                                        fit["coefficients"], atol=1e-10)
     assert reused.analysis["energy"]["E[P]"] == pytest.approx(own.analysis["energy"]["E[P]"],
                                                               abs=1e-10)
+
+
+@pytest.mark.parametrize("module, name, check, words", [
+    ("core", "damping_left_in_final_density", "density-consistency", "density not rebuilt"),
+    ("integrals", "overlap_not_positive_definite", "basis", "read as ångström"),
+    ("integrals", "overlap_not_positive_definite", "overlap", "read as ångström"),
+])
+def test_new_hints_withheld_on_near_misses(module, name, check, words):
+    """A mixed (non-idempotent) density is not called stale; an overlap that is wrong in
+    another way is not called that of the ångström-read molecule (the comparison is made:
+    its gap is in the analysis, far above the match)."""
+    import importlib
+
+    from harness.verdict.diagnosis import GEOMETRY_OVERLAP_MATCH
+
+    solve = getattr(importlib.import_module(f"harness.testing.planted.{module}"), name)
+    case = catalogue().case(planted.RHF)
+    reference, _ = reference_for(case)
+    results, diag = run(solve, case.problem(), reference)
+    assert results[check].passed is False
+    assert words not in diag.hints.get(check, "")
+    if check in ("basis", "overlap"):
+        assert diag.analysis["geometry"]["max|S - S(R x 1/0.529177)|"] > 100 * GEOMETRY_OVERLAP_MATCH

@@ -161,7 +161,10 @@ class TestUHFSignatures:
         ({"ka": (-2, 0), "kb": (0, -2)}, "exchange scaled by 2"),
         ({"ka": (0, 0), "kb": (0, 0)}, "no exchange"),
         ({"ja": (1, 0), "jb": (0, 1)}, "Coulomb from one spin only"),
-        ({"ka": (-1, -1), "kb": (-1, -1)}, "exchange built from the total density"),
+        ({"ka": (-1, -1), "kb": (-1, -1)},
+         "exchange built from the total density instead of each spin's density"),
+        ({"ka": (-0.5, -0.5), "kb": (-0.5, -0.5)},
+         "exchange built from the total density instead of each spin's density"),
     ])
     def test_named(self, kw, name):
         t, v, j, k = uhf_terms(np.random.default_rng(21))
@@ -363,3 +366,106 @@ def test_wrong_energy_on_constructed_solution(water_rhf):
                                              f"{-e_nuc:+.6f} Eh = −E_nuc ({e_nuc:.6f} Eh)"}
     assert d.analysis["energy"]["E - E[P]"] == pytest.approx(-e_nuc, abs=1e-9)
     json.dumps(d.analysis, allow_nan=False)
+
+
+# ----------------------------------------------------------------- stale density, screening
+
+
+class _Result:
+    def __init__(self, passed):
+        self.passed = passed
+
+
+def _results(**flags):
+    return {name.replace("_", "-"): _Result(v) for name, v in flags.items()}
+
+
+def _orbital_problem(rng, n=6, nocc=2):
+    """Synthetic: S = 1 + small symmetric, a symmetric F, its occupied eigenvectors."""
+    s = np.eye(n) + 0.02 * sym(rng, n)
+    f = sym(rng, n)
+    w, u = np.linalg.eigh(s)
+    x = (u / np.sqrt(w)) @ u.T
+    e, cp = np.linalg.eigh(x @ f @ x)
+    c = x @ cp
+    return s, f, c[:, :nocc]
+
+
+class TestStaleDensity:
+    """Synthetic densities (synthetic numbers, not a molecule)."""
+
+    flags = dict(density_consistency=False, idempotency=True, electron_count=True)
+
+    def test_orbitals_of_the_reported_densitys_fock(self):
+        rng = np.random.default_rng(31)
+        s, f, c = _orbital_problem(rng)
+        built = (2 * c @ c.T)[None]
+        other = np.linalg.qr(rng.standard_normal((6, 2)))[0]
+        w, u = np.linalg.eigh(s)
+        x = (u / np.sqrt(w)) @ u.T
+        d = (2 * (x @ other) @ (x @ other).T)[None]  # idempotent in the S metric
+        hint, numbers = dg.stale_density_hint("rhf", d, built, f[None], s,
+                                              _results(**self.flags))
+        assert numbers["orbitals vs F[P]"] < 1e-12
+        assert hint.startswith("density not rebuilt from the final orbitals: the reported P "
+                               "is a density (PSP = P, Tr(PS) = N) but differs from C n Cᵀ "
+                               "of the reported orbitals by ")
+
+    def test_orbitals_of_another_matrix_get_no_hint(self):
+        rng = np.random.default_rng(32)
+        s, f, c = _orbital_problem(rng)
+        built = (2 * c @ c.T)[None]
+        hint, numbers = dg.stale_density_hint("rhf", built * 0.5, built, f[None] + 0.1 * sym(rng, 6),
+                                              s, _results(**self.flags))
+        assert hint is None and numbers["orbitals vs F[P]"] > dg.STALE_ORBITALS_STATIONARY
+
+    @pytest.mark.parametrize("flag", ["idempotency", "electron_count"])
+    def test_not_a_density_gets_no_hint(self, flag):
+        rng = np.random.default_rng(33)
+        s, f, c = _orbital_problem(rng)
+        built = (2 * c @ c.T)[None]
+        flags = dict(self.flags, **{flag: False})
+        assert dg.stale_density_hint("rhf", built, built, f[None], s, _results(**flags)) \
+            == (None, {})
+
+    def test_rohf_gets_no_hint(self):
+        rng = np.random.default_rng(34)
+        s, f, c = _orbital_problem(rng)
+        d = np.stack([c @ c.T, c @ c.T])
+        assert dg.stale_density_hint("rohf", d, d, np.stack([f, f]), s,
+                                     _results(**self.flags)) == (None, {})
+
+
+class TestScreening:
+    def eri(self, rng, n=4):
+        """A synthetic (μν|λσ) with the 8-fold symmetry: Σ_k B_k ⊗ B_k of symmetric B_k."""
+        b = np.stack([sym(rng, n) for _ in range(3)]) * np.logspace(0, -3, n)[None, :, None]
+        b = 0.5 * (b + b.transpose(0, 2, 1))
+        return np.einsum("kij,kls->ijls", b, b)
+
+    def test_masks_order_and_monotone(self):
+        eri = self.eri(np.random.default_rng(41))
+        loc = np.array([0, 1, 4])
+        loose = list(dg.screening_masks(eri, loc, 1e-2))
+        tight = list(dg.screening_masks(eri, loc, 1e-8))
+        assert len(loose) == len(dg.SCREENING_SCHEMES)
+        np.testing.assert_array_equal(loose[0], np.abs(eri) >= 1e-2)
+        for a, b in zip(loose, tight):
+            assert np.all(b[a])  # what survives the loose threshold survives the tight one
+        assert not loose[0].all() and not loose[1].all() and tight[1].all()
+        # the shell-pair bound is the largest AO-pair bound of the shells: keeps a superset
+        assert np.all(loose[2][loose[1]])
+
+    def test_screened_fock_with_every_integral_is_the_plain_fock(self):
+        rng = np.random.default_rng(42)
+        eri = self.eri(rng)
+        h, d = sym(rng, 4), sym(rng, 4)[None]
+        j = np.einsum("ijkl,kl->ij", eri, d[0])
+        k = np.einsum("ikjl,kl->ij", eri, d[0])
+        np.testing.assert_allclose(dg.screened_fock(eri, np.ones(eri.shape, bool), h, d)[0],
+                                   h + j - 0.5 * k, atol=1e-12)
+
+    def test_no_screening_test_unless_stationary_on_its_own_fock(self):
+        out = dg.screening_hint("rhf", None, np.zeros((1, 3, 3)), None, None,
+                                _results(self_consistency=False, stationarity=False))
+        assert out == (None, {}, None)

@@ -45,15 +45,25 @@ class Planted:
         return not self.fails
 
 
+def note_of(function) -> str:
+    """What a plug-in plants, for ``scf-harness selftest``: the first paragraph of its
+    docstring, joined into one line (a docstring's first line may wrap; the note never
+    ends mid-sentence). It may name checks only if they fail for every entry of the
+    function (tests/cli/test_selftest.py checks each note against its entry's ``fails``);
+    the "expected failing checks" column lists them exactly."""
+    paragraph = (function.__doc__ or "").strip().split("\n\n")[0]
+    return " ".join(line.strip() for line in paragraph.splitlines())
+
+
 def entries(caught, correct=()) -> tuple[Planted, ...]:
     """Catalogue entries from ``(function, cases, fails)`` rows of planted bugs and
     ``(function, cases)`` rows of correct variants; each entry's note is the first line of
-    the function's docstring."""
+    the function's docstring (:func:`note_of`)."""
     out: list[Planted] = []
     rows = [(f, cases, fails) for f, cases, fails in caught] + \
         [(f, cases, ()) for f, cases in correct]
     for function, cases, fails in rows:
-        note = (function.__doc__ or "").strip().splitlines()[0]
+        note = note_of(function)
         out += [Planted(function.__name__, function, case, frozenset(fails), note)
                 for case in cases]
     return tuple(out)

@@ -81,7 +81,7 @@ class _IgnoresOverlap(LabSCF):
 
 
 def eigensolve_ignores_overlap(problem) -> dict:
-    """Solves F C = C ε as if S = 1: orthonormality, electron-count, roothaan-hall catch it.
+    """Solves F C = C ε as if S = 1: orthonormality, electron-count, stationarity catch it.
 
     CᵀC = 1 instead of CᵀSC = 1; the loop never meets its own criterion either, so it
     reports converged=False after MAX_ITERATIONS.
@@ -99,7 +99,7 @@ class _OneTooMany(LabSCF):
 
 
 def one_electron_too_many(problem) -> dict:
-    """Occupations sum to N + 1 (a 1 on the LUMO; UHF: alpha LUMO): electron-count catches it."""
+    """Occupations sum to N + 1 (a 1 on the LUMO; UHF: alpha LUMO): well-formed refuses it."""
     return _run(_OneTooMany, problem)
 
 
@@ -156,7 +156,7 @@ class _MaximumOverlap(LabSCF):
 
 
 def excited_determinant(problem) -> dict:
-    """Converges the HOMO→LUMO swapped determinant: aufbau and reference-energy catch it.
+    """Converges the HOMO→LUMO swapped determinant: reference-energy and stability catch it.
 
     Kept by maximum overlap with the previous orbitals; the result is stationary (the
     invariant checks pass) but it is not the ground state.

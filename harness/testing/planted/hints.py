@@ -18,7 +18,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from harness.testing.example_scf import LabSCF, density
+import dataclasses
+
+from harness.testing.example_scf import LabSCF, compute_integrals, density
 from harness.contract.units import ANGSTROM_IN_BOHR, HARTREE_IN_EV
 
 #: Level shift (Eh) left in the virtual orbital energies by the level-shift code.
@@ -32,6 +34,9 @@ EARLY_STOP = 4
 ROUND_DECIMALS = 4
 #: Constant added to every orbital energy by the near-miss code (Eh).
 ALL_ORBITAL_SHIFT = 0.3
+#: The loosely screened code drops every (μν|λσ) whose Schwarz bound
+#: sqrt((μν|μν)(λσ|λσ)) is below this (Eh); production codes use ~1e-10 to 1e-12.
+LOOSE_SCREENING = 1e-2
 
 
 def _run(cls, problem) -> dict:
@@ -106,6 +111,20 @@ class _ExchangeOfTotal(LabSCF):
 def exchange_from_total_density(problem) -> dict:
     """UHF Fσ = H + J(P) − K(Pα + Pβ): hint "exchange built from the total density"."""
     return _run(_ExchangeOfTotal, problem)
+
+
+class _RestrictedExchangeFormula(LabSCF):
+    def fock(self, d):
+        if self.method == "rhf":
+            return super().fock(d)
+        j, k = self.coulomb_exchange(d[0] + d[1])
+        return np.stack([self.h + j - 0.5 * k, self.h + j - 0.5 * k])
+
+
+def exchange_half_of_total_density(problem) -> dict:
+    """UHF Fσ = H + J(P) − ½K(Pα + Pβ) (the RHF formula for each spin): hint "exchange
+    built from the total density"."""
+    return _run(_RestrictedExchangeFormula, problem)
 
 
 class _NoKinetic(LabSCF):
@@ -196,8 +215,8 @@ class _TracePF(LabSCF):
 
 
 def energy_as_trace_of_fock(problem) -> dict:
-    """E = Tr(P F) + E_nuc (missing ½ on the two-electron part): "two-electron energy double
-    counted" on energy-consistency (a near miss on two-electron systems, where
+    """E = Tr(P F) + E_nuc (missing ½ on the electron-repulsion part): "two-electron energy
+    double counted" on energy-consistency (a near miss on systems of two electrons, where
     E_J + E_K = −E_K and the hint must be withheld)."""
     return _run(_TracePF, problem)
 
@@ -287,6 +306,64 @@ class _StaleFock(LabSCF):
 def fock_of_previous_iterate(problem) -> dict:
     """Near miss: unconverged, reports the Fock of the previous density: no Fock-fit hint."""
     return _run(_StaleFock, problem)
+
+
+class _StaleDensity(LabSCF):
+    """Stops after EARLY_STOP plain (undamped, no DIIS) steps, says converged, and
+    reports the orbitals of the last diagonalisation with the density (and its Fock and
+    energy) from before it: the density is never rebuilt from the final orbitals."""
+
+    def iterate(self):
+        e, c = self.initial_orbitals()
+        occ = self.occupy(e, c)
+        d = f = None
+        for _ in range(EARLY_STOP):
+            d = self.density(c, occ)
+            f = self.fock(d)
+            e, c = self.orbitals(self.effective_fock(f, c, occ))
+            occ = self.occupy(e, c)
+        return self.report(e, c, occ, d, f, True, EARLY_STOP)
+
+
+def density_not_rebuilt(problem) -> dict:
+    """Stops early and reports the density of the previous iterate with the new orbitals."""
+    return _run(_StaleDensity, problem)
+
+
+class _GeometryInAngstrom(LabSCF):
+    """Reads the problem's coordinates (bohr) as ångström: every integral, E_nuc included,
+    is that of the molecule scaled by 1/0.529177."""
+
+    def __init__(self, problem, integrals=None):
+        stretched = problem.replace(coordinates=np.asarray(problem.coordinates)
+                                    * ANGSTROM_IN_BOHR)
+        super().__init__(problem, compute_integrals(stretched))
+
+
+def geometry_read_as_angstrom(problem) -> dict:
+    """Coordinates in bohr read as ångström: the whole molecule 1.89 times too large."""
+    return _run(_GeometryInAngstrom, problem)
+
+
+def _schwarz_screened(ints, threshold: float):
+    """The integrals with (μν|λσ) = 0 wherever sqrt((μν|μν)(λσ|λσ)) < threshold."""
+    n = ints.s.shape[0]
+    diag = np.sqrt(np.abs(np.einsum("ijij->ij", ints.eri))).reshape(n * n)
+    keep = (np.outer(diag, diag) >= threshold).reshape((n,) * 4)
+    return dataclasses.replace(ints, eri=np.where(keep, ints.eri, 0.0))
+
+
+class _LooseScreening(LabSCF):
+    """Converges with its own Schwarz-screened integrals, threshold LOOSE_SCREENING."""
+
+    def __init__(self, problem, integrals=None):
+        ints = integrals if integrals is not None else compute_integrals(problem)
+        super().__init__(problem, _schwarz_screened(ints, LOOSE_SCREENING))
+
+
+def integral_screening_too_loose(problem) -> dict:
+    """Integrals screened at LOOSE_SCREENING (Schwarz): converged, but to F of the wrong ERIs."""
+    return _run(_LooseScreening, problem)
 
 
 def energy_rounded(problem) -> dict:
@@ -400,14 +477,20 @@ ALSO_HINTS = {
         "energy-consistency": "nuclear-attraction energy missing"},
     ("nuclear_repulsion_left_out", RHF): {"reference-energy": "nuclear repulsion missing"},
     ("nuclear_repulsion_left_out", UHF): {"reference-energy": "nuclear repulsion missing"},
+    ("geometry_read_as_angstrom", RHF): {"overlap": "coordinates read as ångström"},
+    ("integral_screening_too_loose", RHF): {
+        "energy-consistency": "integral screening too loose: E − E[P] = +0.006990 Eh, and "
+                              "E = E_τ[P] of the same screened integrals to "},
+    ("integral_screening_too_loose", UHF): {
+        "energy-consistency": "integral screening too loose: E − E[P] = "},
 }
 
 
 def _catalogue():
-    from harness.testing.planted import Planted
+    from harness.testing.planted import Planted, note_of
 
     def entry(function, case, fails, hint=None, check=None, none=()):
-        note = (function.__doc__ or "").strip().splitlines()[0]
+        note = note_of(function)
         return Planted(function.__name__, function, case, frozenset(fails), note, hint=hint,
                        hint_check=check, no_hint_on=frozenset(none))
 
@@ -417,6 +500,8 @@ def _catalogue():
     s2 = "spin-squared"
     fock_bug = {sc, ec, ref}
     density_bug = {"density-consistency", cnt, ec, sc}
+    geometry_bug = {"basis", "overlap", "orthonormality", "idempotency", cnt, st, sc, rh, ec,
+                    ref, "core-hamiltonian"}
     entries = [
         entry(exchange_doubled, RHF, fock_bug, "exchange scaled by 2: Fock ≈ 1.00 T + 1.00 V "
               "+ 1.00 J − 1.00 K (expected −0.50 K)", sc),
@@ -430,7 +515,13 @@ def _catalogue():
         entry(coulomb_from_own_spin, UHF, fock_bug | {s2}, "Coulomb from one spin only: Fα ≈", sc,
               none={ec, ref}),
         entry(exchange_from_total_density, UHF, fock_bug | {s2},
-              "exchange built from the total density: Fα ≈", sc, none={ec, ref}),
+              "exchange built from the total density instead of each spin's density: Fα ≈ "
+              "1.00 T + 1.00 V + 1.00 J(Pα) + 1.00 J(Pβ) − 1.00 K(Pα) − 1.00 K(Pβ) (expected "
+              "0.00 K(Pβ))", sc, none={ec, ref}),
+        entry(exchange_half_of_total_density, UHF, fock_bug | {s2},
+              "exchange built from the total density instead of each spin's density: Fα ≈ "
+              "1.00 T + 1.00 V + 1.00 J(Pα) + 1.00 J(Pβ) − 0.50 K(Pα) − 0.50 K(Pβ) (expected "
+              "−1.00 K(Pα), 0.00 K(Pβ))", sc, none={ec, ref}),
         entry(core_without_kinetic, RHF, fock_bug,
               "core Hamiltonian missing kinetic energy: Fock ≈ 0.00 T + 1.00 V", sc),
         entry(core_without_nuclear_attraction, RHF, fock_bug,
@@ -464,6 +555,27 @@ def _catalogue():
               cnt, none={sc, st, ec, ref}),
         entry(density_one_orbital_too_many, UHF, density_bug | {s2}, "one alpha orbital too many",
               cnt, none={sc, st, ec, ref}),
+        entry(density_not_rebuilt, RHF, {"density-consistency", st, sc, ref},
+              "density not rebuilt from the final orbitals: the reported P is a density "
+              "(PSP = P, Tr(PS) = N) but differs from C n Cᵀ of the reported orbitals by "
+              "1.9e-02, and those orbitals diagonalise F[P]", "density-consistency",
+              none={st, sc, ec, ref}),
+        entry(density_not_rebuilt, UHF, {"density-consistency", st, sc, ref, s2},
+              "density not rebuilt from the final orbitals: the reported P is a density",
+              "density-consistency", none={st, sc, ec, ref}),
+        entry(geometry_read_as_angstrom, RHF, geometry_bug,
+              "coordinates read as ångström: the code's overlap is that of the molecule with "
+              "its bohr coordinates read as ångström (max|S − S(R × 1.8897)| = ",
+              "basis"),
+        entry(geometry_read_as_angstrom, UHF, geometry_bug | {s2},
+              "convert bohr ↔ ångström (1 bohr = 0.529177 Å)", "basis"),
+        entry(integral_screening_too_loose, RHF, fock_bug,
+              "integral screening too loose: the code's Fock differs from F[P] by up to "
+              "4.0e-03 Eh, and F[P] built without the two-electron integrals whose Schwarz "
+              "bound √((μν|μν)(λσ|λσ)) < 1e-02 Eh reproduces it to ", sc, none={st, ref}),
+        entry(integral_screening_too_loose, UHF, fock_bug | {"energy-error-bound"},
+              "integral screening too loose: the code's Fock differs from F[P] by up to "
+              "7.3e-03 Eh", sc, none={st, ref}),
         entry(orbital_energies_in_ev, RHF, {rh}, "orbital energies in eV", rh),
         entry(orbital_energies_in_ev, UHF, {rh}, "orbital energies in eV", rh),
         entry(level_shift_left_in_virtuals, RHF, {rh},

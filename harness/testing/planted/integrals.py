@@ -60,7 +60,7 @@ def _run(cls, problem) -> dict:
 # ---------------------------------------------------------------------------------------
 
 def all_integrals_reported(problem) -> dict:
-    """Correct: reports S, T, V, H, the ERIs and its history; every check must pass."""
+    """Correct: reports S, T, V, H, the ERIs and its iteration record; every check must pass."""
     return _run(_Recording, problem)
 
 

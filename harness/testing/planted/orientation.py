@@ -70,10 +70,10 @@ def assumes_heaviest_atom_first(problem) -> dict:
 
 
 def _catalogue():
-    from harness.testing.planted import Planted
+    from harness.testing.planted import Planted, note_of
 
     function = nuclear_repulsion_from_abs_coordinates
-    note = (function.__doc__ or "").strip().splitlines()[0]
+    note = note_of(function)
     return (Planted(function.__name__, function, "water-sto-3g-rhf",
                     frozenset({"well-formed"}), note),)
 

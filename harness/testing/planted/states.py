@@ -73,7 +73,7 @@ class _CoreGuessMaximumOverlap(_MaximumOverlap):
 
 
 def core_guess_maximum_overlap(problem) -> dict:
-    """Core-Hamiltonian guess locked in by maximum overlap: converges to an excited state.
+    """Core-Hamiltonian guess locked in by maximum-overlap following: converges to an excited state.
 
     Stationary, so every core invariant passes (ROHF has no aufbau check); stability and
     reference-energy catch it, and it is the reference's known state found from "1e".
@@ -160,7 +160,7 @@ class _CoreGuess(LabSCF):
 
 
 def core_guess(problem) -> dict:
-    """Correct for the ethynyl radical: the bare core-Hamiltonian guess with aufbau and DIIS.
+    """Correct for the ethynyl radical: the bare core-Hamiltonian guess, lowest orbitals filled, DIIS.
 
     Here it reaches the lowest ROHF solution (the lab code's guess finds the higher one);
     every check passes.
@@ -171,7 +171,7 @@ def core_guess(problem) -> dict:
 # --------------------------------------------------------------------------- catalogue
 
 def _catalogue():
-    from harness.testing.planted import Planted
+    from harness.testing.planted import Planted, note_of
 
     h2, n2 = "h2-stretched-6-31g-uhf", "n2-stretched-6-31g-uhf"
     c2h_u, c2h_r, nh2_r = "c2h-6-31g-uhf", "c2h-6-31g-rohf", "nh2-sto-3g-rohf"
@@ -199,7 +199,7 @@ def _catalogue():
     ]
     out = []
     for function, case, fails, hint in entries:
-        note = (function.__doc__ or "").strip().splitlines()[0]
+        note = note_of(function)
         out.append(Planted(function.__name__, function, case, frozenset(fails or ()), note,
                            hint=hint, hint_check="reference-energy" if hint else None,
                            no_hint_on=frozenset() if hint else frozenset({"reference-energy"})))
