@@ -1,0 +1,204 @@
+"""Adapters for independent open-source SCF programs installed from the package registry.
+
+Each ``solve_<code>(problem) -> dict`` is a plug-in: it hands the harness ``Problem``
+(coordinates in **bohr**, energies returned in **hartree**) to the code, lets the code do
+its own integrals and its own SCF, and returns what the code computed — energy,
+coefficients, occupations, orbital energies, density, Fock, overlap and the integrals the
+code exposes — in the code's own AO order, normalisation and sign conventions. Nothing
+is reordered or rescaled here: detecting AO conventions is the harness's job.
+
+Two ways to give a code its basis:
+
+* by name (``solve_<code>``): the code's own basis data for ``problem.basis``. A basis the
+  code does not carry raises :class:`CodeCannotRun` ("no cc-pVDZ in pyqint").
+* the harness's basis (``solve_<code>_harness_basis``): the NWChem-format text of the
+  exact basis the reference uses — ``problem.basis_nwchem`` when the Problem has it,
+  otherwise what ``scf-harness --command`` writes as ``basis.nwchem``
+  (``harness.run.external.basis_nwchem(problem.to_pyscf())``) — parsed here and handed
+  to the code as its own basis objects.
+
+Codes (see docs/external-codes.md, "Tried on real codes"):
+
+* pyqint (``pip install pyqint``): C++ integrals, Python RHF/UHF with DIIS; cartesian
+  Gaussians, each primitive normalised, contractions as given; basis files sto3g, sto6g,
+  p321 (3-21G), p631 (6-31G), aug-cc-pVXZ. No ROHF.
+* pyquante2 (``pip install pyquante2``): Cython integrals, Python RHF/UHF/ROHF; cartesian
+  Gaussians; bases sto-3g, 6-31g, 6-31g**.
+* openqp (``pip install openqp``, imported as ``oqp``): Fortran core; bases from its own
+  basis-set-exchange files (see that adapter).
+"""
+
+from __future__ import annotations
+
+import os
+
+import numpy as np
+
+os.environ.setdefault("OMP_NUM_THREADS", "1")  # the machine is shared; one thread per code
+
+#: Element symbols by atomic number (index 0 unused), H..Ar: every case of the catalogue.
+SYMBOLS = ("X", "H", "He", "Li", "Be", "B", "C", "N", "O", "F", "Ne", "Na", "Mg", "Al",
+           "Si", "P", "S", "Cl", "Ar")
+LETTERS = "SPDFGHI"
+
+
+class CodeCannotRun(NotImplementedError):
+    """The code has no way to run this case (a basis or a method it does not carry)."""
+
+
+def cannot_run(reason: str):
+    """Raise the harness's 'unsupported' exception if this harness has one, else ours."""
+    import harness
+
+    cls = getattr(harness, "Unsupported", None)
+    raise (cls or CodeCannotRun)(reason)
+
+
+# --------------------------------------------------------------------------- basis text
+
+
+def harness_basis_text(problem) -> str:
+    """NWChem-format text of the exact basis the reference uses (full precision)."""
+    text = getattr(problem, "basis_nwchem", None)
+    if text:
+        return text
+    from harness.run.external import basis_nwchem
+
+    return basis_nwchem(problem.to_pyscf())
+
+
+def parse_nwchem(text: str) -> dict[str, list[tuple[int, list[float], list[float]]]]:
+    """{symbol: [(l, exponents, coefficients), ...]} from NWChem basis text.
+
+    A general contraction (several coefficient columns) becomes one shell per column;
+    an ``SP`` shell becomes an s and a p shell. Shell order as in the file."""
+    out: dict[str, list] = {}
+    current = None  # (symbol, letters, rows)
+
+    def flush():
+        if current is None:
+            return
+        symbol, letters, rows = current
+        exps = [r[0] for r in rows]
+        if letters == "SP":
+            out.setdefault(symbol, []).append((0, exps, [r[1] for r in rows]))
+            out[symbol].append((1, exps, [r[2] for r in rows]))
+            return
+        l = LETTERS.index(letters)
+        for col in range(1, len(rows[0])):
+            out.setdefault(symbol, []).append((l, exps, [r[col] for r in rows]))
+
+    for raw in text.splitlines():
+        line = raw.split("#")[0].strip()
+        if not line or line.upper().startswith(("BASIS", "END")):
+            continue
+        parts = line.split()
+        if parts[0][0].isalpha():
+            flush()
+            current = (parts[0].capitalize(), parts[1].upper(), [])
+        else:
+            current[2].append([float(x.replace("D", "E").replace("d", "e")) for x in parts])
+    flush()
+    return out
+
+
+def _method_guard(problem, code: str, methods: tuple[str, ...]):
+    if problem.method not in methods:
+        cannot_run(f"{code} has no {problem.method.upper()}")
+
+
+# --------------------------------------------------------------------------- pyqint
+
+#: pyqint's own basis files (pyqint/basissets/*.json) for the harness's basis names.
+PYQINT_BASES = {"sto-3g": "sto3g", "sto-6g": "sto6g", "3-21g": "p321", "6-31g": "p631",
+                "aug-cc-pvdz": "aug-cc-pVDZ", "aug-cc-pvtz": "aug-cc-pVTZ",
+                "aug-cc-pvqz": "aug-cc-pVQZ"}
+#: Energy-change threshold handed to pyqint's SCF (its only convergence control), Eh.
+PYQINT_ENERGY_TOLERANCE = 1e-12
+
+
+def _pyqint_molecule(problem):
+    from pyqint import Molecule
+
+    mol = Molecule(problem.name)
+    for z, (x, y, w) in zip(problem.numbers, problem.coordinates):
+        mol.add_atom(SYMBOLS[int(z)], float(x), float(y), float(w), unit="bohr")
+    mol.set_charge(int(problem.charge))
+    return mol
+
+
+def _pyqint_cgfs(problem):
+    """pyqint CGF objects for the harness's basis: cartesian shells in pyqint's own
+    order (xx, xy, xz, yy, yz, zz); spherical d and higher through pyqint's
+    ``add_spherical_gto`` in its m = -l..l order; p always x, y, z (as pyqint's own
+    basis loader builds them)."""
+    from pyqint import CGF
+
+    basis = parse_nwchem(harness_basis_text(problem))
+    cgfs = []
+    for z, xyz in zip(problem.numbers, problem.coordinates):
+        pos = [float(v) for v in xyz]
+        for l, exps, coefs in basis[SYMBOLS[int(z)]]:
+            if problem.cartesian or l < 2:
+                powers = sorted(((i, j, l - i - j) for i in range(l + 1)
+                                 for j in range(l + 1 - i)), reverse=True)
+                for lx, ly, lz in powers:
+                    cgf = CGF(pos)
+                    for a, c in zip(exps, coefs):
+                        cgf.add_gto(c, a, lx, ly, lz)
+                    cgfs.append(cgf)
+            else:
+                for m in range(-l, l + 1):
+                    cgf = CGF(pos)
+                    for a, c in zip(exps, coefs):
+                        cgf.add_spherical_gto(c, a, l, m)
+                    cgfs.append(cgf)
+    return cgfs
+
+
+def _pyqint_run(problem, basis):
+    from pyqint import HF
+
+    _method_guard(problem, "pyqint", ("rhf", "uhf"))
+    mol = _pyqint_molecule(problem)
+    hf = HF(mol, basis)
+    if problem.method == "rhf":
+        res = hf.rhf(tolerance=PYQINT_ENERGY_TOLERANCE, itermax=300)
+        n = len(res["orbe"])
+        occ = np.array([2.0 if i < problem.n_electrons // 2 else 0.0 for i in range(n)])
+        out = {"coefficients": res["orbc"], "occupations": occ,
+               "orbital_energies": res["orbe"], "density": res["density"],
+               "fock": res["fock"]}
+    else:
+        res = hf.uhf(problem.multiplicity, tolerance=PYQINT_ENERGY_TOLERANCE, itermax=300)
+        n = len(res["orbe_alpha"])
+        occ = np.array([[1.0 if i < k else 0.0 for i in range(n)]
+                        for k in (problem.n_alpha, problem.n_beta)])
+        out = {"coefficients": np.stack([res["orbc_alpha"], res["orbc_beta"]]),
+               "occupations": occ,
+               "orbital_energies": np.stack([res["orbe_alpha"], res["orbe_beta"]]),
+               "density": np.stack([res["density_alpha"], res["density_beta"]]),
+               "fock": np.stack([res["fock_alpha"], res["fock_beta"]])}
+    out.update(energy=float(res["energy"]), overlap=res["overlap"], kinetic=res["kinetic"],
+               nuclear_attraction=res["nuclear"], core_hamiltonian=res["hcore"],
+               two_electron=res["tetensor"], iterations=len(res["energies"]))
+    return out
+
+
+def solve_pyqint(problem) -> dict:
+    """pyqint with its own basis file for ``problem.basis`` (bohr in, Eh out)."""
+    if problem.cartesian is False and problem.basis not in ("sto-3g", "sto-6g", "3-21g",
+                                                            "6-31g"):
+        # pyqint's shells are cartesian only; a spherical basis with d or higher
+        # functions has a different number of functions
+        cannot_run(f"pyqint has no spherical {problem.basis} (cartesian shells only)")
+    name = PYQINT_BASES.get(problem.basis)
+    if name is None:
+        cannot_run(f"no {problem.basis} in pyqint")
+    return _pyqint_run(problem, name)
+
+
+def solve_pyqint_harness_basis(problem) -> dict:
+    """pyqint with the harness's exact basis (NWChem text → pyqint CGFs), bohr in, Eh out."""
+    _method_guard(problem, "pyqint", ("rhf", "uhf"))
+    return _pyqint_run(problem, _pyqint_cgfs(problem))
