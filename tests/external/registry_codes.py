@@ -202,3 +202,75 @@ def solve_pyqint_harness_basis(problem) -> dict:
     """pyqint with the harness's exact basis (NWChem text → pyqint CGFs), bohr in, Eh out."""
     _method_guard(problem, "pyqint", ("rhf", "uhf"))
     return _pyqint_run(problem, _pyqint_cgfs(problem))
+
+
+# --------------------------------------------------------------------------- openqp
+
+#: OpenQP's SCF convergence threshold (its density/DIIS error measure), asked tighter
+#: than the harness's stationarity so the returned state is the converged one.
+OPENQP_CONVERGENCE = 1e-10
+
+
+def _openqp_unpack(packed, nbf):
+    """Square symmetric matrix from OpenQP's packed lower triangle (row-major)."""
+    packed = np.asarray(packed, dtype=float).ravel()
+    mat = np.zeros((nbf, nbf))
+    rows, cols = np.tril_indices(nbf)
+    mat[rows, cols] = packed
+    mat[cols, rows] = packed
+    return mat
+
+
+def solve_openqp(problem) -> dict:
+    """OpenQP (Fortran core) with its own basis data for ``problem.basis`` (its
+    basis-set-exchange files); the geometry is handed over in **ångström**
+    (bohr × a0, ``harness.contract.units``), as OpenQP's input expects."""
+    import tempfile
+
+    from harness.contract.units import BOHR_IN_ANGSTROM
+    from oqp.openqp import OpenQP
+
+    system = "\n".join(f"{int(z)} " + " ".join(f"{float(v) * BOHR_IN_ANGSTROM:.12f}" for v in xyz)
+                       for z, xyz in zip(problem.numbers, problem.coordinates))
+    workdir = tempfile.mkdtemp(prefix="openqp-")
+    cwd = os.getcwd()
+    os.chdir(workdir)  # OpenQP writes its log and molden files to the working directory
+    try:
+        job = OpenQP(project="case", silent=1, usempi=False)
+        job.input(system=system, charge=int(problem.charge), basis=problem.basis,
+                  method="hf", runtype="energy",
+                  ispher="false" if problem.cartesian else "true")
+        job.scf(type=problem.method, multiplicity=int(problem.multiplicity),
+                conv=OPENQP_CONVERGENCE, maxit=200)
+        mol = job.run()
+    finally:
+        os.chdir(cwd)
+    data = mol.data
+    nbf = int(np.asarray(data["OQP::E_MO_A"]).size)
+
+    def square(tag):
+        return _openqp_unpack(data[tag], nbf)
+
+    def mos(tag):  # Fortran column-stored MOs → (nao, nmo)
+        return np.asarray(data[tag], dtype=float).reshape(nbf, nbf).T
+
+    out = {"energy": float(mol.mol_energy.energy), "overlap": square("OQP::SM"),
+           "core_hamiltonian": square("OQP::Hcore"), "kinetic": square("OQP::TM")}
+    if problem.method == "rhf":
+        occ = np.array([2.0 if i < problem.n_electrons // 2 else 0.0 for i in range(nbf)])
+        out.update(coefficients=mos("OQP::VEC_MO_A"), occupations=occ,
+                   orbital_energies=np.asarray(data["OQP::E_MO_A"], dtype=float).ravel(),
+                   density=square("OQP::DM_A"), fock=square("OQP::FOCK_A"))
+    else:
+        occ = np.array([[1.0 if i < k else 0.0 for i in range(nbf)]
+                        for k in (problem.n_alpha, problem.n_beta)])
+        out.update(coefficients=np.stack([mos("OQP::VEC_MO_A"), mos("OQP::VEC_MO_B")]),
+                   occupations=occ if problem.method == "uhf" else occ.sum(0),
+                   orbital_energies=np.stack([np.asarray(data[t], dtype=float).ravel()
+                                              for t in ("OQP::E_MO_A", "OQP::E_MO_B")]),
+                   density=np.stack([square("OQP::DM_A"), square("OQP::DM_B")]),
+                   fock=np.stack([square("OQP::FOCK_A"), square("OQP::FOCK_B")]))
+        if problem.method == "rohf":
+            out["coefficients"] = out["coefficients"][0]
+            out["orbital_energies"] = out["orbital_energies"][0]
+    return out
