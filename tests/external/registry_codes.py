@@ -274,3 +274,105 @@ def solve_openqp(problem) -> dict:
             out["coefficients"] = out["coefficients"][0]
             out["orbital_energies"] = out["orbital_energies"][0]
     return out
+
+
+# --------------------------------------------------------------------------- pyquante2
+
+#: pyquante2's basis names (pyquante2/basis/data.py) for the harness's names.
+PYQUANTE2_BASES = {"sto-3g": "sto-3g", "6-31g": "6-31g", "6-31g**": "6-31g**"}
+#: Energy-change threshold handed to pyquante2's SCF iterators (their only control), Eh.
+PYQUANTE2_ENERGY_TOLERANCE = 1e-12
+
+
+class _Pyquante2Basis:
+    """The attributes of ``pyquante2.basisset`` its integral and SCF code read, built from
+    the harness's NWChem text: one ``cgbf`` per cartesian component, in pyquante2's own
+    order (x, y, z; xx, xy, xz, yy, yz, zz), each contracted function normalised by
+    pyquante2 (``cgbf.normalize``)."""
+
+    def __init__(self, problem):
+        from pyquante2.basis.cgbf import cgbf
+        from pyquante2.basis.tools import am2pow
+
+        basis = parse_nwchem(harness_basis_text(problem))
+        self.name = problem.basis
+        self.bfs = []
+        for z, xyz in zip(problem.numbers, problem.coordinates):
+            origin = tuple(float(v) for v in xyz)
+            for l, exps, coefs in basis[SYMBOLS[int(z)]]:
+                for power in am2pow[l]:
+                    self.bfs.append(cgbf(origin, power, list(exps), list(coefs)))
+
+    def __getitem__(self, i):
+        return self.bfs[i]
+
+    def __len__(self):
+        return len(self.bfs)
+
+
+def _pyquante2_run(problem, bfs):
+    from pyquante2 import molecule, rhf, rohf, uhf
+    from pyquante2.utils import dmat
+
+    geo = molecule([(int(z), *map(float, xyz)) for z, xyz in zip(problem.numbers,
+                                                                 problem.coordinates)],
+                   units="Bohr", charge=int(problem.charge),
+                   multiplicity=int(problem.multiplicity))
+    if bfs is None:
+        from pyquante2 import basisset
+
+        name = PYQUANTE2_BASES.get(problem.basis)
+        if name is None or (not problem.cartesian and problem.basis not in ("sto-3g", "6-31g")):
+            cannot_run(f"no {'cartesian' if problem.cartesian else 'spherical'} "
+                       f"{problem.basis} in pyquante2")
+        bfs = basisset(geo, name)
+    solver = {"rhf": rhf, "uhf": uhf, "rohf": rohf}[problem.method](geo, bfs)
+    energies = solver.converge(tol=PYQUANTE2_ENERGY_TOLERANCE, maxiters=500)
+    i1, i2 = solver.i1, solver.i2
+    h = i1.T + i1.V
+    out = {"energy": float(solver.energy), "overlap": np.asarray(i1.S),
+           "kinetic": np.asarray(i1.T), "nuclear_attraction": np.asarray(i1.V),
+           "core_hamiltonian": h, "two_electron": np.asarray(i2._2e_ints),
+           "converged": bool(solver.converged), "iterations": len(energies)}
+    if problem.method == "rhf":
+        c = solver.orbs
+        d = dmat(c, problem.n_electrons // 2)
+        n = c.shape[1]
+        out.update(coefficients=c, orbital_energies=solver.orbe, density=2 * d,
+                   occupations=np.array([2.0 if i < problem.n_electrons // 2 else 0.0
+                                         for i in range(n)]),
+                   # the Fock of the returned density, built with pyquante2's own J/K
+                   fock=h + i2.get_2jk(d))
+    elif problem.method == "uhf":
+        ca, cb = solver.orbsa, solver.orbsb
+        da, db = dmat(ca, problem.n_alpha), dmat(cb, problem.n_beta)
+        ja, jb = i2.get_j(da), i2.get_j(db)
+        n = ca.shape[1]
+        out.update(coefficients=np.stack([ca, cb]),
+                   orbital_energies=np.stack([solver.orbea, solver.orbeb]),
+                   occupations=np.array([[1.0 if i < k else 0.0 for i in range(n)]
+                                         for k in (problem.n_alpha, problem.n_beta)]),
+                   density=np.stack([da, db]),
+                   fock=np.stack([h + ja + jb - i2.get_k(da), h + ja + jb - i2.get_k(db)]))
+    else:
+        c = solver.orbs
+        n = c.shape[1]
+        out.update(coefficients=c, orbital_energies=solver.orbe,
+                   occupations=np.array([2.0 if i < problem.n_beta else
+                                         1.0 if i < problem.n_alpha else 0.0
+                                         for i in range(n)]))
+    return out
+
+
+def solve_pyquante2(problem) -> dict:
+    """pyquante2 with its own basis data for ``problem.basis`` (bohr in, Eh out)."""
+    return _pyquante2_run(problem, None)
+
+
+def solve_pyquante2_harness_basis(problem) -> dict:
+    """pyquante2 with the harness's exact basis (NWChem text → pyquante2 cgbf objects);
+    cartesian shells only, so spherical cases with d or higher functions cannot run."""
+    basis = parse_nwchem(harness_basis_text(problem))
+    if not problem.cartesian and any(l >= 2 for shells in basis.values() for l, _, _ in shells):
+        cannot_run(f"pyquante2 has cartesian shells only; {problem.basis} here is spherical")
+    return _pyquante2_run(problem, _Pyquante2Basis(problem))
