@@ -137,10 +137,14 @@ def openqp():
     return pytest.importorskip("oqp")
 
 
-def test_openqp_heh_cation_fails_only_kinetic(openqp):
-    """BSE's STO-3G digits: T differs by ~4e-6, a real (small) integral difference."""
+@pytest.mark.xfail(strict=True, reason="issue 11 items 1c/3: OpenQP's STO-3G carries the "
+                   "basis-set exchange's digits; its T differs from pyscf's by 1.1e-8 > 1e-8 "
+                   "(4.1e-6 on water's O 1s), an energy effect of 4e-10 Eh: the kinetic "
+                   "check fails on basis digits, not on the code's integrals")
+def test_openqp_heh_cation_passes(openqp):
     failed, result = verdict(rc.solve_openqp, "heh-cation-sto-3g-rhf")
-    assert failed == {"kinetic"}
+    assert abs(result.energy - result.reference_energy) < 1e-8  # true today: 1.7e-9
+    assert failed == set()  # today: {"kinetic"}
 
 
 def test_openqp_h2_stale_orbital_energies_are_caught(openqp):
@@ -170,3 +174,14 @@ def test_openqp_cc_pvdz_same_space_other_contraction(openqp):
     failed, result = verdict(rc.solve_openqp, "water-cc-pvdz-rhf")
     assert abs(result.energy - result.reference_energy) < 1e-9  # true today
     assert "basis" not in failed
+
+
+@pytest.mark.xfail(strict=True, reason="issue 11 item 3: pyquante2's core guess lands on the "
+                   "known excited determinant of NH2 (0.095 Eh up, caught by stability), "
+                   "but the 'known state' hint is suppressed because energy-consistency "
+                   "failed by 3.4e-7 on the reference's integrals (V differs by 1.5e-7)")
+def test_pyquante2_nh2_known_state_is_named(pyquante2):
+    failed, result = verdict(rc.solve_pyquante2, "nh2-sto-3g-rohf")
+    assert {"reference-energy", "stability"} <= failed  # a real catch: wrong state
+    ref = next(c for c in result.checks if c.name == "reference-energy")
+    assert (ref.hint or "").startswith("your solution is the known state")
