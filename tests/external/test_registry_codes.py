@@ -185,3 +185,24 @@ def test_pyquante2_nh2_known_state_is_named(pyquante2):
     assert {"reference-energy", "stability"} <= failed  # a real catch: wrong state
     ref = next(c for c in result.checks if c.name == "reference-energy")
     assert (ref.hint or "").startswith("your solution is the known state")
+
+
+@pytest.mark.xfail(strict=True, reason="issue 11 items 1/4: OpenQP's 6-31G* is pyscf's up to "
+                   "shell order (1s 2s 2p 3s 3p d), cartesian d order (xx yy zz xy xz yz) "
+                   "and unit d norms — detect_convention finds that map at tolerance 1e-6 "
+                   "(residual 4.2e-7, basis-set-exchange digits) but not at the default "
+                   "CONVENTION_MATCH = 1e-8, so 'basis differs'")
+def test_openqp_6_31gd_mapping_found_despite_basis_digits(openqp):
+    failed, _ = verdict(rc.solve_openqp, "ammonia-6-31gd-rhf")
+    assert "basis" not in failed
+
+
+@pytest.mark.xfail(strict=True, reason="issue 11 item 4 (harness bug): after a failed basis "
+                   "check the matrix and integral checks still run on the unmapped arrays "
+                   "(kinetic 6.2e-01, orthonormality, stationarity …) although the README "
+                   "says they are skipped")
+def test_openqp_failed_basis_skips_matrix_checks(openqp):
+    # pyscf's Li cc-pVDZ is another basis than the exchange's: E differs by 1.1e-4 Eh
+    failed, _ = verdict(rc.solve_openqp, "lih-cc-pvdz-rhf")
+    assert "basis" in failed  # a true verdict: the bases differ
+    assert failed <= {"basis", "reference-energy"}
