@@ -222,9 +222,19 @@ def _openqp_unpack(packed, nbf):
 
 
 def solve_openqp(problem) -> dict:
-    """OpenQP (Fortran core) with its own basis data for ``problem.basis`` (its
-    basis-set-exchange files); the geometry is handed over in **ångström**
-    (bohr × a0, ``harness.contract.units``), as OpenQP's input expects."""
+    """OpenQP (Fortran core) with its own basis data for ``problem.basis``: OpenQP reads
+    named bases through the ``basis_set_exchange`` library. The geometry is handed over
+    in **ångström** (bohr × a0, ``harness.contract.units``), as OpenQP's input expects."""
+    return _openqp_run(problem, harness_basis=False)
+
+
+def solve_openqp_harness_basis(problem) -> dict:
+    """OpenQP with the harness's exact basis: the NWChem text written to ``basis.nw`` and
+    given as ``basis=file:basis.nw`` (OpenQP reads it with basis_set_exchange's reader)."""
+    return _openqp_run(problem, harness_basis=True)
+
+
+def _openqp_run(problem, *, harness_basis: bool) -> dict:
     import tempfile
 
     from harness.contract.units import BOHR_IN_ANGSTROM
@@ -233,16 +243,29 @@ def solve_openqp(problem) -> dict:
     system = "\n".join(f"{int(z)} " + " ".join(f"{float(v) * BOHR_IN_ANGSTROM:.12f}" for v in xyz)
                        for z, xyz in zip(problem.numbers, problem.coordinates))
     workdir = tempfile.mkdtemp(prefix="openqp-")
+    basis = problem.basis
+    if harness_basis:
+        path = os.path.join(workdir, "basis.nw")
+        with open(path, "w", encoding="utf-8") as fh:
+            fh.write(harness_basis_text(problem))
+        basis = "file:basis.nw"  # relative to the input file: OpenQP names its molden file after it
     cwd = os.getcwd()
     os.chdir(workdir)  # OpenQP writes its log and molden files to the working directory
     try:
         job = OpenQP(project="case", silent=1, usempi=False)
-        job.input(system=system, charge=int(problem.charge), basis=problem.basis,
+        job.input(system=system, charge=int(problem.charge), basis=basis,
                   method="hf", runtype="energy",
                   ispher="false" if problem.cartesian else "true")
         job.scf(type=problem.method, multiplicity=int(problem.multiplicity),
                 conv=OPENQP_CONVERGENCE, maxit=200)
-        mol = job.run()
+        # OpenQP's own Runner, as job.run() calls it, but with an input-file path: OpenQP
+        # resolves "file:" bases relative to it (job.run() passes None and then fails)
+        from oqp.pyoqp import Runner
+
+        runner = Runner(project="case", input_file=os.path.join(workdir, "case.inp"),
+                        log=job.log, input_dict=job.config_str, silent=1, usempi=False)
+        runner.run()
+        mol = runner.mol
     finally:
         os.chdir(cwd)
     data = mol.data
