@@ -206,3 +206,24 @@ def test_openqp_failed_basis_skips_matrix_checks(openqp):
     failed, _ = verdict(rc.solve_openqp, "lih-cc-pvdz-rhf")
     assert "basis" in failed  # a true verdict: the bases differ
     assert failed <= {"basis", "reference-energy"}
+
+
+def test_openqp_harness_basis_cc_pvdz_passes(openqp):
+    """Given the harness's basis text, OpenQP's spherical d functions (its own order and
+    norms) are mapped and every check passes (E − E_ref = 4e-13)."""
+    failed, result = verdict(rc.solve_openqp_harness_basis, "water-cc-pvdz-rhf")
+    assert failed == set()
+    assert result.passed
+
+
+@pytest.mark.xfail(strict=True, reason="issue 11 item 4: given the harness's basis, OpenQP "
+                   "normalises its contracted s/p functions only to ~3e-8 (max|S − S_ref| "
+                   "2.7e-8, E − E_ref 7e-13); in pyscf's own order the per-function "
+                   "rescaling is never tried (harness/verdict/evaluate.py: "
+                   "SAME_ORDER_INACCURATE_OVERLAP = 1e-3 returns before detect_convention, "
+                   "which does find the factors), so overlap, orthonormality, idempotency, "
+                   "electron-count, energy-consistency and kinetic fail on one cause")
+def test_openqp_harness_basis_sp_norms_detected(openqp):
+    failed, result = verdict(rc.solve_openqp_harness_basis, "water-sto-3g-rhf")
+    assert abs(result.energy - result.reference_energy) < 1e-10  # true today: 7e-13
+    assert failed == set()
