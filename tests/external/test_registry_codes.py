@@ -1,8 +1,8 @@
 """Independent open-source SCF programs from the package registry, judged end to end.
 
-Each code runs in-process through its adapter in ``registry_codes.py`` (bohr in, Eh out,
-its own AO order and normalisation) and the result is judged by ``judge`` against the
-stored reference. Two kinds of test:
+Each code runs through its adapter in ``registry_codes.py`` (bohr in, Eh out, its own AO
+order and normalisation) in its own child process, as ``scf-harness certify`` runs it
+(``harness.run.runner.run_cases``), and is judged against the stored reference. Two kinds of test:
 
 * verdicts the harness gets right today (a correct code passes; a real defect of the
   code is caught by exactly the check meant for it);
@@ -26,17 +26,23 @@ import registry_codes as rc  # noqa: E402
 pytestmark = pytest.mark.slow
 
 
+ADAPTERS = Path(__file__).resolve().parent / "registry_codes.py"
+
+
 def verdict(solve, name):
-    """(failed check names, CaseResult) of one catalogue case solved by ``solve``."""
+    """(failed check names, CaseResult) of one catalogue case solved by ``solve``, run as
+    ``scf-harness certify`` runs it: the plug-in in its own child process (OpenQP keeps
+    state in its library between runs in one process: a second case in the same process
+    gets other orbitals), judged here by ``judge``."""
     from harness.catalogue.cases import load_catalogue
-    from harness.catalogue.references import reference_for
-    from harness.contract.solution import extract
-    from harness.verdict.judge import judge
+    from harness.checks.tolerances import Tolerances
+    from harness.run.runner import run_cases
 
     case = load_catalogue().case(name)
-    problem = case.problem()
-    reference, _ = reference_for(case)
-    result = judge(problem, extract(solve(problem)), reference)
+    outcome = run_cases([case], f"{ADAPTERS}:{solve.__name__}", tolerances=Tolerances(),
+                        timeout=300)
+    (result,) = outcome.cases
+    assert result.error is None, result.error
     return {c.name for c in result.checks if c.passed is False}, result
 
 
