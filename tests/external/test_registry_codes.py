@@ -1,0 +1,235 @@
+"""Independent open-source SCF programs from the package registry, judged end to end.
+
+Each code runs through its adapter in ``registry_codes.py`` (bohr in, Eh out, its own AO
+order and normalisation) in its own child process, as ``scf-harness certify`` runs it
+(``harness.run.runner.run_cases``), and is judged against the stored reference. Two kinds of test:
+
+* verdicts the harness gets right today (a correct code passes; a real defect of the
+  code is caught by exactly the check meant for it);
+* ``xfail(strict=True)``: false alarms on a correct code, each naming the harness gap
+  (issue 11) that must be closed. When the fix lands the test passes and the strict
+  xfail turns red: delete the marker then.
+
+Measured figures behind each expectation: docs/external-codes.md, "Tried on real codes".
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import pytest
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+import registry_codes as rc  # noqa: E402
+
+pytestmark = pytest.mark.slow
+
+
+ADAPTERS = Path(__file__).resolve().parent / "registry_codes.py"
+
+
+def verdict(solve, name):
+    """(failed check names, CaseResult) of one catalogue case solved by ``solve``, run as
+    ``scf-harness certify`` runs it: the plug-in in its own child process (OpenQP keeps
+    state in its library between runs in one process: a second case in the same process
+    gets other orbitals), judged here by ``judge``."""
+    from harness.catalogue.cases import load_catalogue
+    from harness.checks.tolerances import Tolerances
+    from harness.run.runner import run_cases
+
+    case = load_catalogue().case(name)
+    outcome = run_cases([case], f"{ADAPTERS}:{solve.__name__}", tolerances=Tolerances(),
+                        timeout=300)
+    (result,) = outcome.cases
+    assert result.error is None, result.error
+    return {c.name for c in result.checks if c.passed is False}, result
+
+
+def message(result, check):
+    return next(c.message for c in result.checks if c.name == check)
+
+
+#: Checks that judge the code's state in its own metric (issue 11, item 2): a code whose
+#: S differs slightly from the reference's must be measured with its own S here.
+OWN_METRIC = {"orthonormality", "idempotency", "electron-count", "stationarity",
+              "self-consistency", "roothaan-hall", "density-consistency"}
+
+
+# --------------------------------------------------------------------------- pyquante2
+
+
+@pytest.fixture(scope="module")
+def pyquante2():
+    return pytest.importorskip("pyquante2")
+
+
+def test_pyquante2_h2_passes(pyquante2):
+    failed, result = verdict(rc.solve_pyquante2, "h2-sto-3g-rhf")
+    assert failed == set()
+    assert result.passed
+
+
+@pytest.mark.xfail(strict=True, reason="issue 11 item 2/3: energy-consistency uses the "
+                   "reference's integrals; pyquante2's Boys function makes V differ by "
+                   "2e-7, so |E − E[P]| = 5.0e-7 although E = E[P] with its own "
+                   "integrals to 1e-13; the defect belongs to nuclear-attraction alone")
+def test_pyquante2_water_energy_consistency_in_own_integrals(pyquante2):
+    failed, result = verdict(rc.solve_pyquante2, "water-sto-3g-rhf")
+    # today: energy-consistency, nuclear-attraction, core-hamiltonian, two-electron
+    assert "nuclear-attraction" in failed  # 2.0e-7 at (O 1s, O 1s): real, small
+    assert "energy-consistency" not in failed
+
+
+# --------------------------------------------------------------------------- pyqint
+
+
+@pytest.fixture(scope="module")
+def pyqint():
+    return pytest.importorskip("pyqint")
+
+
+@pytest.mark.xfail(strict=True, reason="issue 11 item 2: pyqint's STO-3G data are "
+                   "rounded to 6 digits (3.425251), its S differs from pyscf's by 5e-7; "
+                   "orthonormality, idempotency, electron count and stationarity are "
+                   "measured with pyscf's S instead of the code's own")
+def test_pyqint_own_basis_judged_in_own_metric(pyqint):
+    failed, _ = verdict(rc.solve_pyqint, "water-sto-3g-rhf")
+    assert "overlap" in failed  # 5.0e-7: the basis data differ, reported once
+    assert failed & OWN_METRIC == set()
+
+
+@pytest.mark.xfail(strict=True, reason="issue 11 item 2/3: with the harness's exact basis "
+                   "pyqint's S matches to 2e-16 but its V differs by 6.8e-7 (Boys "
+                   "function); energy-consistency fails by 3.9e-7 although E equals E[P] "
+                   "in the code's own integrals exactly")
+def test_pyqint_harness_basis_energy_consistency(pyqint):
+    failed, result = verdict(rc.solve_pyqint_harness_basis, "h2-sto-3g-rhf")
+    assert "overlap" not in failed and failed & OWN_METRIC == set()  # true today
+    assert "nuclear-attraction" in failed
+    assert "energy-consistency" not in failed
+
+
+def test_pyqint_missing_method_is_reported_in_one_line(pyqint):
+    import harness
+
+    refusal = (rc.CodeCannotRun, getattr(harness, "Unsupported", rc.CodeCannotRun))
+    with pytest.raises(refusal, match="^pyqint has no ROHF$"):
+        rc.solve_pyqint(_problem("nh2-sto-3g-rohf"))
+
+
+@pytest.mark.xfail(strict=True, reason="issue 11 item 5: no harness.Unsupported yet; a code "
+                   "without ROHF or without cc-pVDZ can only fail (18 of pyqint's 28 "
+                   "standard cases)")
+def test_pyqint_unsupported_case_is_neither_passed_nor_failed(pyqint):
+    import harness
+
+    assert hasattr(harness, "Unsupported")
+    with pytest.raises(harness.Unsupported):
+        rc.solve_pyqint(_problem("nh2-sto-3g-rohf"))
+
+
+def _problem(name):
+    from harness.catalogue.cases import load_catalogue
+
+    return load_catalogue().case(name).problem()
+
+
+# --------------------------------------------------------------------------- openqp
+
+
+@pytest.fixture(scope="module")
+def openqp():
+    return pytest.importorskip("oqp")
+
+
+@pytest.mark.xfail(strict=True, reason="issue 11 items 1c/3: OpenQP's STO-3G carries the "
+                   "basis-set exchange's digits; its T differs from pyscf's by 1.1e-8 > 1e-8 "
+                   "(4.1e-6 on water's O 1s), an energy effect of 4e-10 Eh: the kinetic "
+                   "check fails on basis digits, not on the code's integrals")
+def test_openqp_heh_cation_passes(openqp):
+    failed, result = verdict(rc.solve_openqp, "heh-cation-sto-3g-rhf")
+    assert abs(result.energy - result.reference_energy) < 1e-8  # true today: 1.7e-9
+    assert failed == set()  # today: {"kinetic"}
+
+
+def test_openqp_h2_stale_orbital_energies_are_caught(openqp):
+    """A real defect of the code: converged in one iteration, OpenQP reports the
+    guess's orbital energies (-1.0721, 0.0721 Eh; its own Fock gives -0.5782, 0.6703),
+    also in its log. Roothaan–Hall catches exactly that."""
+    failed, result = verdict(rc.solve_openqp, "h2-sto-3g-rhf")
+    assert failed == {"roothaan-hall"}
+    assert message(result, "roothaan-hall").startswith(
+        "roothaan-hall: max|X(FC − SCε)| = 4.2e-01 > 1.0e-05 (h2-sto-3g-rhf), orbital 1")
+
+
+@pytest.mark.xfail(strict=True, reason="issue 11 item 2: OpenQP's STO-3G (basis-set "
+                   "exchange digits) gives an S 1.7e-8 off pyscf's; orthonormality, "
+                   "idempotency, electron count and energy-consistency fail with it")
+def test_openqp_water_judged_in_own_metric(openqp):
+    failed, _ = verdict(rc.solve_openqp, "water-sto-3g-rhf")
+    assert "overlap" in failed  # 1.7e-8 (O 2s, H 1s)
+    assert failed & (OWN_METRIC | {"energy-consistency"}) == set()
+
+
+@pytest.mark.xfail(strict=True, reason="issue 11 item 1: OpenQP's cc-pVDZ (general "
+                   "contraction from the basis-set exchange) is the same space as pyscf's; "
+                   "E agrees with the reference to 3e-13, yet 'basis differs' (overlap-"
+                   "spectrum distance 7.2e-01) and every matrix check fails")
+def test_openqp_cc_pvdz_same_space_other_contraction(openqp):
+    failed, result = verdict(rc.solve_openqp, "water-cc-pvdz-rhf")
+    assert abs(result.energy - result.reference_energy) < 1e-9  # true today
+    assert "basis" not in failed
+
+
+@pytest.mark.xfail(strict=True, reason="issue 11 item 3: pyquante2's core guess lands on the "
+                   "known excited determinant of NH2 (0.095 Eh up, caught by stability), "
+                   "but the 'known state' hint is suppressed because energy-consistency "
+                   "failed by 3.4e-7 on the reference's integrals (V differs by 1.5e-7)")
+def test_pyquante2_nh2_known_state_is_named(pyquante2):
+    failed, result = verdict(rc.solve_pyquante2, "nh2-sto-3g-rohf")
+    assert {"reference-energy", "stability"} <= failed  # a real catch: wrong state
+    ref = next(c for c in result.checks if c.name == "reference-energy")
+    assert (ref.hint or "").startswith("your solution is the known state")
+
+
+@pytest.mark.xfail(strict=True, reason="issue 11 items 1/4: OpenQP's 6-31G* is pyscf's up to "
+                   "shell order (1s 2s 2p 3s 3p d), cartesian d order (xx yy zz xy xz yz) "
+                   "and unit d norms — detect_convention finds that map at tolerance 1e-6 "
+                   "(residual 4.2e-7, basis-set-exchange digits) but not at the default "
+                   "CONVENTION_MATCH = 1e-8, so 'basis differs'")
+def test_openqp_6_31gd_mapping_found_despite_basis_digits(openqp):
+    failed, _ = verdict(rc.solve_openqp, "ammonia-6-31gd-rhf")
+    assert "basis" not in failed
+
+
+@pytest.mark.xfail(strict=True, reason="issue 11 item 4 (harness bug): after a failed basis "
+                   "check the matrix and integral checks still run on the unmapped arrays "
+                   "(kinetic 6.2e-01, orthonormality, stationarity …) although the README "
+                   "says they are skipped")
+def test_openqp_failed_basis_skips_matrix_checks(openqp):
+    # pyscf's Li cc-pVDZ is another basis than the exchange's: E differs by 1.1e-4 Eh
+    failed, _ = verdict(rc.solve_openqp, "lih-cc-pvdz-rhf")
+    assert "basis" in failed  # a true verdict: the bases differ
+    assert failed <= {"basis", "reference-energy"}
+
+
+def test_openqp_harness_basis_cc_pvdz_passes(openqp):
+    """Given the harness's basis text, OpenQP's spherical d functions (its own order and
+    norms) are mapped and every check passes (E − E_ref = 4e-13)."""
+    failed, result = verdict(rc.solve_openqp_harness_basis, "water-cc-pvdz-rhf")
+    assert failed == set()
+    assert result.passed
+
+
+@pytest.mark.xfail(strict=True, reason="issue 11 item 4: given the harness's basis, OpenQP "
+                   "normalises its contracted s/p functions only to ~3e-8 (max|S − S_ref| "
+                   "2.7e-8, E − E_ref 7e-13); in pyscf's own order the per-function "
+                   "rescaling is never tried (harness/verdict/evaluate.py: "
+                   "SAME_ORDER_INACCURATE_OVERLAP = 1e-3 returns before detect_convention, "
+                   "which does find the factors), so overlap, orthonormality, idempotency, "
+                   "electron-count, energy-consistency and kinetic fail on one cause")
+def test_openqp_harness_basis_sp_norms_detected(openqp):
+    failed, result = verdict(rc.solve_openqp_harness_basis, "water-sto-3g-rhf")
+    assert abs(result.energy - result.reference_energy) < 1e-10  # true today: 7e-13
+    assert failed == set()
