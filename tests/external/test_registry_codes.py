@@ -118,15 +118,21 @@ def test_pyqint_missing_method_is_reported_in_one_line(pyqint):
         rc.solve_pyqint(_problem("nh2-sto-3g-rohf"))
 
 
-@pytest.mark.xfail(strict=True, reason="issue 11 item 5: no harness.Unsupported yet; a code "
-                   "without ROHF or without cc-pVDZ can only fail (18 of pyqint's 28 "
-                   "standard cases)")
 def test_pyqint_unsupported_case_is_neither_passed_nor_failed(pyqint):
+    """pyqint has no ROHF: through the runner the case is unsupported with that reason,
+    neither passed nor failed (issue 11 item 5)."""
     import harness
+    from harness.catalogue.cases import load_catalogue
+    from harness.checks.tolerances import Tolerances
+    from harness.run.runner import run_cases
 
-    assert hasattr(harness, "Unsupported")
     with pytest.raises(harness.Unsupported):
         rc.solve_pyqint(_problem("nh2-sto-3g-rohf"))
+    out = run_cases([load_catalogue().case("nh2-sto-3g-rohf")],
+                    f"{rc.__file__}:solve_pyqint", tolerances=Tolerances(), timeout=120.0)
+    (case,) = out.cases
+    assert (case.status, case.unsupported) == ("unsupported", "pyqint has no ROHF")
+    assert out.passed and out.tally == (0, 0, 1)
 
 
 def _problem(name):
