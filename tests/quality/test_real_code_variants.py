@@ -1,0 +1,92 @@
+"""Correct variants of the bundled code, as real programs differ from pyscf, get a clean
+verdict (issue 11): loosely normalised functions pass through per-function scale
+detection; a Boys function accurate to ~1e-7 fails only the integral check whose
+first-order energy effect exceeds INTEGRAL_ENERGY_EFFECT, naming the integral class and
+its cost. Energies in Eh.
+"""
+
+from __future__ import annotations
+
+import functools
+
+import pytest
+
+from harness.catalogue.cases import load_catalogue
+from harness.catalogue.references import reference_for
+from harness.contract.results import Status
+from harness.contract.solution import extract
+from harness.testing import planted
+from harness.testing.planted.variants import CATALOGUE
+from harness.verdict.judge import judge
+
+ENTRIES = {(p.name, p.case): p for p in CATALOGUE}
+
+
+@functools.lru_cache(maxsize=None)
+def verdict(name: str, case_name: str) -> dict:
+    entry = ENTRIES[name, case_name]
+    case = load_catalogue().case(case_name)
+    problem = case.problem()
+    reference, _ = reference_for(case)
+    return {r.name: r for r in judge(problem, extract(entry.solve(problem)), reference).checks}
+
+
+def failing(name, case_name):
+    return {n for n, r in verdict(name, case_name).items() if r.status is Status.FAILED}
+
+
+@pytest.mark.parametrize("key", sorted(ENTRIES), ids=[f"{n}-{c}" for n, c in sorted(ENTRIES)])
+def test_fails_exactly_the_expected_checks(key):
+    assert failing(*key) == set(ENTRIES[key].fails)
+
+
+def test_in_the_selftest_catalogue():
+    assert set(ENTRIES) <= {(p.name, p.case) for p in planted.catalogue()}
+
+
+def test_loose_normalisation_detected_in_pyscf_order():
+    v = verdict("loosely_normalised", "water-sto-3g-rhf")
+    assert v["basis"].status is Status.PASSED
+    assert v["basis"].message.startswith("basis: AO convention detected (water-sto-3g-rhf): ")
+    assert "functions rescaled (norms off by up to " in v["basis"].message
+    for name in ("overlap", "orthonormality", "idempotency", "electron-count",
+                 "energy-consistency", "kinetic", "two-electron"):
+        assert v[name].status is Status.PASSED, v[name].message
+
+
+def test_loose_normalisation_without_the_scale_detection_would_fail():
+    """The variant is not trivially in pyscf's metric: its S misses pyscf's by > 1e-8."""
+    from harness.testing.planted.variants import loosely_normalised
+    import numpy as np
+
+    problem = load_catalogue().case("water-sto-3g-rhf").problem()
+    s = loosely_normalised(problem)["overlap"]
+    from harness.backend.integrals import integrals_for
+    assert np.max(np.abs(s - integrals_for(problem).s)) > 1e-8
+
+
+def test_boys_culprit_named_with_its_cost():
+    v = verdict("boys_costly_v", "water-sto-3g-rhf")
+    message = v["nuclear-attraction"].message
+    assert message.startswith("nuclear-attraction: your V differs by up to 1.8e-07; at your "
+                              "density that moves E by ")
+    assert " Eh > 1e-07 (water-sto-3g-rhf), AO element (0, 0)" in message
+    assert 1e-7 < v["nuclear-attraction"].value < 1e-6
+    assert v["two-electron"].status is Status.PASSED
+    assert v["two-electron"].message.startswith("two-electron: your (ij|kl) differs by up to ")
+    # its own integrals explain its energy: no false "another iterate" alarm
+    assert v["energy-consistency"].status is Status.PASSED
+    assert v["self-consistency"].status is Status.PASSED
+
+
+def test_boys_error_with_pyscf_integrals_would_fail_energy_consistency():
+    """The planted error is real: judged with pyscf's integrals, E ≠ E[P] by > 1e-8."""
+    from harness.testing.planted.variants import boys_costly_v
+
+    problem = load_catalogue().case("water-sto-3g-rhf").problem()
+    raw = boys_costly_v(problem)
+    raw.pop("two_electron"), raw.pop("nuclear_attraction"), raw.pop("kinetic")
+    raw.pop("core_hamiltonian")
+    reference, _ = reference_for(load_catalogue().case("water-sto-3g-rhf"))
+    checks = {r.name: r for r in judge(problem, extract(raw), reference).checks}
+    assert checks["energy-consistency"].status is Status.FAILED
