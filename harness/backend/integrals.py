@@ -97,9 +97,15 @@ def overlap(mol) -> np.ndarray:
     return mol.intor_symmetric("int1e_ovlp")
 
 
-def integrals_for(problem: Problem) -> AOIntegrals:
-    """Build the AO integrals of ``problem`` with pyscf (the mole the reference uses)."""
-    mol = problem.to_pyscf()
+def integrals_for(problem: Problem, basis_text: str | None = None) -> AOIntegrals:
+    """Build the AO integrals of ``problem`` with pyscf (the mole the reference uses);
+    with ``basis_text`` (NWChem format) in that basis instead of the named one."""
+    if basis_text is not None:
+        from harness.backend.mole import mole_in_basis
+
+        mol = mole_in_basis(problem, basis_text)
+    else:
+        mol = problem.to_pyscf()
     s = mol.intor_symmetric("int1e_ovlp")
     h = mol.intor_symmetric("int1e_kin") + mol.intor_symmetric("int1e_nuc")
     return AOIntegrals(mol=mol, s=s, h=h, e_nuc=float(mol.energy_nuc()),

@@ -115,23 +115,28 @@ def evaluate(problem: Problem, extracted: Solution, reference=None,
              tolerances: Tolerances | None = None,
              integrals: AOIntegrals | None = None, *,
              ao_convention: str | None = None,
-             stability: str = DEFAULT_STABILITY) -> tuple[CheckResult, ...]:
+             stability: str = DEFAULT_STABILITY,
+             basis_note: str | None = None) -> tuple[CheckResult, ...]:
     """All checks of one case (see :func:`evaluate_case`); the checks only."""
     return evaluate_case(problem, extracted, reference, tolerances, integrals,
-                         ao_convention=ao_convention, stability=stability).checks
+                         ao_convention=ao_convention, stability=stability,
+                         basis_note=basis_note).checks
 
 
 def evaluate_case(problem: Problem, extracted: Solution, reference=None,
                   tolerances: Tolerances | None = None,
                   integrals: AOIntegrals | None = None, *,
                   ao_convention: str | None = None,
-                  stability: str = DEFAULT_STABILITY) -> Verdict:
+                  stability: str = DEFAULT_STABILITY,
+                  basis_note: str | None = None) -> Verdict:
     """All checks of one case, with hints on failures.
 
     ``reference`` (a ``harness.catalogue.references.Reference``) may be None, then
     reference-energy is not applicable. ``ao_convention`` names the code's AO convention
     (``harness.verdict.conventions.NAMED``) when it reports no overlap. ``stability``: "internal"
-    (default), "external" (RHF→UHF too) or "off". Energies in Eh.
+    (default), "external" (RHF→UHF too) or "off". ``basis_note``: set when the code's
+    own basis is judged (``integrals`` and ``reference`` are then in it); the basis check
+    says so. Energies in Eh.
     """
     if stability not in STABILITY_MODES:
         raise HarnessError(f"must be one of {', '.join(STABILITY_MODES)}, got {stability!r}",
@@ -141,6 +146,8 @@ def evaluate_case(problem: Problem, extracted: Solution, reference=None,
     with np.errstate(all="ignore"):
         checks, analysis = _evaluate(problem, extracted, reference, tolerances, integrals,
                                      ao_convention, stability)
+    if basis_note:
+        checks = _noted_basis(checks, basis_note, problem.name)
     return Verdict(checks=checks, analysis=analysis)
 
 
@@ -282,6 +289,20 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
             if name in results and results[name].status is Status.FAILED and hint:
                 results[name] = dataclasses.replace(results[name], hint=hint)
     return tuple(results[name] for name in CHECK_NAMES if name in results), analysis
+
+
+def _noted_basis(checks, note, case):
+    """The basis check's line saying the code's own basis was judged (with the AO
+    convention found in it, if any)."""
+    out = []
+    for c in checks:
+        if c.name == "basis" and c.status is not Status.FAILED:
+            extra = c.message.split(f"({case}): ", 1)[1] if f"({case}): " in c.message else ""
+            c = dataclasses.replace(c, status=Status.PASSED, message=(
+                f"basis: judged in the code's own basis ({note}) ({case})"
+                + (f"; {extra}" if extra else "")))
+        out.append(c)
+    return tuple(out)
 
 
 #: Checks that still run after a failed basis check: they judge the code's overlap by

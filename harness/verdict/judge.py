@@ -45,10 +45,48 @@ class JudgeSettings:
 
 
 def _evaluate(problem, solution, reference, settings: JudgeSettings, integrals=None):
-    """``harness.verdict.evaluate.evaluate_case``, imported when first needed (pyscf)."""
+    """``harness.verdict.evaluate.evaluate_case``, imported when first needed (pyscf);
+    in the code's own basis when it gave one (:func:`_in_own_basis`)."""
     from harness.verdict.evaluate import evaluate_case
+    solution, reference, integrals, note = _in_own_basis(problem, solution, reference,
+                                                         integrals)
     return evaluate_case(problem, solution, reference, settings.tolerances, integrals,
-                         ao_convention=settings.ao_convention, stability=settings.stability)
+                         ao_convention=settings.ao_convention, stability=settings.stability,
+                         basis_note=note)
+
+
+def _in_own_basis(problem, solution: Solution, reference, integrals):
+    """(solution, reference, integrals, note) to judge with. When the solution gives its
+    ``basis`` (NWChem text), the reference molecule is built in exactly that basis
+    (``harness.backend.mole.mole_in_basis``), its reference computed (or taken from the
+    in-memory cache, ``harness.catalogue.references.reference_in_basis``) and the note
+    says so for the basis check; text that does not parse for the case's elements
+    becomes a Malformed ``basis`` (the well-formed check names it)."""
+    text = solution.basis
+    if not isinstance(text, str):
+        return solution, reference, integrals, None
+    from harness.backend.integrals import integrals_for
+    from harness.catalogue.references import reference_in_basis
+    from harness.contract.solution import Malformed
+
+    try:
+        own = integrals_for(problem, basis_text=text)
+    except Exception as exc:  # pyscf's parser and builder raise many kinds
+        reason = str(exc).splitlines()[0] if isinstance(exc, ValueError) else \
+            f"does not build a basis ({type(exc).__name__}: {exc})".splitlines()[0]
+        return solution.replace(basis=Malformed(reason)), reference, integrals, None
+    own_ref = reference_in_basis(problem, text)
+    nao = len(own.labels)
+    note = f"given as 'basis'; {nao} functions"
+    named = integrals if integrals is not None else integrals_for(problem)
+    if named.s.shape == own.s.shape:
+        note += (f", differs from pyscf's {problem.basis!r} by "
+                 f"{float(abs(named.s - own.s).max()):.1e} in the overlap")
+    else:
+        note += f", pyscf's {problem.basis!r} has {len(named.labels)}"
+    if reference is not None and getattr(reference, "energy", None) is not None:
+        note += f", {own_ref.energy - float(reference.energy):+.1e} Eh in the reference energy"
+    return solution, own_ref, own, note
 
 
 def reference_energy(reference) -> float | None:

@@ -90,3 +90,40 @@ def test_boys_error_with_pyscf_integrals_would_fail_energy_consistency():
     reference, _ = reference_for(load_catalogue().case("water-sto-3g-rhf"))
     checks = {r.name: r for r in judge(problem, extract(raw), reference).checks}
     assert checks["energy-consistency"].status is Status.FAILED
+
+
+def test_rounded_basis_judged_in_its_own_basis():
+    v = verdict("rounded_basis_data", "water-sto-3g-rhf")
+    message = v["basis"].message
+    assert message.startswith("basis: judged in the code's own basis (given as 'basis'; "
+                              "7 functions, differs from pyscf's 'sto-3g' by ")
+    assert " in the overlap, " in message and " Eh in the reference energy) " \
+        "(water-sto-3g-rhf)" in message
+    assert v["reference-energy"].status is Status.PASSED
+
+
+def test_rounded_basis_judged_against_pyscf_basis_would_differ():
+    """Without the 'basis' key the same code is judged in pyscf's basis: its S differs."""
+    from harness.backend.integrals import integrals_for
+    from harness.testing.planted.variants import rounded_basis_data
+    import numpy as np
+
+    problem = load_catalogue().case("water-sto-3g-rhf").problem()
+    s = rounded_basis_data(problem)["overlap"]
+    assert np.max(np.abs(s - integrals_for(problem).s)) > 1e-8
+
+
+def test_unparseable_basis_text_is_malformed():
+    from harness.testing.example_scf import solve
+
+    case = load_catalogue().case("water-sto-3g-rhf")
+    problem = case.problem()
+    raw = solve(problem)
+    raw["basis"] = "C    S\n  1.0  1.0\n"
+    r = {c.name: c for c in judge(problem, extract(raw), reference_for(case)[0]).checks}
+    assert r["well-formed"].status is Status.FAILED
+    assert r["well-formed"].message.startswith(
+        "well-formed: 'basis' has no shells for H (water-sto-3g-rhf)")
+    raw["basis"] = 42
+    assert extract(raw).basis.reason == ("must be NWChem-format basis text or a path, "
+                                         "got int")
