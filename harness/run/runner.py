@@ -555,6 +555,7 @@ def _stop(run: _Running, *, grace: float) -> None:
 
 def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | None = None,
               ao_convention: str | None = None, stability: str = "internal",
+              basis_source: str = "pyscf",
               timeout: float = DEFAULT_TIMEOUT, jobs: int = 1, reference_dir=None,
               write_references: bool = False, results_path=None,
               on_start: Callable[[str], None] | None = None,
@@ -575,7 +576,7 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     when a case starts, ``on_result(case_result)`` when it is finished. Ctrl-C stops
     the children and returns the finished cases with ``interrupted=True``.
 
-    ``ao_convention`` and ``stability`` are passed to ``harness.verdict.judge.judge``, which
+    ``ao_convention``, ``stability`` and ``basis_source`` are passed to ``harness.verdict.judge.judge``, which
     judges each solution here, in the harness process.
 
     The outcome also holds, per case name, the problems, the extracted solutions and
@@ -588,7 +589,7 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     interrupted outcome.
     """
     settings = JudgeSettings(tolerances=tolerances, ao_convention=ao_convention,
-                             stability=stability)
+                             stability=stability, basis_source=basis_source)
     cases = list(cases)
     _interrupt.clear()
     jobs = max(1, int(jobs))

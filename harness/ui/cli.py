@@ -144,6 +144,11 @@ def _add_checking(group) -> None:
                        help="the code's AO convention (order, signs, normalisation), "
                        f"one of {', '.join(NAMED)}; applied as given (default: detected "
                        "from the reported overlap matrix, else pyscf's order)")
+    group.add_argument("--basis-source", choices=("pyscf", "bse"), default=None,
+                       help="where named basis sets come from: pyscf's built-in copies "
+                       "(default) or the basis_set_exchange library (pip install "
+                       "'scf-harness[bse]'); with bse the reference is built and computed "
+                       "from its data, not stored. Key: basis_source")
     group.add_argument("--stability", choices=STABILITY_MODES, default=DEFAULT_STABILITY,
                        help="stability analysis of the converged state: internal (same "
                        "method), external (RHF also against UHF) or off (default: "
@@ -453,6 +458,14 @@ def _distinct_outputs(args) -> None:
         seen[key] = option
 
 
+def _basis_source(args) -> str:
+    """``--basis-source`` (default pyscf), checked: a one-line error saying how to install
+    basis_set_exchange when bse is asked for without it."""
+    from harness.backend.basis_sources import DEFAULT_BASIS_SOURCE, check_basis_source
+
+    return check_basis_source(getattr(args, "basis_source", None) or DEFAULT_BASIS_SOURCE)
+
+
 def _tolerances(args):
     from harness.checks.tolerances import Tolerances, parse_override
 
@@ -498,6 +511,7 @@ def _certify(args, console) -> int:
 
     plugin, label = _plugin(args)
     tolerances = _tolerances(args)
+    _basis_source(args)  # a missing basis_set_exchange is a usage error before any run
     cases, suite_names = select_cases(args.suites, args.case_names, args.cases_file)
     if not cases:
         raise UsageError("no cases selected")
@@ -526,6 +540,7 @@ def _certify(args, console) -> int:
         outcome = run_cases(cases, plugin, tolerances=tolerances,
                             convergence=args.convergence, ao_convention=args.ao_convention,
                             stability=args.stability, timeout=args.timeout,
+                            basis_source=_basis_source(args),
                             jobs=args.jobs, reference_dir=args.references,
                             write_references=args.write_references, results_path=partial,
                             on_result=on_result, plugin_checked=True)
@@ -564,6 +579,7 @@ def _check_result(args, console) -> int:
 
     started = time.perf_counter()
     tolerances = _tolerances(args)
+    _basis_source(args)  # a missing basis_set_exchange is a usage error before any run
     _distinct_outputs(args)
     if not args.file.is_file():
         raise UsageError(f"{args.file}: {_not_a_file(args.file)}")
@@ -597,7 +613,8 @@ def _check_result(args, console) -> int:
     else:
         result = judge(problem, extracted, reference, JudgeSettings(
             tolerances=tolerances, ao_convention=args.ao_convention, stability=args.stability,
-            reference_source=source, reference_error=reference_error))
+            reference_source=source, reference_error=reference_error,
+            basis_source=_basis_source(args)))
     outcome = RunOutcome(cases=(result,), interrupted=False,
                          seconds=time.perf_counter() - started,
                          problems={case.name: problem}, solutions={case.name: extracted},

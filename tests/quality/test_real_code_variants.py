@@ -127,3 +127,47 @@ def test_unparseable_basis_text_is_malformed():
     raw["basis"] = 42
     assert extract(raw).basis.reason == ("must be NWChem-format basis text or a path, "
                                          "got int")
+
+
+
+@functools.lru_cache(maxsize=None)
+def with_source(case_name: str, source: str) -> dict:
+    pytest.importorskip("basis_set_exchange")
+    from harness.testing.planted.variants import bse_basis_by_name
+    from harness.verdict.judge import JudgeSettings
+
+    case = load_catalogue().case(case_name)
+    problem = case.problem()
+    reference, _ = reference_for(case)
+    checks = judge(problem, extract(bse_basis_by_name(problem)), reference,
+                   JudgeSettings(basis_source=source)).checks
+    return {r.name: r for r in checks}
+
+
+@pytest.mark.parametrize("case_name", ["water-sto-3g-rhf", "water-cc-pvdz-rhf"])
+def test_bse_basis_passes_with_bse_source(case_name):
+    v = with_source(case_name, "bse")
+    assert {n for n, r in v.items() if r.status is Status.FAILED} == set()
+    assert v["basis"].message.startswith("basis: judged in the code's own basis (")
+    assert "from basis_set_exchange " in v["basis"].message
+
+
+def test_bse_sto3g_with_pyscf_source_names_the_integral_cost():
+    """STO-3G from the exchange against pyscf's copy: the overlap maps (same order), the
+    integral checks say what the difference costs; not ten failures."""
+    v = with_source("water-sto-3g-rhf", "pyscf")
+    failed = {n for n, r in v.items() if r.status is Status.FAILED}
+    assert failed <= {"overlap", "kinetic", "nuclear-attraction", "core-hamiltonian",
+                      "two-electron"}, failed
+    assert failed, "the exchange's STO-3G differs from pyscf's by more than 1e-7 Eh"
+    for name in failed:
+        assert " at your density that moves E by " in v[name].message
+
+
+def test_bse_ccpvdz_with_pyscf_source_is_one_basis_verdict():
+    """cc-pVDZ from the exchange, contracted otherwise than pyscf's copy: one basis
+    verdict, the matrix checks skipped with that reason."""
+    v = with_source("water-cc-pvdz-rhf", "pyscf")
+    failed = {n for n, r in v.items() if r.status is Status.FAILED}
+    assert "basis" in failed and failed <= {"basis", "overlap"}, failed
+    assert v["orthonormality"].status is Status.SKIPPED
