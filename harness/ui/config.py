@@ -15,6 +15,7 @@ over its key, and ``--scf-tol`` wins per check over ``tolerances``)::
     timeout = 600                      # seconds per case (the plug-in call)
     convergence = 1e-6                 # stationarity asked of the plug-in (atomic units)
     stability = "internal"             # internal | external | off (as certify --stability)
+    basis_source = "pyscf"             # pyscf | bse (as certify --basis-source)
 
 This module imports only the standard library, ``harness.contract.errors``,
 ``harness.contract.defaults`` and, when needed, ``harness.checks.tolerances`` (all light),
@@ -52,7 +53,8 @@ STABILITY_CHOICES = _defaults.STABILITY_MODES
 DEFAULT_STABILITY = _defaults.DEFAULT_STABILITY
 
 #: The keys of the table, in the order the documentation lists them.
-KEYS = ("plugin", "suite", "cases_file", "tolerances", "timeout", "convergence", "stability")
+KEYS = ("plugin", "suite", "cases_file", "tolerances", "timeout", "convergence", "stability",
+        "basis_source")
 
 
 class ConfigError(HarnessError):
@@ -80,6 +82,7 @@ class Settings:
     timeout: float = DEFAULT_TIMEOUT
     convergence: float | None = None
     stability: str = DEFAULT_STABILITY
+    basis_source: str = "pyscf"
     source: str = ""
     from_flags: frozenset = frozenset()
 
@@ -104,6 +107,8 @@ class Settings:
             parts += ["--timeout", f"{self.timeout:g}"]
         if self.stability != DEFAULT_STABILITY:
             parts += ["--stability", self.stability]
+        if self.basis_source != "pyscf":
+            parts += ["--basis-source", self.basis_source]
         return " ".join(parts)
 
 
@@ -227,8 +232,21 @@ def _stability(value, where, field) -> str:
     return value.strip().lower()
 
 
+def _basis_source(value, where, field) -> str:
+    from harness.backend.basis_sources import BASIS_SOURCES, check_basis_source
+
+    if not isinstance(value, str) or value.strip().lower() not in BASIS_SOURCES:
+        raise ConfigError(f"expected one of {', '.join(BASIS_SOURCES)}, got {value!r}",
+                          case=where, field=field)
+    try:
+        return check_basis_source(value.strip().lower())
+    except HarnessError as exc:
+        raise ConfigError(exc.detail, case=where, field=field) from None
+
+
 _PARSERS = {"plugin": _plugin, "suite": _suites, "tolerances": _tolerances,
-            "timeout": _timeout, "convergence": _convergence, "stability": _stability}
+            "timeout": _timeout, "convergence": _convergence, "stability": _stability,
+            "basis_source": _basis_source}
 
 
 def parse_table(table: Mapping[str, Any], source: str = "pyproject.toml") -> dict[str, Any]:
@@ -254,7 +272,8 @@ def parse_table(table: Mapping[str, Any], source: str = "pyproject.toml") -> dic
 def parse_flags(*, plugin: str | None = None, suites: Sequence[str] | None = None,
                 tolerances: Sequence[str] | None = None, timeout: str | None = None,
                 convergence: str | None = None, stability: str | None = None,
-                cases_file: str | None = None, base=None) -> dict[str, Any]:
+                cases_file: str | None = None, base=None,
+                basis_source: str | None = None) -> dict[str, Any]:
     """Validate the ``--scf-…`` flag values (strings as typed; None: not given).
 
     ``tolerances`` are ``CHECK=VALUE`` strings as for ``--tol``; a relative
@@ -287,6 +306,8 @@ def parse_flags(*, plugin: str | None = None, suites: Sequence[str] | None = Non
         out["convergence"] = _convergence(convergence, None, "--scf-convergence")
     if stability is not None:
         out["stability"] = _stability(stability, None, "--scf-stability")
+    if basis_source is not None:
+        out["basis_source"] = _basis_source(basis_source, None, "--scf-basis-source")
     return out
 
 
@@ -303,7 +324,8 @@ def resolve(flags: Mapping[str, Any], keys: Mapping[str, Any], source: str = "")
     return Settings(plugin=pick("plugin", None), suites=tuple(suites), cases_file=cases_file,
                     tolerances=tolerances, timeout=float(pick("timeout", DEFAULT_TIMEOUT)),
                     convergence=pick("convergence", None),
-                    stability=pick("stability", DEFAULT_STABILITY), source=source,
+                    stability=pick("stability", DEFAULT_STABILITY),
+                    basis_source=pick("basis_source", "pyscf"), source=source,
                     from_flags=frozenset(flags))
 
 

@@ -84,6 +84,11 @@ def pytest_addoption(parser: pytest.Parser) -> None:
                     help="stationarity asked of the plug-in: max|X(FPS - SPF)X|, X = S^-1/2, "
                     "in (0, 1); the derived tolerances follow it. Key: convergence. "
                     f"Default: {_config.DEFAULT_CONVERGENCE:g}")
+    group.addoption("--scf-basis-source", dest="scf_basis_source", default=None,
+                    choices=("pyscf", "bse"),
+                    help="where named basis sets come from: pyscf's copies (default) or "
+                    "basis_set_exchange (pip install 'scf-harness[bse]'), as certify "
+                    "--basis-source. Key: basis_source")
     group.addoption("--scf-stability", dest="scf_stability", default=None,
                     metavar="|".join(_config.STABILITY_CHOICES),
                     help="orbital stability analysis of the code's solution, as certify "
@@ -102,6 +107,7 @@ def pytest_configure(config: pytest.Config) -> None:
             tolerances=getattr(opt, "scf_tol", None), timeout=getattr(opt, "scf_timeout", None),
             convergence=getattr(opt, "scf_convergence", None),
             stability=getattr(opt, "scf_stability", None),
+            basis_source=getattr(opt, "scf_basis_source", None),
             cases_file=getattr(opt, "scf_cases_file", None),
             base=config.invocation_params.dir)
         pyproject = _config.pyproject_for(config.rootpath, config.inipath)
@@ -201,7 +207,8 @@ class CaseItem(pytest.Item):
         outcome = run_cases([self.case], settings.plugin,
                             tolerances=Tolerances(overrides=dict(settings.tolerances)),
                             timeout=settings.timeout, convergence=settings.convergence,
-                            stability=settings.stability, plugin_checked=True)
+                            stability=settings.stability, plugin_checked=True,
+                            basis_source=settings.basis_source)
         if outcome.interrupted or not outcome.cases:
             raise KeyboardInterrupt
         result = outcome.cases[0]
@@ -342,7 +349,8 @@ def scf_check(request, scf_case):
         result = judge(problem, extracted, reference, JudgeSettings(
             tolerances=Tolerances(overrides=dict(settings.tolerances)),
             ao_convention=ao_convention, stability=settings.stability,
-            reference_source=source, reference_error=reference_error))
+            reference_source=source, reference_error=reference_error,
+            basis_source=settings.basis_source))
         lines = [result.error] if result.error is not None else []
         for r in result.failures:
             lines.append(r.message)

@@ -91,7 +91,9 @@ def _basis(problem: Problem, sol: Solution, ints: AOIntegrals, ao_convention: st
     except HarnessError as exc:
         return not_applicable("basis", str(exc), case), sol, True
     if isinstance(conv, BasisMismatch):
-        return failed("basis", f"basis: {conv.reason} ({case})"), sol, False
+        return failed("basis", f"basis: {conv.reason} ({case}); if your code's basis "
+                      f"data come from elsewhere, return them as 'basis' (NWChem text) or "
+                      f"use --basis-source bse"), sol, False
     if conv.is_identity:
         return (CheckResult("basis", Status.PASSED, 0.0, None,
                             f"basis: the code's overlap is pyscf's, same AO order ({case})"),
