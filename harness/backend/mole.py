@@ -70,6 +70,14 @@ def _element_block(text: str, symbol: str) -> str:
     return "\n".join(keep)
 
 
+def named_basis_shells(name: str, symbol: str) -> list:
+    """pyscf's built-in basis ``name`` of element ``symbol`` as its internal list of
+    shells ``[l, [exponent, c1, c2, …], …]`` (plain Python data)."""
+    from pyscf import gto
+
+    return gto.basis.load(name, symbol)
+
+
 def mole_in_basis(problem, text: str):
     """The pyscf ``Mole`` of ``problem`` (its geometry in bohr, charge, spin, cartesian
     flag) in the basis given as NWChem-format ``text`` instead of the named one."""

@@ -111,14 +111,13 @@ ROUNDED_DIGITS = 7
 def rounded_basis_text(problem) -> str:
     """pyscf's basis of ``problem`` as NWChem text, every number rounded to
     ROUNDED_DIGITS significant digits (synthetic: a code with 6-decimal basis data)."""
-    from harness.backend.mole import element_symbols
-    from pyscf import gto
+    from harness.backend.mole import element_symbols, named_basis_shells
 
     lines = []
     letters = "SPDFGHI"
     for z in sorted(set(int(x) for x in problem.numbers)):
         symbol = element_symbols()[z]
-        for shell in gto.basis.load(problem.basis, symbol):
+        for shell in named_basis_shells(problem.basis, symbol):
             l, rows = shell[0], shell[1:]
             if rows and not isinstance(rows[0], (list, tuple)):  # kappa entry
                 rows = rows[1:]
@@ -135,19 +134,8 @@ def rounded_basis_data(problem) -> dict:
     for that basis) and says so with the ``basis`` key; the harness builds the reference
     in exactly that basis.
     """
-    from harness.backend.mole import mole_in_basis
-    from harness.testing.example_scf import Integrals
-
     text = rounded_basis_text(problem)
-    mol = mole_in_basis(problem, text)
-    from pyscf import ao2mo
-
-    nao = mol.nao_nr()
-    ints = Integrals(s=mol.intor("int1e_ovlp"), t=mol.intor("int1e_kin"),
-                     v=mol.intor("int1e_nuc"),
-                     eri=ao2mo.restore(1, mol.intor("int2e", aosym="s8"), nao),
-                     e_nuc=float(mol.energy_nuc()),
-                     shells=tuple(int(i) for i in mol.ao_loc_nr()))
+    ints = _integrals_in(problem, text)
     result = _Reporting(problem, ints).iterate()
     result["basis"] = text
     return result
@@ -160,18 +148,12 @@ CATALOGUE = CATALOGUE + __import__("harness.testing.planted", fromlist=["entries
 # ------------------------------------------------------- bases from the basis-set exchange
 
 def _integrals_in(problem, text: str):
-    from pyscf import ao2mo
-
-    from harness.backend.mole import mole_in_basis
+    """The example code's integrals in the basis of NWChem ``text`` (pyscf's library)."""
+    from harness.backend.integrals import full_integrals
     from harness.testing.example_scf import Integrals
 
-    mol = mole_in_basis(problem, text)
-    nao = mol.nao_nr()
-    return Integrals(s=mol.intor("int1e_ovlp"), t=mol.intor("int1e_kin"),
-                     v=mol.intor("int1e_nuc"),
-                     eri=ao2mo.restore(1, mol.intor("int2e", aosym="s8"), nao),
-                     e_nuc=float(mol.energy_nuc()),
-                     shells=tuple(int(i) for i in mol.ao_loc_nr()))
+    s, t, v, eri, e_nuc, shells = full_integrals(problem, basis_text=text)
+    return Integrals(s=s, t=t, v=v, eri=eri, e_nuc=e_nuc, shells=shells)
 
 
 def bse_basis_by_name(problem) -> dict:
