@@ -61,7 +61,7 @@ VALUE_AGREEMENT_REL = 1e-6
 #: reproduce to 1e-9 (``harness.catalogue.references.RECOMPUTE_TOLERANCE``).
 REFERENCE_AGREEMENT = 1e-9
 
-_SCALARS = {"energy": float, "converged": bool, "iterations": int}
+_SCALARS = {"energy": float, "converged": bool, "iterations": int, "basis": str}
 
 
 # --------------------------------------------------------------------------- hashing
@@ -91,6 +91,8 @@ def _as_array(value) -> np.ndarray:
         return np.asarray(value, dtype=np.bool_)
     if isinstance(value, (int, np.integer)):
         return np.asarray(value, dtype=np.int64)
+    if isinstance(value, str):  # the 'basis' text: a 0-d unicode array (no pickle)
+        return np.asarray(value, dtype=np.str_)
     return np.ascontiguousarray(np.asarray(value, dtype=np.float64))
 
 
