@@ -48,7 +48,7 @@ DIGESTS_KEY = "digests"
 #: else it uses is recorded per case or in ``tolerances``). A certificate made before
 #: they were recorded is recomputed with evaluate_case's defaults.
 EVALUATION_KEY = "evaluation"
-EVALUATION_OPTIONS = ("ao_convention", "stability")
+EVALUATION_OPTIONS = ("ao_convention", "stability", "basis_source")
 #: ``verify-certificate`` lists at most this many problems, then says how many more.
 MAX_LISTED_PROBLEMS = 20
 #: A recomputed check value agrees with the certified one when
@@ -235,7 +235,8 @@ def make_certificate(case_results: Sequence[CaseResult], *, problems: Mapping[st
                      versions: Mapping[str, str] | None = None, plugin: str | None = None,
                      sidecar: Mapping[str, str] | None = None,
                      created: str | None = None, ao_convention: str | None = None,
-                     stability: str = "internal") -> dict[str, Any]:
+                     stability: str = "internal",
+                     basis_source: str = "pyscf") -> dict[str, Any]:
     """The certificate of a run as a JSON-ready dict, hashed and digested.
 
     ``problems``, ``solutions`` (the extracted solutions, ``harness.contract.solution.extract``;
@@ -262,7 +263,8 @@ def make_certificate(case_results: Sequence[CaseResult], *, problems: Mapping[st
         "units": {"energy": "hartree", "length": "bohr"},
         "tolerances": {"factor": float(tol.factor),
                        "overrides": {k: float(v) for k, v in sorted(tol.overrides.items())}},
-        EVALUATION_KEY: {"ao_convention": ao_convention, "stability": stability},
+        EVALUATION_KEY: {"ao_convention": ao_convention, "stability": stability,
+                         **_basis_source_entry(basis_source)},
         "passed": bool(case_results) and all(r.passed for r in case_results),
         "sidecar": dict(sidecar) if sidecar is not None else None,
         "cases": cases,
@@ -287,10 +289,16 @@ def _atomic_write(path: Path, write) -> None:
     atomic_write(path, write)
 
 
+def _basis_source_entry(source: str) -> dict:
+    """The evaluation option of ``--basis-source`` (left out for the default, pyscf); the
+    basis_set_exchange version is in the case entries' reference provenance."""
+    return {} if source == "pyscf" else {"basis_source": source}
+
+
 def write_certificate(path, case_results: Sequence[CaseResult], *, problems, solutions,
                       references=None, tolerances=None, versions=None,
                       plugin: str | None = None, ao_convention: str | None = None,
-                      stability: str = "internal") -> Path:
+                      stability: str = "internal", basis_source: str = "pyscf") -> Path:
     """Write the sidecar ``NAME.solutions.npz`` (every non-malformed array of every
     solution, keyed ``<case>/<key>``), then the certificate ``path`` with the sidecar's
     hash; both atomically. Arguments as for :func:`make_certificate`. Returns ``path``."""
@@ -307,6 +315,7 @@ def write_certificate(path, case_results: Sequence[CaseResult], *, problems, sol
     cert = make_certificate(case_results, problems=problems, solutions=solutions,
                             references=references, tolerances=tolerances, versions=versions,
                             plugin=plugin, ao_convention=ao_convention, stability=stability,
+                            basis_source=basis_source,
                             sidecar={"file": side.name, "sha256": file_sha256(side)})
 
     def save_json(tmp):
@@ -554,6 +563,10 @@ def _evaluation_options(cert: Mapping[str, Any], issues: list[str]) -> dict[str,
     if convention is not None and convention not in NAMED:
         issues.append(f"{EVALUATION_KEY}: ao_convention {convention!r} is not one of "
                       f"{', '.join(NAMED)}")
+        return None
+    if data.get("basis_source", "pyscf") not in ("pyscf", "bse"):
+        issues.append(f"{EVALUATION_KEY}: basis_source {data['basis_source']!r} is not one "
+                      f"of pyscf, bse")
         return None
     return {k: data[k] for k in EVALUATION_OPTIONS if k in data}
 

@@ -490,7 +490,8 @@ def _plugin(args):
 
 
 def _write_certificate(path: Path, outcome, *, tolerances, plugin: str, console,
-                       quiet: bool, ao_convention: str | None, stability: str) -> None:
+                       quiet: bool, ao_convention: str | None, stability: str,
+                       basis_source: str = "pyscf") -> None:
     """Write the certificate of the cases whose problem could be built (the others
     have no inputs to certify), recording the evaluation options (--ao-convention,
     --stability) that a recompute must use again."""
@@ -499,7 +500,8 @@ def _write_certificate(path: Path, outcome, *, tolerances, plugin: str, console,
     results = [r for r in outcome.cases if r.name in outcome.problems]
     write_certificate(path, results, problems=outcome.problems, solutions=outcome.solutions,
                       references=outcome.references, tolerances=tolerances, plugin=plugin,
-                      ao_convention=ao_convention, stability=stability)
+                      ao_convention=ao_convention, stability=stability,
+                      basis_source=basis_source)
     if not quiet:
         console.print(f"certificate: {path} (solutions in {sidecar_path(path).name})",
                       markup=False, soft_wrap=True)
@@ -561,7 +563,8 @@ def _certify(args, console) -> int:
         if args.certificate is not None:
             _write_certificate(args.certificate, outcome, tolerances=tolerances, plugin=label,
                                console=console, quiet=args.quiet,
-                               ao_convention=args.ao_convention, stability=args.stability)
+                               ao_convention=args.ao_convention, stability=args.stability,
+                               basis_source=_basis_source(args))
     return 0 if outcome.passed else 1
 
 
@@ -634,7 +637,8 @@ def _check_result(args, console) -> int:
     if args.certificate is not None:
         _write_certificate(args.certificate, outcome, tolerances=tolerances, plugin=label,
                            console=console, quiet=args.quiet,
-                           ao_convention=args.ao_convention, stability=args.stability)
+                           ao_convention=args.ao_convention, stability=args.stability,
+                           basis_source=_basis_source(args))
     return 0 if outcome.passed else 1
 
 
