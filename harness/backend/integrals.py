@@ -97,22 +97,34 @@ def overlap(mol) -> np.ndarray:
     return mol.intor_symmetric("int1e_ovlp")
 
 
-def integrals_for(problem: Problem) -> AOIntegrals:
-    """Build the AO integrals of ``problem`` with pyscf (the mole the reference uses)."""
-    mol = problem.to_pyscf()
+def integrals_for(problem: Problem, basis_text: str | None = None) -> AOIntegrals:
+    """Build the AO integrals of ``problem`` with pyscf (the mole the reference uses);
+    with ``basis_text`` (NWChem format) in that basis instead of the named one."""
+    if basis_text is not None:
+        from harness.backend.mole import mole_in_basis
+
+        mol = mole_in_basis(problem, basis_text)
+    else:
+        mol = problem.to_pyscf()
     s = mol.intor_symmetric("int1e_ovlp")
     h = mol.intor_symmetric("int1e_kin") + mol.intor_symmetric("int1e_nuc")
     return AOIntegrals(mol=mol, s=s, h=h, e_nuc=float(mol.energy_nuc()),
                        labels=tuple(" ".join(l.split()) for l in mol.ao_labels()))
 
 
-def full_integrals(problem):
+def full_integrals(problem, basis_text: str | None = None):
     """S, T, V (nao, nao), the full ERI tensor (pq|rs) (nao⁴, computed with 8-fold
     symmetry and unpacked), E_nuc (Eh) and the shell offsets ``ao_loc`` of ``problem``
-    (coordinates in bohr): ``(s, t, v, eri, e_nuc, ao_loc)``, plain numpy/Python values."""
+    (coordinates in bohr): ``(s, t, v, eri, e_nuc, ao_loc)``, plain numpy/Python values;
+    with ``basis_text`` (NWChem format) in that basis instead of the named one."""
     from pyscf import ao2mo
 
-    mol = problem.to_pyscf()
+    if basis_text is not None:
+        from harness.backend.mole import mole_in_basis
+
+        mol = mole_in_basis(problem, basis_text)
+    else:
+        mol = problem.to_pyscf()
     nao = mol.nao_nr()
     eri = ao2mo.restore(1, mol.intor("int2e", aosym="s8"), nao)
     return (mol.intor("int1e_ovlp"), mol.intor("int1e_kin"), mol.intor("int1e_nuc"),

@@ -32,6 +32,61 @@ def build_mole(numbers, coordinates, *, charge: int, multiplicity: int, basis: s
     return mol
 
 
+def parse_nwchem(text: str, symbols) -> dict:
+    """pyscf's internal basis of each element in ``symbols`` from NWChem-format ``text``
+    (``pyscf.gto.basis.parse``). Raises ValueError (one line) naming the element when the
+    text has no shells for it or does not parse."""
+    from pyscf import gto
+
+    out = {}
+    for symbol in sorted(set(symbols)):
+        block = _element_block(text, symbol)
+        if not block:
+            raise ValueError(f"has no shells for {symbol}")
+        try:
+            shells = gto.basis.parse(block)
+        except Exception as exc:  # pyscf raises several kinds on broken text
+            raise ValueError(f"does not parse for {symbol} ({type(exc).__name__}: "
+                             f"{exc})".splitlines()[0]) from None
+        if not shells:
+            raise ValueError(f"has no shells for {symbol}")
+        out[symbol] = shells
+    return out
+
+
+def _element_block(text: str, symbol: str) -> str:
+    """The shells of one element from NWChem text holding several (pyscf's parser wants
+    one element per block): each header line "<symbol> <S|P|SP|D|…>" of that element
+    with the number lines that follow it; comments, BASIS and END lines dropped."""
+    keep, mine = [], False
+    for line in text.splitlines():
+        words = line.split()
+        if not words or words[0].startswith("#") or words[0].upper() in ("BASIS", "END"):
+            continue
+        if words[0][0].isalpha():
+            mine = len(words) >= 2 and words[0].lower() == symbol.lower()
+        if mine:
+            keep.append(line)
+    return "\n".join(keep)
+
+
+def named_basis_shells(name: str, symbol: str) -> list:
+    """pyscf's built-in basis ``name`` of element ``symbol`` as its internal list of
+    shells ``[l, [exponent, c1, c2, …], …]`` (plain Python data)."""
+    from pyscf import gto
+
+    return gto.basis.load(name, symbol)
+
+
+def mole_in_basis(problem, text: str):
+    """The pyscf ``Mole`` of ``problem`` (its geometry in bohr, charge, spin, cartesian
+    flag) in the basis given as NWChem-format ``text`` instead of the named one."""
+    symbols = [element_symbols()[int(z)] for z in problem.numbers]
+    return build_mole(problem.numbers, problem.coordinates, charge=problem.charge,
+                      multiplicity=problem.multiplicity, basis=parse_nwchem(text, symbols),
+                      cartesian=problem.cartesian)
+
+
 def mole_for(problem):
     """The pyscf ``Mole`` of a :class:`harness.contract.problem.Problem` (bohr)."""
     return build_mole(problem.numbers, problem.coordinates, charge=problem.charge,

@@ -17,7 +17,8 @@ solution into one :class:`harness.contract.results.CheckResult` per check.
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
+import dataclasses
+from typing import TYPE_CHECKING, Mapping
 
 if TYPE_CHECKING:
     from harness.contract.solution import Solution
@@ -25,7 +26,7 @@ if TYPE_CHECKING:
 import numpy as np
 
 from harness.checks.orthonormal import locate, matrix_difference, worst
-from harness.contract.results import CheckResult, Measurement, judge, not_applicable
+from harness.contract.results import CheckResult, Measurement, Status, judge, not_applicable
 from harness.checks.tolerances import Tolerances
 
 #: The ERI checks are not run above this many AOs: the reference tensor has nao⁴
@@ -142,23 +143,202 @@ def eri_definite(g: np.ndarray, labels=None) -> Measurement:
     return Measurement(float(-w[0]), "−λ_min((ij|kl))", where)
 
 
-def integral_checks(sol: Solution, ints, tolerances: Tolerances | None, case: str
+# ------------------------------------------------------------------ energy effect
+
+def energy_weighted_density(d: np.ndarray, f: np.ndarray) -> np.ndarray:
+    """The energy-weighted density W (nao, nao) of density ``d`` and Fock matrix ``f``
+    (both with a leading spin axis, see ``harness.checks.spin``).
+
+    RHF (d = (P,), P the total density, f = (F,)): W = ½ P F P; UHF/ROHF:
+    W = Σσ Pσ Fσ Pσ. For canonical orbitals (F C = S C ε, Cᵀ S C = 1) this is
+    W = Σ_i n_i ε_i C_i C_iᵀ, the form in the textbooks; written with F it needs no
+    orbital energies and does not depend on how the occupied orbitals are rotated.
+    (For ROHF it is the UHF-form expression at the ROHF density: exact for the
+    first-order energy only at a UHF-stationary density, an approximation otherwise.)
+    """
+    d = np.asarray(d, dtype=float)
+    f = np.asarray(f, dtype=float)
+    w = np.einsum("spq,sqr,srt->pt", d, f, d)
+    return 0.5 * w if len(d) == 1 else w
+
+
+def _effect(value: float, symbol: str) -> Measurement:
+    return Measurement(abs(float(value)), f"|δE({symbol})|", f"δE = {float(value):+.1e} Eh")
+
+
+def one_electron_effect(delta: np.ndarray, d: np.ndarray, symbol: str = "H") -> Measurement:
+    """First-order energy change of a one-electron operator change δA (T, V or H):
+    δE = Tr(P δA), P = Σσ Pσ the total density (Eh).
+
+    Hellmann–Feynman: at a stationary density the orbital response enters only at second
+    order (Helgaker, Jørgensen & Olsen, Molecular Electronic-Structure Theory, Wiley 2000,
+    the first-order energy of a perturbation; from memory)."""
+    p = np.asarray(d, dtype=float).sum(axis=0)
+    return _effect(float(np.einsum("pq,qp->", p, np.asarray(delta, dtype=float))), symbol)
+
+
+def two_electron_effect(delta_g: np.ndarray, d: np.ndarray) -> Measurement:
+    """First-order energy change of an ERI change δ(ij|kl): δE = ½ Tr(P δG[P]), i.e.
+    ½ Tr(P δJ) − ¼ Tr(P δK) for RHF (total P) and ½ Tr(P δJ) − ½ Σσ Tr(Pσ δKσ) for
+    UHF/ROHF, with δJ_ij = Σ δ(ij|kl) P_kl and δK_ij = Σ δ(ik|jl) P_kl (Eh;
+    Hellmann–Feynman as in :func:`one_electron_effect`)."""
+    return _effect(_two_electron_delta(delta_g, d), "(ij|kl)")
+
+
+def _two_electron_delta(delta_g, d) -> float:
+    g = np.asarray(delta_g, dtype=float)
+    d = np.asarray(d, dtype=float)
+    p = d.sum(axis=0)
+    e = 0.5 * float(np.einsum("ij,ijkl,kl->", p, g, p, optimize=True))
+    k = float(np.einsum("sij,ikjl,skl->", d, g, d, optimize=True))
+    return e - (0.25 * k if len(d) == 1 else 0.5 * k)
+
+
+def overlap_effect(delta_s: np.ndarray, w: np.ndarray) -> Measurement:
+    """First-order energy change of an overlap change δS: δE = −Tr(W δS), W the
+    energy-weighted density (:func:`energy_weighted_density`), in Eh. The orbitals must
+    stay orthonormal in the changed metric; the Lagrange multipliers of that constraint
+    are W (Helgaker, Jørgensen & Olsen 2000, the reorthonormalisation term of the
+    first-order energy; from memory)."""
+    return _effect(-float(np.einsum("pq,qp->", np.asarray(w, float),
+                                    np.asarray(delta_s, float))), "S")
+
+
+def _effect_verdict(name: str, symbol: str, diff: Measurement, effect: Measurement,
+                    tolerance: float, bound: float, case: str) -> CheckResult:
+    """Pass when the energy effect is within ``tolerance`` (Eh) and no element is off by
+    more than ``bound``; the message states both sizes either way."""
+    moves = effect.value
+    ok_effect = bool(moves <= tolerance)
+    ok_bound = bool(diff.value <= bound)
+    where = f", {diff.where}" if diff.where else ""
+    head = f"{name}: your {symbol} differs by up to {diff.value:.1e}"
+    if ok_effect and ok_bound:
+        message = (f"{head}; at your density that moves E by {moves:.1e} Eh ≤ "
+                   f"{tolerance:g} ({case})")
+    elif not ok_effect:
+        message = (f"{head}; at your density that moves E by {moves:.1e} Eh > "
+                   f"{tolerance:g} ({case}){where}")
+    else:
+        message = (f"{head} > {bound:g} ({case}){where}; at your density that moves E by "
+                   f"{moves:.1e} Eh")
+    return CheckResult(name=name, status=Status.PASSED if ok_effect and ok_bound
+                       else Status.FAILED, value=moves, tolerance=tolerance, message=message)
+
+
+@dataclasses.dataclass(frozen=True)
+class Density:
+    """What the energy effects are measured at: the code's density ``d`` (leading spin
+    axis) and energy-weighted density ``w`` (nao, nao), pyscf's AO order."""
+
+    d: np.ndarray
+    w: np.ndarray
+
+
+def density_for(sol: "Solution", method: str, fock=None) -> Density | None:
+    """The code's density (its ``density``, else built from orbitals and occupations) and
+    W = ½PFP / ΣPσFσPσ with its ``fock`` (else ``fock``, e.g. one rebuilt from P); None
+    when the solution gives neither a density nor orbitals, or no Fock matrix is known."""
+    from harness.checks.spin import (density_by_spin, density_from_orbitals, fock_by_spin,
+                                     orbitals_by_spin)
+
+    try:
+        if isinstance(sol.density, np.ndarray):
+            d = density_by_spin(method, sol.density)
+        else:
+            d = density_from_orbitals(*orbitals_by_spin(method, sol.coefficients,
+                                                        sol.occupations))
+        f = fock_by_spin(method, sol.fock) if isinstance(sol.fock, np.ndarray) else fock
+        if f is None:
+            return None
+        return Density(d=d, w=energy_weighted_density(d, f))
+    except (ValueError, TypeError):
+        return None
+
+
+def energy_effects(sol: "Solution", ints, at: Density) -> dict[str, float]:
+    """Signed first-order energy effects (Eh) of the integrals the code reports, by check
+    name: δE = Tr(P δH) + ½Tr(P δG[P]) − Tr(W δS), δ = code − reference, split by class
+    (overlap, kinetic, nuclear-attraction, core-hamiltonian, two-electron; the last only
+    up to ERI_MAX_NAO AOs)."""
+    out: dict[str, float] = {}
+    nao = len(ints.labels)
+    if isinstance(sol.overlap, np.ndarray):
+        out["overlap"] = -float(np.einsum("pq,qp->", at.w, sol.overlap - ints.s))
+    p = at.d.sum(axis=0)
+    for name, value, ref in (("kinetic", sol.kinetic, ints.kinetic),
+                             ("nuclear-attraction", sol.nuclear_attraction,
+                              ints.nuclear_attraction),
+                             ("core-hamiltonian", sol.core_hamiltonian, lambda: ints.h)):
+        if isinstance(value, np.ndarray):
+            out[name] = float(np.einsum("pq,qp->", p, value - ref()))
+    if isinstance(sol.two_electron, np.ndarray) and nao <= ERI_MAX_NAO:
+        g_ref = np.asarray(ints.eri()).reshape((nao,) * 4)
+        out["two-electron"] = _two_electron_delta(sol.two_electron - g_ref, at.d)
+    return out
+
+
+def explained_energy(effects: Mapping[str, float]) -> float | None:
+    """The part of E − E_ref the reported integrals explain (Eh): the sum of the effects,
+    counting H once (core-hamiltonian if reported, else kinetic + nuclear-attraction);
+    None when no integral is reported."""
+    if not effects:
+        return None
+    names = ["overlap", "two-electron"] + (
+        ["core-hamiltonian"] if "core-hamiltonian" in effects
+        else ["kinetic", "nuclear-attraction"])
+    return float(sum(effects.get(n, 0.0) for n in names))
+
+
+def overlap_check(sol: "Solution", ints, at: Density | None, tolerances: Tolerances | None,
+                  case: str) -> CheckResult:
+    """The overlap check: the energy effect −Tr(W δS) of the code's S against pyscf's
+    (at the code's density), within the overlap tolerance (Eh), and no element off by
+    more than INTEGRAL_ELEMENT_BOUND. Not applicable without an ``overlap`` key."""
+    if sol.overlap is None:
+        return not_applicable("overlap", "no 'overlap' key", case)
+    tol = tolerances or Tolerances()
+    diff = matrix_difference(sol.overlap, ints.s, "max|S − S_ref|", ints.labels)
+    if at is None:
+        return not_applicable("overlap", "no density and Fock matrix to weigh the "
+                              "difference with", case)
+    return _effect_verdict("overlap", "S", diff, overlap_effect(sol.overlap - ints.s, at.w),
+                           tol.for_check("overlap", 1.0), _element_bound(), case)
+
+
+def _element_bound() -> float:
+    from harness.checks.tolerances import INTEGRAL_ELEMENT_BOUND
+
+    return INTEGRAL_ELEMENT_BOUND
+
+
+def integral_checks(sol: Solution, ints, tolerances: Tolerances | None, case: str,
+                    at: Density | None = None, method: str | None = None
                     ) -> dict[str, CheckResult]:
     """The integral checks of one extracted solution, by name.
 
     ``sol``: the extracted (well-formed, pyscf-AO-order) solution; ``ints``: the case's
-    :class:`harness.backend.integrals.AOIntegrals` (its ``kinetic()``, ``nuclear_attraction()`` and ``eri()`` arrays are the references);
-    all tolerances are fixed (``harness.checks.tolerances``), in Eh (Eh² for Schwarz).
+    :class:`harness.backend.integrals.AOIntegrals` (its ``kinetic()``,
+    ``nuclear_attraction()`` and ``eri()`` arrays are the references); ``at``: the
+    density the energy effects are measured at (None: :func:`density_for` of the
+    solution, ``method`` from the shape of its orbitals). Tolerances in Eh (Eh² for
+    Schwarz).
 
-    kinetic, nuclear-attraction, core-hamiltonian: max|A_code − A_ref| for the code's
-    ``kinetic``, ``nuclear_attraction``, ``core_hamiltonian``; overlap-definite and
-    kinetic-definite: −λ_min of the code's ``overlap`` and ``kinetic``; two-electron
-    (against pyscf's int2e), -symmetry, -schwarz, -definite: the code's ``two_electron``,
-    not applicable above ERI_MAX_NAO AOs. Each is not applicable when its key is absent.
+    kinetic, nuclear-attraction, core-hamiltonian, two-electron: the first-order energy
+    effect of the difference from pyscf's integrals at the code's density (Tr(P δT),
+    Tr(P δV), Tr(P δH), ½Tr(P δG[P])) within INTEGRAL_ENERGY_EFFECT, and no element off
+    by more than INTEGRAL_ELEMENT_BOUND; overlap-definite and kinetic-definite: −λ_min
+    of the code's ``overlap`` and ``kinetic``; two-electron-symmetry, -schwarz,
+    -definite: properties of the code's ``two_electron``; the ERI checks are not
+    applicable above ERI_MAX_NAO AOs. Each is not applicable when its key is absent.
     """
     tol = tolerances or Tolerances()
     labels = ints.labels
     out: dict[str, CheckResult] = {}
+    if at is None:
+        method = method or _method_of(sol)
+        at = density_for(sol, method, fock=None) if method else None
+    bound = _element_bound()
 
     def verdict(name, measurement):
         # every integral tolerance is fixed: the convergence argument is not used
@@ -167,21 +347,28 @@ def integral_checks(sol: Solution, ints, tolerances: Tolerances | None, case: st
     def missing(name, key):
         out[name] = not_applicable(name, f"no '{key}' key", case)
 
+    def weighed(name, symbol, value, ref, quantity):
+        diff = matrix_difference(value, ref, quantity, labels)
+        if at is None:
+            return not_applicable(name, "no density and Fock matrix to weigh the "
+                                  "difference with", case)
+        return _effect_verdict(name, symbol, diff,
+                               one_electron_effect(value - ref, at.d, symbol),
+                               tol.for_check(name, 1.0), bound, case)
+
     if sol.kinetic is not None:
-        t_ref = ints.kinetic()
-        out["kinetic"] = verdict("kinetic", matrix_difference(sol.kinetic, t_ref,
-                                                              "max|T − T_ref|", labels))
+        out["kinetic"] = weighed("kinetic", "T", sol.kinetic, ints.kinetic(),
+                                 "max|T − T_ref|")
     else:
         missing("kinetic", "kinetic")
     if sol.nuclear_attraction is not None:
-        v_ref = ints.nuclear_attraction()
-        out["nuclear-attraction"] = verdict("nuclear-attraction", matrix_difference(
-            sol.nuclear_attraction, v_ref, "max|V − V_ref|", labels))
+        out["nuclear-attraction"] = weighed("nuclear-attraction", "V", sol.nuclear_attraction,
+                                            ints.nuclear_attraction(), "max|V − V_ref|")
     else:
         missing("nuclear-attraction", "nuclear_attraction")
     if sol.core_hamiltonian is not None:
-        out["core-hamiltonian"] = verdict("core-hamiltonian", matrix_difference(
-            sol.core_hamiltonian, ints.h, "max|H − H_ref|", labels))
+        out["core-hamiltonian"] = weighed("core-hamiltonian", "H", sol.core_hamiltonian,
+                                          ints.h, "max|H − H_ref|")
     else:
         missing("core-hamiltonian", "core_hamiltonian")
     if sol.overlap is not None:
@@ -208,8 +395,26 @@ def integral_checks(sol: Solution, ints, tolerances: Tolerances | None, case: st
     else:
         g = sol.two_electron
         g_ref = np.asarray(ints.eri()).reshape((nao,) * 4)
-        out["two-electron"] = verdict("two-electron", eri_difference(g, g_ref, labels))
+        diff = eri_difference(g, g_ref, labels)
+        if at is None:
+            out["two-electron"] = not_applicable("two-electron", "no density and Fock "
+                                                 "matrix to weigh the difference with", case)
+        else:
+            out["two-electron"] = _effect_verdict(
+                "two-electron", "(ij|kl)", diff, two_electron_effect(g - g_ref, at.d),
+                tol.for_check("two-electron", 1.0), bound, case)
         out["two-electron-symmetry"] = verdict("two-electron-symmetry", eri_symmetry(g, labels))
         out["two-electron-schwarz"] = verdict("two-electron-schwarz", schwarz(g, labels))
         out["two-electron-definite"] = verdict("two-electron-definite", eri_definite(g, labels))
     return out
+
+
+def _method_of(sol) -> str | None:
+    """"uhf" for (2, nao, nmo) orbitals, else "rohf" when an occupation is 1, "rhf"
+    otherwise (a direct caller's guess of the method; evaluate passes the density)."""
+    c, occ = sol.coefficients, sol.occupations
+    if not isinstance(c, np.ndarray) or not isinstance(occ, np.ndarray):
+        return None
+    if c.ndim == 3:
+        return "uhf"
+    return "rohf" if np.any(np.abs(occ - 1.0) < 0.5) else "rhf"

@@ -92,9 +92,13 @@ class CheckSpec:
 _DERIVED_REASON = ("vanishes only at self-consistency; codes measure the gradient in "
                    "different bases and norms (within ~5×), so a code stopped exactly at "
                    "the requested convergence passes and one 100× looser fails")
-_INTEGRAL_REASON = ("analytic integrals agree to ~1e-13 between programs; 1e-8 admits "
-                    "screening near 1e-10, while a real error (missing ½, wrong sign, "
-                    "physicists' order) is of order 1 Eh")
+_INTEGRAL_REASON = ("a tenth of the reference-energy tolerance: integrals this good cannot "
+                    "move E out of the agreement asked of it; the element size alone says "
+                    "nothing about the cost; a real error (missing ½, wrong sign, "
+                    "physicists' order) moves E by ≥ 1 Eh")
+_EFFECT = ("first-order energy effect at the code's density (Hellmann–Feynman), in Eh; "
+           "also fails when an element is off by more than INTEGRAL_ELEMENT_BOUND")
+_BOUND = f"{_TOL}:INTEGRAL_ELEMENT_BOUND"
 _DEFINITE_REASON = ("a Gram matrix has no negative eigenvalue beyond rounding (~1e-13); "
                     "the bound is on the negative side because nearly dependent bases have "
                     "eigenvalues approaching 0⁺")
@@ -102,8 +106,9 @@ _DEFINITE_REASON = ("a Gram matrix has no negative eigenvalue beyond rounding (~
 CHECKS: tuple[CheckSpec, ...] = (
     CheckSpec("basis", "AO", ("overlap",), ALL_METHODS,
               Fixed("harness.verdict.conventions:CONVENTION_MATCH"),
-              "the overlap check's tolerance: the mapping is verified on exactly the "
-              "quantity that check measures; a different basis misses by ≥ 1e-4",
+              "analytic overlap integrals of one basis agree to ~1e-14 between "
+              "programs; a different basis misses by ≥ 1e-4 (an overlap off only at "
+              "integral accuracy is the code's own metric, weighed by the overlap check)",
               "the code's AO convention maps onto pyscf's: max|Mᵀ S_ref M − S_code| ≤ tol "
               "for a per-shell signed, scaled permutation M",
               ("harness.verdict.evaluate:SAME_ORDER_INACCURATE_OVERLAP",)),
@@ -116,9 +121,9 @@ CHECKS: tuple[CheckSpec, ...] = (
               "a flag: nothing to tolerate",
               "the code reports converged = True"),
     CheckSpec("overlap", "ovlp", ("overlap",), ALL_METHODS, Fixed(f"{_TOL}:OVERLAP"),
-              "analytic overlap integrals agree to ~1e-14 between programs; 1e-8 admits "
-              "looser primitive screening",
-              "max|S − S_ref| against pyscf's overlap"),
+              _INTEGRAL_REASON,
+              f"|δE| = |Tr(W δS)|, δS = S − S_ref against pyscf's overlap, W the "
+              f"energy-weighted density: {_EFFECT}", (_BOUND,)),
     CheckSpec("orthonormality", "orth", (), ALL_METHODS, Fixed(f"{_TOL}:ORTHONORMALITY"),
               "eigensolvers reach ~1e-14·cond(S), cond(S) < 1e5 for the shipped bases; a "
               "real normalisation error is ≥ 1e-2",
@@ -173,13 +178,16 @@ CHECKS: tuple[CheckSpec, ...] = (
               "½ gᵀH⁻¹g (diagonal orbital Hessian) ≤ tol, in Eh: energy still to gain",
               (f"{_STATES}:ERROR_BOUND_GRADIENT_LIMIT", f"{_STATES}:CURVATURE_FLOOR")),
     CheckSpec("kinetic", "T", ("kinetic",), ALL_METHODS, Fixed(f"{_TOL}:KINETIC"),
-              _INTEGRAL_REASON, "max|T − T_ref| against pyscf's kinetic matrix"),
+              _INTEGRAL_REASON, f"|δE| = |Tr(P δT)| against pyscf's kinetic matrix: {_EFFECT}",
+              (_BOUND,)),
     CheckSpec("nuclear-attraction", "V", ("nuclear_attraction",), ALL_METHODS,
               Fixed(f"{_TOL}:NUCLEAR_ATTRACTION"), _INTEGRAL_REASON,
-              "max|V − V_ref| against pyscf's nuclear attraction"),
+              f"|δE| = |Tr(P δV)| against pyscf's nuclear attraction: {_EFFECT}",
+              (_BOUND,)),
     CheckSpec("core-hamiltonian", "H", ("core_hamiltonian",), ALL_METHODS,
               Fixed(f"{_TOL}:CORE_HAMILTONIAN"), _INTEGRAL_REASON,
-              "max|H − H_ref| against pyscf's core Hamiltonian T + V"),
+              f"|δE| = |Tr(P δH)| against pyscf's core Hamiltonian T + V: {_EFFECT}",
+              (_BOUND,)),
     CheckSpec("overlap-definite", "S>0", ("overlap",), ALL_METHODS,
               Fixed(f"{_TOL}:OVERLAP_DEFINITE"), _DEFINITE_REASON,
               "λ_min(S) ≥ −tol for the code's overlap"),
@@ -188,8 +196,8 @@ CHECKS: tuple[CheckSpec, ...] = (
               "λ_min(T) ≥ −tol for the code's kinetic matrix"),
     CheckSpec("two-electron", "ERI", ("two_electron",), ALL_METHODS,
               Fixed(f"{_TOL}:TWO_ELECTRON"), _INTEGRAL_REASON,
-              "max|(ij|kl) − (ij|kl)_ref| in Eh against pyscf's int2e",
-              ("harness.checks.integrals:ERI_MAX_NAO",)),
+              f"|δE| = ½|Tr(P δG[P])|, δG of δ(ij|kl) against pyscf's int2e: {_EFFECT}",
+              ("harness.checks.integrals:ERI_MAX_NAO", _BOUND)),
     CheckSpec("two-electron-symmetry", "ERIsym", ("two_electron",), ALL_METHODS,
               Fixed(f"{_TOL}:TWO_ELECTRON_SYMMETRY"),
               "an unpacked symmetric array meets it exactly, separately computed "

@@ -22,7 +22,48 @@ OPTIONAL_SCALAR_KEYS = ("converged", "iterations")
 #: (Eh) and ``error`` (the code's own convergence measure); extracted as an (n, 2)
 #: float array, NaN where a record lacks a field.
 HISTORY_KEY = "history"
-KNOWN_KEYS = REQUIRED_KEYS + OPTIONAL_ARRAY_KEYS + OPTIONAL_SCALAR_KEYS + (HISTORY_KEY,)
+#: ``basis``: the basis the code actually used, as NWChem-format text (or the path of a
+#: file holding it); the harness then builds the reference in exactly that basis.
+BASIS_KEY = "basis"
+KNOWN_KEYS = REQUIRED_KEYS + OPTIONAL_ARRAY_KEYS + OPTIONAL_SCALAR_KEYS + (HISTORY_KEY,
+                                                                          BASIS_KEY)
+
+#: Longest basis text accepted (characters); guards memory against garbage.
+MAX_BASIS_TEXT = 5_000_000
+
+
+def _read_basis(value: Any):
+    """NWChem-format basis text, read from ``value`` itself or from the file it names
+    (one line, an existing path); :class:`Malformed` when it is not a string, the file is
+    unreadable, or the text holds no shell line. Whether it parses for the case's
+    elements is judged with the problem (``harness.verdict.judge``)."""
+    import os
+
+    if isinstance(value, os.PathLike):
+        value = os.fspath(value)
+    if not isinstance(value, str):
+        return Malformed(f"must be NWChem-format basis text or a path, got "
+                         f"{type(value).__name__}")
+    text = value
+    if "\n" not in value.strip() and value.strip():
+        from pathlib import Path
+
+        path = Path(value.strip()).expanduser()
+        if path.is_file():
+            try:
+                text = path.read_text(encoding="utf-8")
+            except (OSError, UnicodeDecodeError) as exc:
+                return Malformed(f"names {str(path)!r}, which is unreadable "
+                                 f"({type(exc).__name__})")
+    if len(text) > MAX_BASIS_TEXT:
+        return Malformed(f"has {len(text)} characters, more than the limit {MAX_BASIS_TEXT}")
+    shells = [line for line in text.splitlines()
+              if len(line.split()) == 2 and line.split()[1].upper()[:1] in "SPDFGHISPL"
+              and line.split()[0].isalpha()]
+    if not shells:
+        return Malformed("holds no NWChem shell line ('<element> <S|P|D|…>'): not "
+                         "NWChem-format basis text, nor the path of a file with it")
+    return text
 
 #: Largest array accepted from a plug-in (elements); guards memory against garbage.
 MAX_ARRAY_ELEMENTS = 50_000_000
@@ -167,7 +208,8 @@ class Solution:
     ``fock`` (nao, nao) or (2, nao, nao); ``overlap``, ``core_hamiltonian``,
     ``kinetic``, ``nuclear_attraction`` (nao, nao); ``two_electron`` (nao,)*4 in
     chemists' notation (ij|kl); ``converged``; ``iterations``; ``history`` an (n, 2)
-    array of (energy, error) per iteration, NaN where a record lacks a field.
+    array of (energy, error) per iteration, NaN where a record lacks a field;
+    ``basis`` the NWChem-format text of the basis the code used (a str).
     Frozen and free of plug-in objects, so it crosses processes as plain data
     (:meth:`as_dict` / :meth:`from_dict`).
     """
@@ -186,6 +228,7 @@ class Solution:
     converged: Value = None
     iterations: Value = None
     history: Value = None
+    basis: Value = None
 
     def as_dict(self) -> dict[str, Any]:
         """The given fields as ``{key: value}`` (absent ones left out)."""
@@ -243,6 +286,8 @@ def extract(raw: Any) -> Solution:
             out[key] = _read_scalar(key, value)
         elif key == HISTORY_KEY:
             out[key] = _read_history(value)
+        elif key == BASIS_KEY:
+            out[key] = _read_basis(value)
         elif key == "two_electron" and callable(value):
             # integrals on request: called here, in the plug-in's process
             try:

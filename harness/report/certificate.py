@@ -48,7 +48,7 @@ DIGESTS_KEY = "digests"
 #: else it uses is recorded per case or in ``tolerances``). A certificate made before
 #: they were recorded is recomputed with evaluate_case's defaults.
 EVALUATION_KEY = "evaluation"
-EVALUATION_OPTIONS = ("ao_convention", "stability")
+EVALUATION_OPTIONS = ("ao_convention", "stability", "basis_source")
 #: ``verify-certificate`` lists at most this many problems, then says how many more.
 MAX_LISTED_PROBLEMS = 20
 #: A recomputed check value agrees with the certified one when
@@ -61,7 +61,7 @@ VALUE_AGREEMENT_REL = 1e-6
 #: reproduce to 1e-9 (``harness.catalogue.references.RECOMPUTE_TOLERANCE``).
 REFERENCE_AGREEMENT = 1e-9
 
-_SCALARS = {"energy": float, "converged": bool, "iterations": int}
+_SCALARS = {"energy": float, "converged": bool, "iterations": int, "basis": str}
 
 
 # --------------------------------------------------------------------------- hashing
@@ -91,6 +91,8 @@ def _as_array(value) -> np.ndarray:
         return np.asarray(value, dtype=np.bool_)
     if isinstance(value, (int, np.integer)):
         return np.asarray(value, dtype=np.int64)
+    if isinstance(value, str):  # the 'basis' text: a 0-d unicode array (no pickle)
+        return np.asarray(value, dtype=np.str_)
     return np.ascontiguousarray(np.asarray(value, dtype=np.float64))
 
 
@@ -234,7 +236,8 @@ def make_certificate(case_results: Sequence[CaseResult], *, problems: Mapping[st
                      versions: Mapping[str, str] | None = None, plugin: str | None = None,
                      sidecar: Mapping[str, str] | None = None,
                      created: str | None = None, ao_convention: str | None = None,
-                     stability: str = "internal", require_all: bool = False) -> dict[str, Any]:
+                     stability: str = "internal", require_all: bool = False,
+                     basis_source: str = "pyscf") -> dict[str, Any]:
     """The certificate of a run as a JSON-ready dict, hashed and digested.
 
     Each case records its ``status`` (``passed``, ``failed`` or ``unsupported``, with
@@ -265,7 +268,8 @@ def make_certificate(case_results: Sequence[CaseResult], *, problems: Mapping[st
         "units": {"energy": "hartree", "length": "bohr"},
         "tolerances": {"factor": float(tol.factor),
                        "overrides": {k: float(v) for k, v in sorted(tol.overrides.items())}},
-        EVALUATION_KEY: {"ao_convention": ao_convention, "stability": stability},
+        EVALUATION_KEY: {"ao_convention": ao_convention, "stability": stability,
+                         **_basis_source_entry(basis_source)},
         "passed": bool(case_results) and not any(r.failed for r in case_results),
         "require_all": bool(require_all),
         "sidecar": dict(sidecar) if sidecar is not None else None,
@@ -291,10 +295,17 @@ def _atomic_write(path: Path, write) -> None:
     atomic_write(path, write)
 
 
+def _basis_source_entry(source: str) -> dict:
+    """The evaluation option of ``--basis-source`` (left out for the default, pyscf); the
+    basis_set_exchange version is in the case entries' reference provenance."""
+    return {} if source == "pyscf" else {"basis_source": source}
+
+
 def write_certificate(path, case_results: Sequence[CaseResult], *, problems, solutions,
                       references=None, tolerances=None, versions=None,
                       plugin: str | None = None, ao_convention: str | None = None,
-                      stability: str = "internal", require_all: bool = False) -> Path:
+                      stability: str = "internal", require_all: bool = False,
+                      basis_source: str = "pyscf") -> Path:
     """Write the sidecar ``NAME.solutions.npz`` (every non-malformed array of every
     solution, keyed ``<case>/<key>``), then the certificate ``path`` with the sidecar's
     hash; both atomically. Arguments as for :func:`make_certificate`. Returns ``path``."""
@@ -311,7 +322,8 @@ def write_certificate(path, case_results: Sequence[CaseResult], *, problems, sol
     cert = make_certificate(case_results, problems=problems, solutions=solutions,
                             references=references, tolerances=tolerances, versions=versions,
                             plugin=plugin, ao_convention=ao_convention, stability=stability,
-                            require_all=require_all, sidecar={"file": side.name, "sha256": file_sha256(side)})
+                            require_all=require_all, basis_source=basis_source,
+                            sidecar={"file": side.name, "sha256": file_sha256(side)})
 
     def save_json(tmp):
         Path(tmp).write_text(json.dumps(cert, indent=1, ensure_ascii=False) + "\n",
@@ -663,6 +675,10 @@ def _evaluation_options(cert: Mapping[str, Any], issues: list[str]) -> dict[str,
     if convention is not None and convention not in NAMED:
         issues.append(f"{EVALUATION_KEY}: ao_convention {convention!r} is not one of "
                       f"{', '.join(NAMED)}")
+        return None
+    if data.get("basis_source", "pyscf") not in ("pyscf", "bse"):
+        issues.append(f"{EVALUATION_KEY}: basis_source {data['basis_source']!r} is not one "
+                      f"of pyscf, bse")
         return None
     return {k: data[k] for k in EVALUATION_OPTIONS if k in data}
 

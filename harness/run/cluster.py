@@ -191,6 +191,7 @@ class TaskOptions:
     path: tuple[str, ...] = ()
     cwd: str = ""
     require_all: bool = False
+    basis_source: str = "pyscf"
 
 
 def _allow_children() -> None:
@@ -242,7 +243,8 @@ def run_case_task(case, plugin_spec, options: TaskOptions) -> dict:
                             ao_convention=options.ao_convention, stability=options.stability,
                             timeout=options.timeout, jobs=1, plugin_checked=True,
                             judge_workers=0, reference_lookup=lambda c: lookup(c),
-                            require_all=options.require_all)
+                            require_all=options.require_all,
+                            basis_source=options.basis_source)
     if not outcome.cases:
         raise RuntimeError(f"case {case.name} was interrupted on the worker")
     return {"result": outcome.cases[0], "problem": outcome.problems.get(case.name),
@@ -431,7 +433,8 @@ class ClusterRun:
 
 def task_options(*, tolerances, convergence=None, ao_convention=None, stability="internal",
                  timeout: float, reference_dir=None, cache_dir=None,
-                 write_references: bool = False, require_all: bool = False) -> TaskOptions:
+                 write_references: bool = False, require_all: bool = False,
+                 basis_source: str = "pyscf") -> TaskOptions:
     """:class:`TaskOptions` with this process's ``sys.path`` and current directory."""
     return TaskOptions(tolerances=tolerances, convergence=convergence,
                        ao_convention=ao_convention, stability=stability, timeout=timeout,
@@ -439,7 +442,7 @@ def task_options(*, tolerances, convergence=None, ao_convention=None, stability=
                            Path(reference_dir).resolve()),
                        cache_dir=None if cache_dir is None else str(Path(cache_dir).resolve()),
                        write_references=write_references, path=tuple(sys.path),
-                       cwd=os.getcwd(), require_all=require_all)
+                       cwd=os.getcwd(), require_all=require_all, basis_source=basis_source)
 
 
 def run_cases_on_cluster(cases: Iterable, plugin_spec, *, scheduler: str, tolerances,
@@ -449,7 +452,8 @@ def run_cases_on_cluster(cases: Iterable, plugin_spec, *, scheduler: str, tolera
                          write_references: bool = False, results_path=None,
                          on_start: Callable[[str], None] | None = None,
                          on_result: Callable[[CaseResult], None] | None = None,
-                         plugin_checked: bool = False, require_all: bool = False) -> RunOutcome:
+                         plugin_checked: bool = False, require_all: bool = False,
+                         basis_source: str = "pyscf") -> RunOutcome:
     """``harness.run.runner.run_cases`` on a Dask cluster: same arguments (``jobs`` is the
     cluster's workers; ``reference_cache`` the shared cache directory) and the same
     outcome, cases in input order. ``plugin_checked=False`` first loads the plug-in on
@@ -463,7 +467,8 @@ def run_cases_on_cluster(cases: Iterable, plugin_spec, *, scheduler: str, tolera
     options = task_options(tolerances=tolerances, convergence=convergence,
                            ao_convention=ao_convention, stability=stability, timeout=timeout,
                            reference_dir=reference_dir, cache_dir=reference_cache,
-                           write_references=write_references, require_all=require_all)
+                           write_references=write_references, require_all=require_all,
+                           basis_source=basis_source)
     results_file = Path(results_path) if results_path is not None else None
     finished: dict[int, CaseResult] = {}
     problems: dict[str, Any] = {}

@@ -249,6 +249,11 @@ def _first_bad_leaf(value, where: str = ""):
 def _json_value(name: str, key: str, value):
     if isinstance(value, _HugeInteger):
         raise SolutionFileError(_out_of_range(value), file=name, key=key)
+    if key == "basis":  # NWChem-format text (or a path), read by extract
+        if not isinstance(value, str):
+            raise SolutionFileError(f"must be NWChem-format basis text, got "
+                                    f"{_json_kind(value)}", file=name, key=key)
+        return value
     if key in ("converged",):
         if not isinstance(value, bool):
             raise SolutionFileError(f"must be true or false, got {_json_kind(value)}",

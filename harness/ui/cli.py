@@ -145,6 +145,11 @@ def _add_checking(group) -> None:
                        help="the code's AO convention (order, signs, normalisation), "
                        f"one of {', '.join(NAMED)}; applied as given (default: detected "
                        "from the reported overlap matrix, else pyscf's order)")
+    group.add_argument("--basis-source", choices=("pyscf", "bse"), default=None,
+                       help="where named basis sets come from: pyscf's built-in copies "
+                       "(default) or the basis_set_exchange library (pip install "
+                       "'scf-harness[bse]'); with bse the reference is built and computed "
+                       "from its data, not stored. Key: basis_source")
     group.add_argument("--stability", choices=STABILITY_MODES, default=DEFAULT_STABILITY,
                        help="stability analysis of the converged state: internal (same "
                        "method), external (RHF also against UHF) or off (default: "
@@ -537,6 +542,14 @@ def _scheduler(args) -> str | None:
     return scheduler
 
 
+def _basis_source(args) -> str:
+    """``--basis-source`` (default pyscf), checked: a one-line error saying how to install
+    basis_set_exchange when bse is asked for without it."""
+    from harness.backend.basis_sources import DEFAULT_BASIS_SOURCE, check_basis_source
+
+    return check_basis_source(getattr(args, "basis_source", None) or DEFAULT_BASIS_SOURCE)
+
+
 def _tolerances(args):
     from harness.checks.tolerances import Tolerances, parse_override
 
@@ -562,7 +575,7 @@ def _plugin(args):
 
 def _write_certificate(path: Path, outcome, *, tolerances, plugin: str, console,
                        quiet: bool, ao_convention: str | None, stability: str,
-                       require_all: bool = False) -> None:
+                       require_all: bool = False, basis_source: str = "pyscf") -> None:
     """Write the certificate of the cases whose problem could be built (the others
     have no inputs to certify), recording the evaluation options (--ao-convention,
     --stability) that a recompute must use again."""
@@ -572,7 +585,7 @@ def _write_certificate(path: Path, outcome, *, tolerances, plugin: str, console,
     write_certificate(path, results, problems=outcome.problems, solutions=outcome.solutions,
                       references=outcome.references, tolerances=tolerances, plugin=plugin,
                       ao_convention=ao_convention, stability=stability,
-                      require_all=require_all)
+                      require_all=require_all, basis_source=basis_source)
     if not quiet:
         console.print(f"certificate: {path} (solutions in {sidecar_path(path).name})",
                       markup=False, soft_wrap=True)
@@ -584,6 +597,7 @@ def _certify(args, console) -> int:
 
     plugin, label = _plugin(args)
     tolerances = _tolerances(args)
+    _basis_source(args)  # a missing basis_set_exchange is a usage error before any run
     cases, suite_names = select_cases(args.suites, args.case_names, args.cases_file,
                                       bases=args.bases, methods=args.methods)
     if not cases:
@@ -623,7 +637,8 @@ def _certify(args, console) -> int:
                 stability=args.stability, timeout=args.timeout,
                 reference_dir=args.references, reference_cache=args.reference_cache,
                 write_references=args.write_references, results_path=partial,
-                on_result=on_result, plugin_checked=False, require_all=args.require_all)
+                on_result=on_result, plugin_checked=False, require_all=args.require_all,
+                basis_source=_basis_source(args))
         else:
             outcome = run_cases(cases, plugin, tolerances=tolerances,
                                 convergence=args.convergence,
@@ -632,7 +647,8 @@ def _certify(args, console) -> int:
                                 reference_dir=args.references,
                                 write_references=args.write_references, results_path=partial,
                                 on_result=on_result, plugin_checked=True,
-                                require_all=args.require_all)
+                                require_all=args.require_all,
+                                basis_source=_basis_source(args))
         if not args.quiet and outcome.cases:
             console.print()
         report.render(outcome, console, quiet=args.quiet)
@@ -652,7 +668,8 @@ def _certify(args, console) -> int:
             _write_certificate(args.certificate, outcome, tolerances=tolerances, plugin=label,
                                console=console, quiet=args.quiet,
                                ao_convention=args.ao_convention, stability=args.stability,
-                               require_all=args.require_all)
+                               require_all=args.require_all,
+                               basis_source=_basis_source(args))
     return 0 if outcome.passed else 1
 
 
@@ -670,6 +687,7 @@ def _check_result(args, console) -> int:
 
     started = time.perf_counter()
     tolerances = _tolerances(args)
+    _basis_source(args)  # a missing basis_set_exchange is a usage error before any run
     _distinct_outputs(args)
     if not args.file.is_file():
         raise UsageError(f"{args.file}: {_not_a_file(args.file)}")
@@ -704,7 +722,8 @@ def _check_result(args, console) -> int:
     else:
         result = judge(problem, extracted, reference, JudgeSettings(
             tolerances=tolerances, ao_convention=args.ao_convention, stability=args.stability,
-            reference_source=source, reference_error=reference_error))
+            reference_source=source, reference_error=reference_error,
+            basis_source=_basis_source(args)))
     outcome = RunOutcome(cases=(result,), interrupted=False,
                          seconds=time.perf_counter() - started,
                          problems={case.name: problem}, solutions={case.name: extracted},
@@ -724,7 +743,8 @@ def _check_result(args, console) -> int:
     if args.certificate is not None:
         _write_certificate(args.certificate, outcome, tolerances=tolerances, plugin=label,
                            console=console, quiet=args.quiet,
-                           ao_convention=args.ao_convention, stability=args.stability)
+                           ao_convention=args.ao_convention, stability=args.stability,
+                           basis_source=_basis_source(args))
     return 0 if outcome.passed else 1
 
 

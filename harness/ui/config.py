@@ -18,6 +18,7 @@ over its key, and ``--scf-tol`` wins per check over ``tolerances``)::
     require_all = false                # true: a case the code reports unsupported fails
     scheduler = "local:2"              # a Dask cluster: tcp://HOST:PORT or local:N (as
                                        # certify --scheduler; needs the cluster extra)
+    basis_source = "pyscf"             # pyscf | bse (as certify --basis-source)
 
 This module imports only the standard library, ``harness.contract.errors``,
 ``harness.contract.defaults`` and, when needed, ``harness.checks.tolerances`` (all light),
@@ -56,7 +57,7 @@ DEFAULT_STABILITY = _defaults.DEFAULT_STABILITY
 
 #: The keys of the table, in the order the documentation lists them.
 KEYS = ("plugin", "suite", "cases_file", "tolerances", "timeout", "convergence", "stability",
-        "require_all", "scheduler")
+        "require_all", "scheduler", "basis_source")
 
 
 class ConfigError(HarnessError):
@@ -90,6 +91,7 @@ class Settings:
     stability: str = DEFAULT_STABILITY
     require_all: bool = False
     scheduler: str | None = None
+    basis_source: str = "pyscf"
     source: str = ""
     from_flags: frozenset = frozenset()
 
@@ -116,6 +118,8 @@ class Settings:
             parts += ["--stability", self.stability]
         if self.require_all:
             parts.append("--require-all")
+        if self.basis_source != "pyscf":
+            parts += ["--basis-source", self.basis_source]
         return " ".join(parts)
 
 
@@ -259,9 +263,21 @@ def _scheduler(value, where, field) -> str:
         raise ConfigError(exc.detail, case=where, field=field) from None
 
 
+def _basis_source(value, where, field) -> str:
+    from harness.backend.basis_sources import BASIS_SOURCES, check_basis_source
+
+    if not isinstance(value, str) or value.strip().lower() not in BASIS_SOURCES:
+        raise ConfigError(f"expected one of {', '.join(BASIS_SOURCES)}, got {value!r}",
+                          case=where, field=field)
+    try:
+        return check_basis_source(value.strip().lower())
+    except HarnessError as exc:
+        raise ConfigError(exc.detail, case=where, field=field) from None
+
+
 _PARSERS = {"plugin": _plugin, "suite": _suites, "tolerances": _tolerances,
             "timeout": _timeout, "convergence": _convergence, "stability": _stability,
-            "require_all": _boolean, "scheduler": _scheduler}
+            "require_all": _boolean, "scheduler": _scheduler, "basis_source": _basis_source}
 
 
 def parse_table(table: Mapping[str, Any], source: str = "pyproject.toml") -> dict[str, Any]:
@@ -288,7 +304,8 @@ def parse_flags(*, plugin: str | None = None, suites: Sequence[str] | None = Non
                 tolerances: Sequence[str] | None = None, timeout: str | None = None,
                 convergence: str | None = None, stability: str | None = None,
                 cases_file: str | None = None, require_all: bool | None = None,
-                base=None, scheduler: str | None = None) -> dict[str, Any]:
+                base=None, scheduler: str | None = None,
+                basis_source: str | None = None) -> dict[str, Any]:
     """Validate the ``--scf-…`` flag values (strings as typed; None: not given).
 
     ``tolerances`` are ``CHECK=VALUE`` strings as for ``--tol``; a relative
@@ -325,6 +342,8 @@ def parse_flags(*, plugin: str | None = None, suites: Sequence[str] | None = Non
         out["require_all"] = True
     if scheduler is not None:
         out["scheduler"] = _scheduler(scheduler, None, "--scf-scheduler")
+    if basis_source is not None:
+        out["basis_source"] = _basis_source(basis_source, None, "--scf-basis-source")
     return out
 
 
@@ -343,7 +362,8 @@ def resolve(flags: Mapping[str, Any], keys: Mapping[str, Any], source: str = "")
                     convergence=pick("convergence", None),
                     stability=pick("stability", DEFAULT_STABILITY),
                     require_all=bool(pick("require_all", False)),
-                    scheduler=pick("scheduler", None), source=source,
+                    scheduler=pick("scheduler", None),
+                    basis_source=pick("basis_source", "pyscf"), source=source,
                     from_flags=frozenset(flags))
 
 

@@ -93,6 +93,11 @@ def pytest_addoption(parser: pytest.Parser) -> None:
                     help="a case the code reports unsupported (harness.Unsupported) fails "
                     "instead of being skipped; as certify --require-all. Key: require_all "
                     "(true/false). Default: skipped with the reason")
+    group.addoption("--scf-basis-source", dest="scf_basis_source", default=None,
+                    choices=("pyscf", "bse"),
+                    help="where named basis sets come from: pyscf's copies (default) or "
+                    "basis_set_exchange (pip install 'scf-harness[bse]'), as certify "
+                    "--basis-source. Key: basis_source")
     group.addoption("--scf-stability", dest="scf_stability", default=None,
                     metavar="|".join(_config.STABILITY_CHOICES),
                     help="orbital stability analysis of the code's solution, as certify "
@@ -117,6 +122,7 @@ def pytest_configure(config: pytest.Config) -> None:
             tolerances=getattr(opt, "scf_tol", None), timeout=getattr(opt, "scf_timeout", None),
             convergence=getattr(opt, "scf_convergence", None),
             stability=getattr(opt, "scf_stability", None),
+            basis_source=getattr(opt, "scf_basis_source", None),
             cases_file=getattr(opt, "scf_cases_file", None),
             require_all=getattr(opt, "scf_require_all", None),
             base=config.invocation_params.dir,
@@ -227,7 +233,8 @@ class CaseItem(pytest.Item):
                                 tolerances=Tolerances(overrides=dict(settings.tolerances)),
                                 timeout=settings.timeout, convergence=settings.convergence,
                                 stability=settings.stability, plugin_checked=True,
-                                require_all=settings.require_all)
+                                require_all=settings.require_all,
+                                basis_source=settings.basis_source)
             if outcome.interrupted or not outcome.cases:
                 raise KeyboardInterrupt
             result = outcome.cases[0]
@@ -265,7 +272,8 @@ def _cluster_result(item: "CaseItem"):
         items = [i for i in item.session.items if isinstance(i, CaseItem)]
         options = task_options(tolerances=Tolerances(overrides=dict(settings.tolerances)),
                                convergence=settings.convergence, stability=settings.stability,
-                               timeout=settings.timeout, require_all=settings.require_all)
+                               timeout=settings.timeout, require_all=settings.require_all,
+                               basis_source=settings.basis_source)
         run = ClusterRun(settings.scheduler, settings.plugin, options)
         state = {"run": run, "index": {}}
         config.stash[_CLUSTER] = state
@@ -409,7 +417,8 @@ def scf_check(request, scf_case):
         result = judge(problem, extracted, reference, JudgeSettings(
             tolerances=Tolerances(overrides=dict(settings.tolerances)),
             ao_convention=ao_convention, stability=settings.stability,
-            reference_source=source, reference_error=reference_error))
+            reference_source=source, reference_error=reference_error,
+            basis_source=settings.basis_source))
         lines = [result.error] if result.error is not None else []
         for r in result.failures:
             lines.append(r.message)

@@ -49,10 +49,11 @@ from harness.contract.errors import HarnessError
 from harness.contract.solution import Solution
 
 #: max|Mᵀ S_ref M − S_code| for a mapping to count as found (and max|S_code − S_ref| for
-#: the identity). Equal to the overlap check's tolerance (``tolerances.OVERLAP``): the
-#: mapping is verified on exactly the quantity that check measures, and analytic overlap
-#: integrals of the same basis agree to ~1e-14 between programs, so 1e-8 already admits
-#: looser primitive screening; a different basis misses by ≥ 1e-4.
+#: the identity); ``--tol basis=`` overrides it. Analytic overlap integrals of the same
+#: basis agree to ~1e-14 between programs, so 1e-8 already admits looser primitive
+#: screening; a different basis misses by ≥ 1e-4. (An overlap in pyscf's order that
+#: misses only at integral accuracy, e.g. rounded basis data, is the code's own metric:
+#: the overlap check weighs its energy effect.)
 CONVENTION_MATCH = 1e-8
 
 #: Candidate pairs (code function, reference function) are pre-selected by comparing the
@@ -76,6 +77,11 @@ MAPPINGS_COMPARED = 16
 #: Overlap-spectrum distances below this mean the code's functions span the same space as
 #: the reference's, mixed otherwise than by order, sign or scale (said in the reason).
 SAME_SPECTRUM = 1e-6
+
+#: Scale factors whose squares are within this of 1 are described by how far the code's
+#: norms are off ("norms off by up to 3.0e-08") rather than by the factors themselves,
+#: which print as 1 at three digits.
+NEAR_UNIT_SCALE = 1e-3
 
 _LETTERS = "spdfghik"
 _MINUS = "\u2212"
@@ -367,9 +373,12 @@ def _describe(src: np.ndarray, fac: np.ndarray, basis: _Basis, s_code_diag=None,
                 unit.append(_LETTERS[l])
             else:
                 f = scale[of_l & scaled]
+                off = float(np.max(np.abs(f ** 2 - 1.0)))
+                size = (f"norms off by up to {off:.1e}" if off < NEAR_UNIT_SCALE
+                        else f"factors {f.min():.3g} to {f.max():.3g}")
                 other.append(f"{int(np.count_nonzero(of_l & scaled))} of "
                              f"{int(np.count_nonzero(of_l))} {_kind(l, cart)} functions "
-                             f"rescaled (factors {f.min():.3g} to {f.max():.3g})")
+                             f"rescaled ({size})")
         if unit:
             head = "cartesian " if cart else ""
             clauses.append(f"{head}{' and '.join(unit)} functions normalised to unit "
@@ -609,6 +618,32 @@ def _count_hint(n_code: int, mol) -> str:
     return f" (cartesian vs spherical {'/'.join(_LETTERS[l] for l in high)}?)"
 
 
+def rescaling(s_code, s_ref, basis: _Basis | None = None,
+              tolerance: float = CONVENTION_MATCH, mol=None) -> Convention | None:
+    """The code's functions in pyscf's order and signs, each rescaled: χ_code_i = f_i χ_ref_i
+    with f_i = sqrt(S_code_ii / S_ref_ii), when that reproduces the overlap,
+    max_ik |f_i f_k S_ref_ik − S_code_ik| ≤ tolerance; else None.
+
+    A code whose contracted functions are normalised only to some accuracy (norms off by
+    1e-10 … 1e-1) differs from pyscf by exactly such factors. Factors within 1e-14 of 1
+    are taken as 1. ``basis`` (or ``mol``, the reference Mole) describes the functions.
+    """
+    s_code = np.asarray(s_code, dtype=float)
+    s_ref = np.asarray(s_ref, dtype=float)
+    if s_code.shape != s_ref.shape or s_code.ndim != 2:
+        return None
+    dc, dr = np.diag(s_code), np.diag(s_ref)
+    if np.any(dc <= 0) or np.any(dr <= 0):
+        return None
+    fac = np.sqrt(dc / dr)
+    fac[np.abs(fac - 1.0) < 1e-14] = 1.0
+    src = np.arange(s_code.shape[0])
+    if _mapping_error(src, fac, s_code, s_ref) > tolerance:
+        return None
+    basis = basis if basis is not None else _basis(mol)
+    return _convention(src, fac, basis, dc, tolerance)
+
+
 def detect_convention(s_code, mol, *, tolerance: float = CONVENTION_MATCH,
                       s_ref: np.ndarray | None = None):
     """The code's AO convention, read from its overlap matrix ``s_code`` (code order).
@@ -649,6 +684,9 @@ def detect_convention(s_code, mol, *, tolerance: float = CONVENTION_MATCH,
     identity_error = float(np.max(np.abs(s_code - s_ref)))
     if identity_error <= tolerance:
         return _convention(np.arange(n_ref), np.ones(n_ref), basis)
+    rescaled = rescaling(s_code, s_ref, basis, tolerance)
+    if rescaled is not None:
+        return rescaled
     diag = np.diag(s_code)
     if np.any(diag <= 0):
         i = int(np.argmin(diag))

@@ -20,12 +20,13 @@ from harness.checks.spin import density_by_spin, density_from_orbitals, fock_by_
 from harness.checks.spin import occupation_scale, orbitals_by_spin
 from harness.checks.wellformed import well_formed
 from harness.checks.history import history_from_results
-from harness.checks.integrals import integral_checks
+from harness.checks.integrals import (ERI_MAX_NAO, density_for, energy_effects,
+                                      explained_energy, integral_checks, overlap_check)
 from harness.verdict import states as _stability
 from harness.verdict.states import state_hint
 from harness.verdict.diagnosis import diagnose
 from harness.verdict.conventions import CONVENTION_MATCH, BasisMismatch, detect_convention
-from harness.verdict.conventions import named_convention
+from harness.verdict.conventions import named_convention, rescaling
 from harness.contract.errors import HarnessError
 from harness.backend.integrals import AOIntegrals, integrals_for
 from harness.contract.problem import Problem
@@ -72,17 +73,27 @@ def _basis(problem: Problem, sol: Solution, ints: AOIntegrals, ao_convention: st
         return (CheckResult("basis", Status.PASSED, 0.0, None,
                             f"basis: the code's overlap is pyscf's, same AO order ({case})"),
                 sol, True)
-    if s_code.shape == ints.s.shape and \
-            np.max(np.abs(s_code - ints.s)) <= SAME_ORDER_INACCURATE_OVERLAP:
-        return (not_applicable("basis", "the overlap is pyscf's in pyscf's AO order up to "
-                               "integral accuracy; see the overlap check", case), sol, True)
+    if s_code.shape == ints.s.shape:
+        conv = rescaling(s_code, ints.s, tolerance=tolerance, mol=ints.mol)
+        if conv is not None:
+            return (CheckResult("basis", Status.PASSED, None, None,
+                                f"basis: AO convention detected ({case}): {conv.describe()}"),
+                    conv.solution_to_reference(sol), True)
+        off = float(np.max(np.abs(s_code - ints.s)))
+        if off <= SAME_ORDER_INACCURATE_OVERLAP:
+            return (CheckResult("basis", Status.PASSED, off, None,
+                                f"basis: pyscf's AO order; the code's overlap differs from "
+                                f"pyscf's by up to {off:.1e}, judged in the code's own "
+                                f"metric (the overlap check weighs the difference) ({case})"),
+                    sol, True)
     try:
         conv = detect_convention(s_code, ints.mol, s_ref=ints.s, tolerance=tolerance)
     except HarnessError as exc:
         return not_applicable("basis", str(exc), case), sol, True
     if isinstance(conv, BasisMismatch):
-        go_on = s_code.shape == ints.s.shape
-        return failed("basis", f"basis: {conv.reason} ({case})"), sol, go_on
+        return failed("basis", f"basis: {conv.reason} ({case}); if your code's basis "
+                      f"data come from elsewhere, return them as 'basis' (NWChem text) or "
+                      f"use --basis-source bse"), sol, False
     if conv.is_identity:
         return (CheckResult("basis", Status.PASSED, 0.0, None,
                             f"basis: the code's overlap is pyscf's, same AO order ({case})"),
@@ -106,23 +117,28 @@ def evaluate(problem: Problem, extracted: Solution, reference=None,
              tolerances: Tolerances | None = None,
              integrals: AOIntegrals | None = None, *,
              ao_convention: str | None = None,
-             stability: str = DEFAULT_STABILITY) -> tuple[CheckResult, ...]:
+             stability: str = DEFAULT_STABILITY,
+             basis_note: str | None = None) -> tuple[CheckResult, ...]:
     """All checks of one case (see :func:`evaluate_case`); the checks only."""
     return evaluate_case(problem, extracted, reference, tolerances, integrals,
-                         ao_convention=ao_convention, stability=stability).checks
+                         ao_convention=ao_convention, stability=stability,
+                         basis_note=basis_note).checks
 
 
 def evaluate_case(problem: Problem, extracted: Solution, reference=None,
                   tolerances: Tolerances | None = None,
                   integrals: AOIntegrals | None = None, *,
                   ao_convention: str | None = None,
-                  stability: str = DEFAULT_STABILITY) -> Verdict:
+                  stability: str = DEFAULT_STABILITY,
+                  basis_note: str | None = None) -> Verdict:
     """All checks of one case, with hints on failures.
 
     ``reference`` (a ``harness.catalogue.references.Reference``) may be None, then
     reference-energy is not applicable. ``ao_convention`` names the code's AO convention
     (``harness.verdict.conventions.NAMED``) when it reports no overlap. ``stability``: "internal"
-    (default), "external" (RHF→UHF too) or "off". Energies in Eh.
+    (default), "external" (RHF→UHF too) or "off". ``basis_note``: set when the code's
+    own basis is judged (``integrals`` and ``reference`` are then in it); the basis check
+    says so. Energies in Eh.
     """
     if stability not in STABILITY_MODES:
         raise HarnessError(f"must be one of {', '.join(STABILITY_MODES)}, got {stability!r}",
@@ -132,6 +148,8 @@ def evaluate_case(problem: Problem, extracted: Solution, reference=None,
     with np.errstate(all="ignore"):
         checks, analysis = _evaluate(problem, extracted, reference, tolerances, integrals,
                                      ao_convention, stability)
+    if basis_note:
+        checks = _noted_basis(checks, basis_note, problem.name)
     return Verdict(checks=checks, analysis=analysis)
 
 
@@ -147,11 +165,9 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
     basis, sol, go_on = _basis(problem, extracted, ints, ao_convention,
                               tol.for_check("basis", problem.convergence))
     if not go_on:
-        rest = [skipped(n, "the code's basis differs from the case's", case)
-                for n in CHECK_NAMES if n != "basis"]
-        return (basis, *rest), {}
+        return _after_failed_basis(basis, sol, ints, tol, case), {}
 
-    problems = well_formed(sol, problem.nao, method, problem.n_alpha, problem.n_beta,
+    problems = well_formed(sol, len(ints.labels), method, problem.n_alpha, problem.n_beta,
                           symmetry=tol.for_check("well-formed", problem.convergence))
     if problems:
         more = f" (and {len(problems) - 1} more: {'; '.join(problems[1:])})" if len(problems) > 1 else ""
@@ -166,7 +182,9 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
         "well-formed": CheckResult("well-formed", Status.PASSED, 0.0, None,
                                    f"well-formed: keys, shapes and occupations valid ({case})")}
     labels = ints.labels
-    low = _orth.lowdin(ints.s)
+    c, occ = orbitals_by_spin(method, sol.coefficients, sol.occupations)
+    metric = _metric(sol, ints, c)
+    low = _orth.lowdin(metric)
 
     if sol.converged is not None:
         ok = bool(sol.converged)
@@ -177,21 +195,14 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
     else:
         results["converged-flag"] = not_applicable("converged-flag", "no 'converged' key", case)
 
-    if sol.overlap is not None:
-        results["overlap"] = verdict("overlap", _orth.matrix_difference(
-            sol.overlap, ints.s, "max|S − S_ref|", labels))
-    else:
-        results["overlap"] = not_applicable("overlap", "no 'overlap' key", case)
-
-    c, occ = orbitals_by_spin(method, sol.coefficients, sol.occupations)
-    results["orthonormality"] = verdict("orthonormality", _orth.orthonormality(c, ints.s))
+    results["orthonormality"] = verdict("orthonormality", _orth.orthonormality(c, metric))
 
     built = density_from_orbitals(c, occ)
     d = density_by_spin(method, sol.density) if sol.density is not None else built
     results["idempotency"] = verdict("idempotency", _density.idempotency(
-        d, ints.s, occupation_scale(method), labels))
+        d, metric, occupation_scale(method), labels))
     n = (problem.n_electrons,) if method == "rhf" else (problem.n_alpha, problem.n_beta)
-    results["electron-count"] = verdict("electron-count", _density.electron_count(d, ints.s, n))
+    results["electron-count"] = verdict("electron-count", _density.electron_count(d, metric, n))
     if sol.density is not None:
         results["density-consistency"] = verdict("density-consistency",
                                                  _density.density_consistency(d, built, labels))
@@ -201,25 +212,25 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
 
     vj, vk = ints.jk(d)
     rebuilt = _energy.fock_from_terms(ints.h, vj, vk, len(d))
-    terms = _energy.energy_terms(d, ints.h, vj, vk, ints.e_nuc)
+    own_fock, terms = _energy_integrals(sol, ints, d, vj, vk)
 
     def stationarity(f):
         if method == "rohf":
             return _stat.rohf_conditions(f, d, low, labels)
-        return _stat.commutator(f, d, ints.s, low, labels)
+        return _stat.commutator(f, d, metric, low, labels)
 
     if sol.fock is not None:
         results["stationarity"] = verdict("stationarity",
                                           stationarity(fock_by_spin(method, sol.fock)))
     else:
         results["stationarity"] = not_applicable("stationarity", "no 'fock' key", case)
-    results["self-consistency"] = verdict("self-consistency", stationarity(rebuilt))
+    results["self-consistency"] = verdict("self-consistency", stationarity(own_fock))
 
     if method == "rohf":
         results["roothaan-hall"] = not_applicable(
             "roothaan-hall", "ROHF orbital energies depend on a canonicalisation convention", case)
     elif sol.orbital_energies is not None:
-        f = fock_by_spin(method, sol.fock) if sol.fock is not None else rebuilt
+        f = fock_by_spin(method, sol.fock) if sol.fock is not None else own_fock
         e = sol.orbital_energies[None] if method == "rhf" else sol.orbital_energies
         results["roothaan-hall"] = verdict("roothaan-hall", _stat.roothaan_hall(f, c, e, low))
     else:
@@ -247,7 +258,9 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
     else:
         results["aufbau"] = not_applicable("aufbau", "no 'orbital_energies' key", case)
 
-    results.update(integral_checks(sol, ints, tol, case))
+    at = density_for(sol, method, fock=own_fock)
+    results["overlap"] = overlap_check(sol, ints, at, tol, case)
+    results.update(integral_checks(sol, ints, tol, case, at=at))
     results.update(_state_checks(problem, sol, reference, ints, tol, stability, d, rebuilt))
     results["history"] = history_from_results(
         sol, results, convergence=problem.convergence, case=case,
@@ -270,10 +283,119 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
                               tolerance=tol.for_check("reference-energy", problem.convergence))
             if hint:
                 hints["reference-energy"] = hint
+        split = _explained_hint(sol, ints, at, reference, results)
+        if split:
+            old = hints.get("reference-energy")
+            hints["reference-energy"] = split + (f"; {old}" if old else "")
         for name, hint in hints.items():
             if name in results and results[name].status is Status.FAILED and hint:
                 results[name] = dataclasses.replace(results[name], hint=hint)
     return tuple(results[name] for name in CHECK_NAMES if name in results), analysis
+
+
+def _noted_basis(checks, note, case):
+    """The basis check's line saying the code's own basis was judged (with the AO
+    convention found in it, if any)."""
+    out = []
+    for c in checks:
+        if c.name == "basis" and c.status is not Status.FAILED:
+            extra = c.message.split(f"({case}): ", 1)[1] if f"({case}): " in c.message else ""
+            c = dataclasses.replace(c, status=Status.PASSED, message=(
+                f"basis: judged in the code's own basis ({note}) ({case})"
+                + (f"; {extra}" if extra else "")))
+        out.append(c)
+    return tuple(out)
+
+
+#: Checks that still run after a failed basis check: they judge the code's overlap by
+#: itself (against pyscf's, and its definiteness), which is what the basis check read.
+_OVERLAP_ONLY = ("overlap", "overlap-definite")
+
+
+def _after_failed_basis(basis, sol, ints, tol, case):
+    """The checks after a failed basis check: every matrix check skipped with the basis
+    check's reason; the overlap's own checks run when it has pyscf's size."""
+    from harness.checks.integrals import definiteness
+
+    reason = "the code's basis differs from the case's"
+    out = {"basis": basis}
+    s = sol.overlap
+    if isinstance(s, np.ndarray) and s.shape == ints.s.shape:
+        out["overlap"] = judge("overlap", _orth.matrix_difference(
+            s, ints.s, "max|S − S_ref|", ints.labels), tol.for_check("basis", 1.0), case)
+        out["overlap-definite"] = judge("overlap-definite", definiteness(s, "S", ints.labels),
+                                        tol.for_check("overlap-definite", 1.0), case)
+    return tuple(out.get(n) or skipped(n, reason, case) for n in CHECK_NAMES)
+
+
+def _metric(sol, ints, c):
+    """The overlap the orbital checks use: the code's own S (in pyscf's AO order, after the
+    basis check mapped it) when it reports a usable one and its orbitals ``c`` (leading
+    spin axis) are at least as orthonormal in it as in pyscf's — that is the metric its
+    SCF solved — else pyscf's. Whether the two agree is the overlap check's business
+    alone, so a defect of S is reported once, there (a code reporting an S it did not use
+    is judged in the S it used)."""
+    s = sol.overlap
+    if not (isinstance(s, np.ndarray) and s.shape == ints.s.shape and np.all(np.isfinite(s))):
+        return ints.s
+    s = 0.5 * (s + s.T)
+    try:
+        own = _orth.orthonormality(c, s).value
+        ref = _orth.orthonormality(c, ints.s).value
+    except (ValueError, TypeError):
+        return ints.s
+    return s if not ref < own else ints.s
+
+
+def _own_integrals(sol, ints, d, vj, vk):
+    """(H, J, K) for energy-consistency and self-consistency: the code's own H (its
+    ``core_hamiltonian``, else ``kinetic`` + ``nuclear_attraction``) and J/K of its own
+    ``two_electron`` (up to ERI_MAX_NAO AOs) where it reports them, else pyscf's."""
+    h = ints.h
+    if isinstance(sol.core_hamiltonian, np.ndarray) and sol.core_hamiltonian.shape == h.shape:
+        h = sol.core_hamiltonian
+    elif isinstance(sol.kinetic, np.ndarray) and isinstance(sol.nuclear_attraction, np.ndarray) \
+            and sol.kinetic.shape == h.shape == sol.nuclear_attraction.shape:
+        h = sol.kinetic + sol.nuclear_attraction
+    g = sol.two_electron
+    nao = h.shape[0]
+    if isinstance(g, np.ndarray) and g.shape == (nao,) * 4 and nao <= ERI_MAX_NAO:
+        vj = np.einsum("ijkl,kl->ij", g, d.sum(axis=0), optimize=True)
+        vk = np.einsum("ikjl,skl->sij", g, d, optimize=True)
+    return h, vj, vk
+
+
+def _energy_integrals(sol, ints, d, vj, vk):
+    """(Fock matrix rebuilt from the code's P, E[P] terms) for self-consistency and
+    energy-consistency: with the code's own integrals (:func:`_own_integrals`) when it
+    reports some and its energy belongs to them at least as well as to pyscf's — the
+    integrals its SCF used — else with pyscf's. A defect of the reported integrals alone
+    is then the integral checks' only; one the SCF used is not counted again here."""
+    n = len(d)
+    ref_terms = _energy.energy_terms(d, ints.h, vj, vk, ints.e_nuc)
+    ref_fock = _energy.fock_from_terms(ints.h, vj, vk, n)
+    h, j, k = _own_integrals(sol, ints, d, vj, vk)
+    if h is ints.h and j is vj:
+        return ref_fock, ref_terms
+    own_terms = _energy.energy_terms(d, h, j, k, ints.e_nuc)
+    e = float(sol.energy)
+    if abs(e - own_terms.total) <= abs(e - ref_terms.total):
+        return _energy.fock_from_terms(h, j, k, n), own_terms
+    return ref_fock, ref_terms
+
+
+def _explained_hint(sol, ints, at, reference, results) -> str | None:
+    """For a failed reference-energy: the part of E − E_ref the code's reported integrals
+    explain at first order (their energy effects) and the rest."""
+    r = results.get("reference-energy")
+    if reference is None or at is None or r is None or r.status is not Status.FAILED:
+        return None
+    explained = explained_energy(energy_effects(sol, ints, at))
+    if explained is None:
+        return None
+    gap = float(sol.energy) - float(reference.energy)
+    return (f"of E − E_ref = {gap:+.1e} Eh your integrals explain {explained:+.1e} Eh "
+            f"(first order at your density), the rest is {gap - explained:+.1e} Eh")
 
 
 def _state_checks(problem, sol, reference, ints, tol: Tolerances, mode: str, d, fock):

@@ -33,7 +33,9 @@ class JudgeSettings:
     or "off". ``reference_source``: where the reference came from ("stored",
     "computed", "written"), recorded in the result. ``reference_error``: one line, why
     there is no reference; reference-energy then fails with it. ``plugin_seconds``: the
-    plug-in's own run time (s), recorded in the result.
+    plug-in's own run time (s), recorded in the result. ``basis_source``: "pyscf"
+    (named bases from pyscf's copies) or "bse" (from the basis_set_exchange library: the
+    reference is then built and computed from its data, its version recorded).
     """
 
     tolerances: object = None
@@ -42,13 +44,65 @@ class JudgeSettings:
     reference_source: str | None = None
     reference_error: str | None = None
     plugin_seconds: float | None = None
+    basis_source: str = "pyscf"
 
 
 def _evaluate(problem, solution, reference, settings: JudgeSettings, integrals=None):
-    """``harness.verdict.evaluate.evaluate_case``, imported when first needed (pyscf)."""
+    """``harness.verdict.evaluate.evaluate_case``, imported when first needed (pyscf);
+    in the code's own basis when it gave one (:func:`_in_own_basis`)."""
     from harness.verdict.evaluate import evaluate_case
+    solution, reference, integrals, note = _in_own_basis(problem, solution, reference,
+                                                         integrals, settings.basis_source)
     return evaluate_case(problem, solution, reference, settings.tolerances, integrals,
-                         ao_convention=settings.ao_convention, stability=settings.stability)
+                         ao_convention=settings.ao_convention, stability=settings.stability,
+                         basis_note=note)
+
+
+def _in_own_basis(problem, solution: Solution, reference, integrals, source="pyscf"):
+    """(solution, reference, integrals, note) to judge with. When the solution gives its
+    ``basis`` (NWChem text), the reference molecule is built in exactly that basis
+    (``harness.backend.mole.mole_in_basis``), its reference computed (or taken from the
+    in-memory cache, ``harness.catalogue.references.reference_in_basis``) and the note
+    says so for the basis check; text that does not parse for the case's elements
+    becomes a Malformed ``basis`` (the well-formed check names it)."""
+    from harness.backend.integrals import integrals_for
+    from harness.catalogue.references import reference_in_basis
+    from harness.contract.solution import Malformed
+
+    text = solution.basis
+    if not isinstance(text, str):
+        if source != "bse":
+            return solution, reference, integrals, None
+        from harness.backend.basis_sources import bse_basis, bse_version
+
+        version = bse_version()
+        text = bse_basis(problem.basis, problem.numbers)
+        label = f"{problem.basis} from basis_set_exchange {version}"
+        own = integrals_for(problem, basis_text=text)
+        own_ref = reference_in_basis(problem, text, label=label,
+                                     provenance={"basis_set_exchange_version": version})
+        return (solution, own_ref, own,
+                f"{problem.basis!r} from basis_set_exchange {version} (--basis-source bse); "
+                f"{len(own.labels)} functions")
+
+    try:
+        own = integrals_for(problem, basis_text=text)
+    except Exception as exc:  # pyscf's parser and builder raise many kinds
+        reason = str(exc).splitlines()[0] if isinstance(exc, ValueError) else \
+            f"does not build a basis ({type(exc).__name__}: {exc})".splitlines()[0]
+        return solution.replace(basis=Malformed(reason)), reference, integrals, None
+    own_ref = reference_in_basis(problem, text)
+    nao = len(own.labels)
+    note = f"given as 'basis'; {nao} functions"
+    named = integrals if integrals is not None else integrals_for(problem)
+    if named.s.shape == own.s.shape:
+        note += (f", differs from pyscf's {problem.basis!r} by "
+                 f"{float(abs(named.s - own.s).max()):.1e} in the overlap")
+    else:
+        note += f", pyscf's {problem.basis!r} has {len(named.labels)}"
+    if reference is not None and getattr(reference, "energy", None) is not None:
+        note += f", {own_ref.energy - float(reference.energy):+.1e} Eh in the reference energy"
+    return solution, own_ref, own, note
 
 
 def reference_energy(reference) -> float | None:

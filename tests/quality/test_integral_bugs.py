@@ -79,7 +79,8 @@ def test_missing_half_fails_by_t():
 def test_wrong_sign_v_is_off_by_twice_v():
     r = verdict("nuclear_attraction_wrong_sign", "oh-sto-3g-uhf")["nuclear-attraction"]
     assert r.value > 100  # 2|V(O 1s, O 1s)| ≈ 123 Eh
-    assert r.message.startswith("nuclear-attraction: max|V − V_ref| = 1.2e+02 > 1.0e-08 "
+    assert r.message.startswith("nuclear-attraction: your V differs by up to 1.2e+02; at "
+                                "your density that moves E by 3.7e+02 Eh > 1e-07 "
                                 "(oh-sto-3g-uhf), AO element (0, 0)")
 
 
@@ -91,10 +92,11 @@ def test_indefinite_overlap_value():
 
 def test_physicists_notation_message():
     v = verdict("eri_physicists_notation", "water-sto-3g-rhf")
-    assert v["two-electron"].value > 0.5
+    assert v["two-electron"].value > 0.5  # Eh of energy effect
     assert v["two-electron"].message.startswith(
-        "two-electron: max|(ij|kl) − (ij|kl)_ref| = 1.1e+00 > 1.0e-08 (water-sto-3g-rhf), "
-        "AO quartet (")
+        "two-electron: your (ij|kl) differs by up to 1.1e+00; at your density that moves E "
+        "by ")
+    assert " Eh > 1e-07 (water-sto-3g-rhf), AO quartet (" in v["two-electron"].message
     assert "(ij|kl) ≠ (ji|kl)" in v["two-electron-symmetry"].message
 
 

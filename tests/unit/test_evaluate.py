@@ -141,7 +141,8 @@ class TestConvergedSolutionsPass:
             "converged-flag: the code reports converged=True (water-sto-3g-rhf) "
             "after 7 iterations")
         assert r["overlap"].message == (
-            "overlap: max|S − S_ref| = 0.0e+00 ≤ 1.0e-08 (water-sto-3g-rhf)")
+            "overlap: your S differs by up to 0.0e+00; at your density that moves E by "
+            "0.0e+00 Eh ≤ 1e-07 (water-sto-3g-rhf)")
         u = run(oh_uhf, oh_uhf.solution())
         assert u["reference-energy"].message == (
             "reference-energy: not applicable (oh-sto-3g-uhf): no reference")
@@ -275,9 +276,10 @@ class TestPerturbationsFailTheRightCheck:
         sol["overlap"] = s
         r = run(water_rhf, sol)
         assert failures(r) == {"overlap"}
-        assert r["overlap"].message == (
-            "overlap: max|S − S_ref| = 1.0e-04 > 1.0e-08 (water-sto-3g-rhf), "
-            "AO element (5, 6) = (1 H 1s, 2 H 1s)")
+        assert r["overlap"].message.startswith(
+            "overlap: your S differs by up to 1.0e-04; at your density that moves E by ")
+        assert r["overlap"].message.endswith(
+            " Eh > 1e-07 (water-sto-3g-rhf), AO element (5, 6) = (1 H 1s, 2 H 1s)")
 
     def test_converged_false_fails_the_flag(self, oh_uhf):
         """converged=False fails converged-flag only."""

@@ -13,7 +13,7 @@ import importlib
 from typing import Callable
 
 #: Modules of this package that contribute entries, in the order the self-test shows them.
-MODULES = ("core", "hints", "conventions", "integrals", "states", "orientation")
+MODULES = ("core", "hints", "conventions", "integrals", "states", "orientation", "variants")
 
 
 @dataclasses.dataclass(frozen=True)
