@@ -128,7 +128,8 @@ def rounded_basis_text(problem) -> str:
 
 
 def rounded_basis_data(problem) -> dict:
-    """Correct, basis data rounded to 7 digits, returned as 'basis': judged in it, passes.
+    """Correct: exponents and coefficients rounded to 7 digits and handed back as NWChem text,
+    so it is judged in them and passes.
 
     The code computes S, T, V and (ij|kl) in its rounded basis (here: pyscf's integrals
     for that basis) and says so with the ``basis`` key; the harness builds the reference
