@@ -24,6 +24,7 @@ from harness.checks.integrals import integral_checks
 from harness.verdict import states as _stability
 from harness.verdict.states import state_hint
 from harness.verdict.diagnosis import diagnose
+from harness.verdict.coulomb import coulomb_exchange
 from harness.verdict.conventions import CONVENTION_MATCH, BasisMismatch, detect_convention
 from harness.verdict.conventions import named_convention
 from harness.contract.errors import HarnessError
@@ -198,9 +199,19 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
         results["density-consistency"] = not_applicable("density-consistency",
                                                         "no 'density' key", case)
 
-    vj, vk = ints.jk(d)
+    # J/K of the code's density: built once here, shared by self-consistency,
+    # energy-consistency, energy-error-bound and the diagnosis (harness.verdict.coulomb)
+    jk = coulomb_exchange(problem, ints, d, reference, low.x,
+                          fock_tolerance=tol.for_check("self-consistency", problem.convergence),
+                          energy_tolerance=tol.for_check("energy-consistency",
+                                                         problem.convergence))
+    vj, vk = jk.j_total, jk.k
     rebuilt = _energy.fock_from_terms(ints.h, vj, vk, len(d))
-    terms = _energy.energy_terms(d, ints.h, vj, vk, ints.e_nuc)
+    if jk.route == "difference":
+        terms = _energy.energy_terms_from_difference(d, jk.d_ref, ints.h, jk.j_ref, jk.k_ref,
+                                                     jk.j_diff, jk.k_diff, ints.e_nuc)
+    else:
+        terms = _energy.energy_terms(d, ints.h, vj, vk, ints.e_nuc)
 
     def stationarity(f):
         if method == "rohf":
@@ -254,7 +265,8 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
 
     analysis: dict = {}
     if any(r.status is Status.FAILED for r in results.values()):
-        diagnosis = diagnose(problem, sol, ints, d, results, reference=reference, jk=(vj, vk))
+        diagnosis = diagnose(problem, sol, ints, d, results, reference=reference,
+                             jk=(jk.j, vk))
         analysis = dict(diagnosis.analysis)
         hints = dict(diagnosis.hints)
         ref_result = results.get("reference-energy")
