@@ -25,6 +25,7 @@ class AOIntegrals:
     h: np.ndarray
     e_nuc: float
     labels: tuple[str, ...]
+    _cache: dict = dataclasses.field(default_factory=dict, repr=False, compare=False)
 
     def jk(self, d: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """J of the total density and K of each component: (nao, nao), (ns, nao, nao).
@@ -41,6 +42,21 @@ class AOIntegrals:
 
         vj, vk = scf.hf.get_jk(self.mol, np.ascontiguousarray(d), hermi=1)
         return np.asarray(vj).reshape(d.shape), np.asarray(vk).reshape(d.shape)
+
+    def fitted_jk_components(self, d: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+        """Density-fitted J̃ and K̃ of each component of ``d`` (leading spin axis), or None
+        when the fitted tensor would exceed ``harness.backend.fitting.FITTING_MAX_BYTES``.
+        For small density *differences* only (``harness.verdict.coulomb``); the fitted
+        tensor is built on first use and kept with these integrals (Eh)."""
+        from harness.backend import fitting
+
+        cache = self._cache
+        if "fitted" not in cache:
+            cache["fitted"] = (fitting.FittedJK(self.mol)
+                               if fitting.fitting_bytes(self.mol) <= fitting.FITTING_MAX_BYTES
+                               else None)
+        fitted = cache["fitted"]
+        return None if fitted is None else fitted.jk_components(d)
 
     def j(self, d: np.ndarray) -> np.ndarray:
         """J[P]_pq = Σ_rs (pq|rs) P_rs of one (nao, nao) density (Eh), pyscf's direct
@@ -110,6 +126,16 @@ def integrals_for(problem: Problem, basis_text: str | None = None) -> AOIntegral
     h = mol.intor_symmetric("int1e_kin") + mol.intor_symmetric("int1e_nuc")
     return AOIntegrals(mol=mol, s=s, h=h, e_nuc=float(mol.energy_nuc()),
                        labels=tuple(" ".join(l.split()) for l in mol.ao_labels()))
+
+
+def exact_jk_components(mol, d: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Exact J and K of each component of ``d`` (leading spin axis) for a pyscf ``Mole``,
+    pyscf's direct algorithm: (ns, nao, nao) each, Eh."""
+    from pyscf import scf
+
+    d = np.ascontiguousarray(d, dtype=float)
+    vj, vk = scf.hf.get_jk(mol, d, hermi=1)
+    return np.asarray(vj).reshape(d.shape), np.asarray(vk).reshape(d.shape)
 
 
 def full_integrals(problem, basis_text: str | None = None):

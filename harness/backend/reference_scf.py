@@ -64,7 +64,9 @@ class ReferenceSolution:
 
     ``guess``/``converged``/``stable``/``rounds``: the kept run; ``guesses`` every guess
     tried in order, ``energy_by_guess`` their energies; ``terms``: nuclear, one_electron,
-    coulomb, exchange; ``states``: every converged stationary point met, in order met.
+    coulomb, exchange; ``states``: every converged stationary point met, in order met;
+    ``density``: the kept solution's density with a leading spin axis (RHF (1, nao, nao)
+    total, UHF/ROHF (alpha, beta)), pyscf AO order.
     """
 
     guess: str
@@ -82,6 +84,7 @@ class ReferenceSolution:
     nao: int
     nmo: int
     states: tuple[FoundState, ...]
+    density: np.ndarray | None = None
 
 
 def _new_scf(mol, method: str):
@@ -271,4 +274,5 @@ def reference_solution(mol, method: str) -> ReferenceSolution:
         dipole=np.asarray(mf.dip_moment(unit="AU", verbose=0), dtype=float),
         orbital_energies=np.asarray(mf.mo_energy, dtype=float),
         occupations=np.asarray(mf.mo_occ, dtype=float), nao=int(mol.nao),
-        nmo=int(np.shape(mf.mo_coeff)[-1]), states=tuple(states))
+        nmo=int(np.shape(mf.mo_coeff)[-1]), states=tuple(states),
+        density=np.asarray(mf.make_rdm1(), dtype=float).reshape(-1, mol.nao, mol.nao))

@@ -18,6 +18,15 @@ content no longer matches is refused everywhere it is read (``references verify`
 ``certify``, the pytest plug-in) as "reference tampered or corrupted: <file>: <what
 differs>" (:class:`ReferenceTampered`), never recomputed over silently. The hashes detect
 edits; they are not a signature (whoever edits a file can recompute them).
+(:func:`input_hash`); a stored reference is used only while the hash still matches.
+
+Cases with at least STORED_DENSITY_MIN_AO basis functions also store the reference
+density and its exact J and K per spin component (:class:`ReferenceDensity`) in a
+compressed ``<case name>.density.npz`` beside the JSON; the JSON records the file's
+SHA-256 (``density_file``) and the npz carries the input hash, so both are used only
+together and only while both match. The checks use them to build J/K of the code's
+density as J/K(P_ref) + J/K(ΔP) (``harness.verdict.coulomb``). References computed in
+the process (not stored) carry the density in memory when the case is that large.
 """
 
 from __future__ import annotations
@@ -74,6 +83,13 @@ CONTENT_HASH_KEY = "content_hashes"
 TAMPERED = "reference tampered or corrupted"
 #: |E_recomputed − E_stored| allowed by ``verify(..., recompute=True)`` (Eh).
 RECOMPUTE_TOLERANCE = 1e-9
+
+#: Stored references of cases with at least this many basis functions keep their density
+#: and its exact J/K (``<case>.density.npz``): below it the exact J/K build of the code's
+#: density costs milliseconds (≤ 60 AO in the catalogue) and the file would only add
+#: bytes; at 114 AO (benzene/cc-pVDZ) it is the checks' main cost. Three packed
+#: triangles per spin component: ~0.15 MB for benzene.
+STORED_DENSITY_MIN_AO = 100
 
 UNITS = {"energy": "hartree (Eh)", "dipole": "e*bohr (atomic units), origin at (0, 0, 0)",
          "coordinates": "bohr"}
@@ -234,6 +250,86 @@ class KnownState:
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
+class ReferenceDensity:
+    """The reference solution's density and its exact Coulomb and exchange matrices, per
+    spin component (RHF: one component, the total density), pyscf AO order, Eh:
+    ``density`` Pσ, ``coulomb`` J[Pσ], ``exchange`` K[Pσ], each (ns, nao, nao)."""
+
+    density: np.ndarray
+    coulomb: np.ndarray
+    exchange: np.ndarray
+
+    def __post_init__(self):
+        for name in ("density", "coulomb", "exchange"):
+            object.__setattr__(self, name, _frozen(getattr(self, name)))
+
+
+def reference_density(mol, density: np.ndarray) -> ReferenceDensity:
+    """:class:`ReferenceDensity` of a density (leading spin axis): one exact J/K build."""
+    from harness.backend.integrals import exact_jk_components
+
+    vj, vk = exact_jk_components(mol, density)
+    return ReferenceDensity(density=density, coulomb=vj, exchange=vk)
+
+
+def _pack(a: np.ndarray) -> np.ndarray:
+    i, j = np.tril_indices(a.shape[-1])
+    return np.ascontiguousarray(a[:, i, j])
+
+
+def _unpack(packed: np.ndarray, n: int) -> np.ndarray:
+    out = np.zeros((packed.shape[0], n, n))
+    i, j = np.tril_indices(n)
+    out[:, i, j] = packed
+    out[:, j, i] = packed
+    return out
+
+
+def _density_bytes(density: ReferenceDensity, input_hash: str) -> bytes:
+    import io
+
+    buf = io.BytesIO()
+    np.savez_compressed(buf, input_hash=np.array(input_hash),
+                        nao=np.array(density.density.shape[-1]),
+                        density=_pack(density.density), coulomb=_pack(density.coulomb),
+                        exchange=_pack(density.exchange))
+    return buf.getvalue()
+
+
+def _read_density(case: Case, path: Path, entry: Mapping[str, Any], input_hash: str
+                  ) -> ReferenceDensity:
+    """The density file named by a reference's ``density_file`` entry; ReferenceDataError
+    when it is missing, its SHA-256 differs from the entry or its input hash from the
+    reference's."""
+    import io
+
+    name = str(entry.get("name", ""))
+    file = path.parent / name
+    try:
+        raw = file.read_bytes()
+    except OSError:
+        raise ReferenceDataError(f"density file {file} is missing", case=case.name,
+                                 field="density_file") from None
+    digest = "sha256:" + hashlib.sha256(raw).hexdigest()
+    if digest != entry.get("sha256"):
+        raise ReferenceDataError(f"hash mismatch in {file} (stored {str(entry.get('sha256'))[:19]}"
+                                 f"…, file {digest[:19]}…)", case=case.name,
+                                 field="density_file")
+    try:
+        with np.load(io.BytesIO(raw), allow_pickle=False) as z:
+            if str(z["input_hash"]) != input_hash:
+                raise ReferenceDataError(f"{file} belongs to other inputs", case=case.name,
+                                         field="density_file")
+            n = int(z["nao"])
+            return ReferenceDensity(density=_unpack(z["density"], n),
+                                    coulomb=_unpack(z["coulomb"], n),
+                                    exchange=_unpack(z["exchange"], n))
+    except (KeyError, ValueError, OSError) as exc:
+        raise ReferenceDataError(f"{file} is malformed ({exc})".splitlines()[0],
+                                 case=case.name, field="density_file") from None
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
 class Reference:
     """A stored pyscf solution of one case. Energies in Eh, dipole in e·bohr.
 
@@ -246,6 +342,10 @@ class Reference:
     ``known_states``: every distinct converged stationary solution found (energy-sorted;
     index 0 is the reference solution itself). Files written before known states were
     recorded read back with an empty tuple.
+
+    ``density``: the :class:`ReferenceDensity` (density and exact J/K) when the case has
+    at least STORED_DENSITY_MIN_AO functions, else None; ``density_file`` the JSON entry
+    naming its stored file (name, sha256) when read from storage.
     """
 
     case: str
@@ -272,6 +372,8 @@ class Reference:
     inputs: Mapping[str, Any] = dataclasses.field(default_factory=dict)
     provenance: Mapping[str, Any] = dataclasses.field(default_factory=dict)
     known_states: tuple[KnownState, ...] = ()
+    density: ReferenceDensity | None = None
+    density_file: Mapping[str, Any] | None = None
 
     def __post_init__(self):
         for name in ("orbital_energies", "occupations", "dipole"):
@@ -307,6 +409,7 @@ class Reference:
             "inputs": dict(self.inputs),
             "provenance": dict(self.provenance),
             "known_states": [k.to_json() for k in self.known_states],
+            **({"density_file": dict(self.density_file)} if self.density_file else {}),
         })
         data[CONTENT_HASH_KEY] = content_hashes(data)
         return data
@@ -337,7 +440,9 @@ class Reference:
                       inputs=dict(data.get("inputs", {})),
                       provenance=dict(data.get("provenance", {})),
                       known_states=tuple(KnownState.from_json(k)
-                                         for k in data.get("known_states", ())))
+                                         for k in data.get("known_states", ())),
+                      density_file=(dict(data["density_file"]) if data.get("density_file")
+                                    else None))
         except KeyError as exc:
             raise ReferenceDataError(f"missing key {exc.args[0]!r}", case=data.get("case"),
                                      field="reference") from None
@@ -430,6 +535,8 @@ def compute_reference(case: Case) -> Reference:
         "created_utc": datetime.datetime.now(datetime.timezone.utc).isoformat(
             timespec="seconds"),
     }
+    density = (reference_density(mol, sol.density)
+               if sol.density is not None and sol.nao >= STORED_DENSITY_MIN_AO else None)
     return Reference(case=case.name, input_hash=input_hash(case), method=case.method,
                      basis=case.basis, cartesian=case.cartesian, charge=case.charge,
                      multiplicity=case.multiplicity, energy=total,
@@ -439,7 +546,8 @@ def compute_reference(case: Case) -> Reference:
                      orbital_energies=mo_energy, occupations=mo_occ, s_squared=s2,
                      dipole=dipole, nao=sol.nao, nmo=sol.nmo,
                      converged=converged, stable=stable, stability_rounds=rounds,
-                     inputs=_inputs(case), provenance=provenance, known_states=known)
+                     inputs=_inputs(case), provenance=provenance, known_states=known,
+                     density=density)
 
 
 # --------------------------------------------------------------------------- storage
@@ -452,10 +560,23 @@ def reference_path(case: Case, directory=None) -> Path:
 
 
 def write_reference(reference: Reference, directory=None) -> Path:
-    """Write ``reference`` as readable JSON (indent 1); atomic replace. Returns the path."""
+    """Write ``reference`` as readable JSON (indent 1); atomic replace. Returns the path.
+
+    With a ``density``, ``<case>.density.npz`` is written first and named, with its
+    SHA-256, in the JSON's ``density_file`` entry."""
     directory = Path(directory) if directory is not None else default_data_dir()
     directory.mkdir(parents=True, exist_ok=True)
     path = directory / f"{reference.case}.json"
+    if reference.density is not None:
+        raw = _density_bytes(reference.density, reference.input_hash)
+        name = f"{reference.case}.density.npz"
+        tmp_npz = directory / (name + ".tmp")
+        tmp_npz.write_bytes(raw)
+        os.replace(tmp_npz, directory / name)
+        reference = dataclasses.replace(reference, density_file={
+            "name": name, "sha256": "sha256:" + hashlib.sha256(raw).hexdigest(),
+            "contents": "density, coulomb J[P], exchange K[P] per spin component, packed "
+                        "lower triangles, pyscf AO order, Eh"})
     tmp = path.with_suffix(".json.tmp")
     tmp.write_text(json.dumps(reference.to_json(), indent=1) + "\n", encoding="utf-8")
     os.replace(tmp, path)
@@ -506,6 +627,9 @@ def load_reference(case: Case, directory=None) -> Reference:
         raise ReferenceDataError(f"hash mismatch in {path} ({_what_changed(case, ref)}; "
                                  f"stored {ref.input_hash[:19]}…, case {expected[:19]}…)",
                                  case=case.name, field="reference")
+    if ref.density_file:
+        ref = dataclasses.replace(ref, density=_read_density(case, path, ref.density_file,
+                                                             expected))
     return ref
 
 

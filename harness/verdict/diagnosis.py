@@ -661,8 +661,9 @@ def diagnose(problem, sol: Solution, ints, d: np.ndarray, results, *, reference=
     diagnosed unless electron-count passed (the terms of a density of the wrong size
     would explain nothing). ``reference``: the
     reference (an object with ``.energy``) or E_ref in Eh, used to carry an energy hint to
-    reference-energy when E[P] itself agrees with E_ref. ``jk``: (J of the total density,
-    K per component) of ``d`` as evaluate computed them, to save a J/K build.
+    reference-energy when E[P] itself agrees with E_ref. ``jk``: (J, K) of ``d`` as evaluate
+    computed them, to save a J/K build: J per component (ns, nao, nao) — then nothing is
+    rebuilt — or J of the total density (nao, nao) with K per component.
     Bohr and Eh throughout. Pure: no I/O.
     """
     if not isinstance(results, Mapping):
@@ -700,7 +701,10 @@ def diagnose(problem, sol: Solution, ints, d: np.ndarray, results, *, reference=
         return Diagnosis(hints, analysis)  # the terms of a density of the wrong size say nothing
 
     # J and K per density component
-    if jk is not None and (len(d) == 1):
+    if jk is not None and np.ndim(jk[0]) == 3:  # J per component given: nothing to build
+        j, vk = np.asarray(jk[0]), np.asarray(jk[1])
+        vj_total = j.sum(axis=0)
+    elif jk is not None and (len(d) == 1):
         vj_total, vk = np.asarray(jk[0]), np.asarray(jk[1])
         j = vj_total[None]
     else:

@@ -25,6 +25,7 @@ from harness.checks.integrals import (ERI_MAX_NAO, density_for, energy_effects,
 from harness.verdict import states as _stability
 from harness.verdict.states import state_hint
 from harness.verdict.diagnosis import diagnose
+from harness.verdict.coulomb import coulomb_exchange
 from harness.verdict.conventions import CONVENTION_MATCH, BasisMismatch, detect_convention
 from harness.verdict.conventions import named_convention, rescaling
 from harness.contract.errors import HarnessError
@@ -210,9 +211,21 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
         results["density-consistency"] = not_applicable("density-consistency",
                                                         "no 'density' key", case)
 
-    vj, vk = ints.jk(d)
+    # J/K of the code's density: built once here, shared by self-consistency,
+    # energy-consistency, energy-error-bound and the diagnosis (harness.verdict.coulomb)
+    jk = coulomb_exchange(problem, ints, d, reference, low.x,
+                          fock_tolerance=tol.for_check("self-consistency", problem.convergence),
+                          energy_tolerance=tol.for_check("energy-consistency",
+                                                         problem.convergence))
+    vj, vk = jk.j_total, jk.k
     rebuilt = _energy.fock_from_terms(ints.h, vj, vk, len(d))
-    own_fock, terms = _energy_integrals(sol, ints, d, vj, vk)
+    if jk.route == "difference":
+        ref_terms = _energy.energy_terms_from_difference(d, jk.d_ref, ints.h, jk.j_ref,
+                                                         jk.k_ref, jk.j_diff, jk.k_diff,
+                                                         ints.e_nuc)
+    else:
+        ref_terms = _energy.energy_terms(d, ints.h, vj, vk, ints.e_nuc)
+    own_fock, terms = _energy_integrals(sol, ints, d, vj, vk, ref_terms)
 
     def stationarity(f):
         if method == "rohf":
@@ -268,7 +281,8 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
 
     analysis: dict = {}
     if any(r.status is Status.FAILED for r in results.values()):
-        diagnosis = diagnose(problem, sol, ints, d, results, reference=reference, jk=(vj, vk))
+        diagnosis = diagnose(problem, sol, ints, d, results, reference=reference,
+                             jk=(jk.j, vk))
         analysis = dict(diagnosis.analysis)
         hints = dict(diagnosis.hints)
         ref_result = results.get("reference-energy")
@@ -365,14 +379,15 @@ def _own_integrals(sol, ints, d, vj, vk):
     return h, vj, vk
 
 
-def _energy_integrals(sol, ints, d, vj, vk):
+def _energy_integrals(sol, ints, d, vj, vk, ref_terms=None):
     """(Fock matrix rebuilt from the code's P, E[P] terms) for self-consistency and
     energy-consistency: with the code's own integrals (:func:`_own_integrals`) when it
     reports some and its energy belongs to them at least as well as to pyscf's — the
     integrals its SCF used — else with pyscf's. A defect of the reported integrals alone
     is then the integral checks' only; one the SCF used is not counted again here."""
     n = len(d)
-    ref_terms = _energy.energy_terms(d, ints.h, vj, vk, ints.e_nuc)
+    if ref_terms is None:  # else the E[P] terms with pyscf's integrals, already built
+        ref_terms = _energy.energy_terms(d, ints.h, vj, vk, ints.e_nuc)
     ref_fock = _energy.fock_from_terms(ints.h, vj, vk, n)
     h, j, k = _own_integrals(sol, ints, d, vj, vk)
     if h is ints.h and j is vj:
