@@ -500,8 +500,8 @@ def _catalogue():
     s2 = "spin-squared"
     fock_bug = {sc, ec, ref}
     density_bug = {"density-consistency", cnt, ec, sc}
-    geometry_bug = {"basis", "overlap", "orthonormality", "idempotency", cnt, st, sc, rh, ec,
-                    ref, "core-hamiltonian"}
+    # the basis check fails: every matrix check is then skipped, only the overlap ones run
+    geometry_bug = {"basis", "overlap"}
     entries = [
         entry(exchange_doubled, RHF, fock_bug, "exchange scaled by 2: Fock ≈ 1.00 T + 1.00 V "
               "+ 1.00 J − 1.00 K (expected −0.50 K)", sc),
@@ -567,7 +567,7 @@ def _catalogue():
               "coordinates read as ångström: the code's overlap is that of the molecule with "
               "its bohr coordinates read as ångström (max|S − S(R × 1.8897)| = ",
               "basis"),
-        entry(geometry_read_as_angstrom, UHF, geometry_bug | {s2},
+        entry(geometry_read_as_angstrom, UHF, geometry_bug,
               "convert bohr ↔ ångström (1 bohr = 0.529177 Å)", "basis"),
         entry(integral_screening_too_loose, RHF, fock_bug,
               "integral screening too loose: the code's Fock differs from F[P] by up to "
