@@ -265,7 +265,7 @@ def _one_case(**fields) -> str:
 @pytest.mark.parametrize("fields, message", [
     ({"basis": None}, "case 'x': basis: missing"),
     ({"name": None}, "case #1: name: missing"),
-    ({"method": '"dft"'}, "case 'x': method: must be one of rhf, uhf, rohf, got 'dft'"),
+    ({"method": '"dft"'}, "case 'x': method: must be one of rhf, uhf, rohf, rks, uks, roks, got 'dft'"),
     ({"charge": '"0"'}, "case 'x': charge: must be an integer, got '0'"),
     ({"charge": "true"}, "case 'x': charge: must be an integer, got True"),
     ({"cartesian": '"yes"'}, "case 'x': cartesian: must be true or false, got 'yes'"),
