@@ -33,7 +33,9 @@ class JudgeSettings:
     or "off". ``reference_source``: where the reference came from ("stored",
     "computed", "written"), recorded in the result. ``reference_error``: one line, why
     there is no reference; reference-energy then fails with it. ``plugin_seconds``: the
-    plug-in's own run time (s), recorded in the result.
+    plug-in's own run time (s), recorded in the result. ``grid``: Kohn–Sham only,
+    "own" when the code integrated on its own quadrature grid (XC tolerances then come
+    from a measured grid sensitivity, ``harness.verdict.xc``); None/"pinned" otherwise.
     """
 
     tolerances: object = None
@@ -42,13 +44,15 @@ class JudgeSettings:
     reference_source: str | None = None
     reference_error: str | None = None
     plugin_seconds: float | None = None
+    grid: str | None = None
 
 
 def _evaluate(problem, solution, reference, settings: JudgeSettings, integrals=None):
     """``harness.verdict.evaluate.evaluate_case``, imported when first needed (pyscf)."""
     from harness.verdict.evaluate import evaluate_case
     return evaluate_case(problem, solution, reference, settings.tolerances, integrals,
-                         ao_convention=settings.ao_convention, stability=settings.stability)
+                         ao_convention=settings.ao_convention, stability=settings.stability,
+                         grid=settings.grid)
 
 
 def reference_energy(reference) -> float | None:
