@@ -168,3 +168,47 @@ def k_long_range(mol, d: np.ndarray, omega: float) -> np.ndarray:
     with mol.with_range_coulomb(omega):
         vk = scf.hf.get_jk(mol, np.ascontiguousarray(d), hermi=1, with_j=False)[1]
     return np.asarray(vk).reshape(d.shape)
+
+
+class XCEvaluator:
+    """E_xc and V_xc of densities on one fixed grid, for an SCF loop (the bundled example
+    code calls it once per iteration): pyscf builds the molecule and the grid object once.
+
+    ``evaluator(d)`` → (E_xc (Eh), V_xc (ns, nao, nao)); d has a leading spin axis
+    (1: total P, unpolarised; 2: (Pα, Pβ), polarised). ``coefficients``: the functional's
+    :class:`HybridCoefficients`.
+    """
+
+    def __init__(self, problem, coords=None, weights=None, level: int | None = None):
+        from harness.backend.mole import mole_for
+
+        self.mol = mole_for(problem)
+        self.functional = problem.functional
+        if level is not None:
+            coords, weights, _ = grid_arrays(self.mol, level)
+        elif coords is None:
+            coords, weights = problem.grid.coords, problem.grid.weights
+        self.grids = pyscf_grids(self.mol, coords, weights)
+        self.coefficients = hybrid_coefficients(self.functional, problem.multiplicity - 1)
+
+    def __call__(self, d: np.ndarray) -> tuple[float, np.ndarray]:
+        from pyscf.dft import numint
+
+        ni = numint.NumInt()
+        d = np.ascontiguousarray(d, dtype=float)
+        if len(d) == 1:
+            _, e, v = ni.nr_rks(self.mol, self.grids, self.functional, d[0])
+            return float(e), np.asarray(v)[None]
+        _, e, v = ni.nr_uks(self.mol, self.grids, self.functional, d)
+        return float(e), np.asarray(v)
+
+
+def long_range_eri(problem, omega: float) -> np.ndarray:
+    """(pq|erf(ω r₁₂)/r₁₂|rs), the full (nao,)*4 array (Eh), for range-separated hybrids
+    in a code that holds all integrals in memory (the bundled example code)."""
+    from harness.backend.mole import mole_for
+
+    mol = mole_for(problem)
+    nao = mol.nao_nr()
+    with mol.with_range_coulomb(omega):
+        return np.ascontiguousarray(mol.intor("int2e").reshape((nao,) * 4))
