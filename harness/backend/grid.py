@@ -212,3 +212,12 @@ def long_range_eri(problem, omega: float) -> np.ndarray:
     nao = mol.nao_nr()
     with mol.with_range_coulomb(omega):
         return np.ascontiguousarray(mol.intor("int2e").reshape((nao,) * 4))
+
+
+def xc_energy_of_density(functional: str, rho: np.ndarray, weights: np.ndarray) -> float:
+    """E_xc = Σ_g w_g ρ_g ε_xc(ρ_g) (Eh) of a spin-unpolarised density given by its values
+    ρ_g on grid points (LDA functionals only: no gradients), libxc through pyscf."""
+    from pyscf.dft import libxc
+
+    exc = libxc.eval_xc(functional, np.asarray(rho, dtype=float), spin=0, deriv=0)[0]
+    return float(np.sum(np.asarray(weights) * rho * exc))
