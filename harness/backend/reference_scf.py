@@ -87,11 +87,29 @@ class ReferenceSolution:
     density: np.ndarray | None = None
 
 
-def _new_scf(mol, method: str):
-    from pyscf import scf
+#: Kohn–Sham methods and the pyscf classes of each method.
+KS_METHODS = ("rks", "uks", "roks")
+#: The restricted method whose stable solution starts an unrestricted singlet (RESTRICTED).
+RESTRICTED_OF = {"uhf": "rhf", "uks": "rks"}
 
-    cls = {"rhf": scf.hf.RHF, "uhf": scf.uhf.UHF, "rohf": scf.rohf.ROHF}[method]
-    mf = cls(mol)
+
+def _new_scf(mol, method: str, functional: str | None = None):
+    """A quiet pyscf SCF object with the reference settings; Kohn–Sham ones integrate on
+    the pinned grid (``harness.backend.grid.grid_arrays``, exactly the points and weights
+    of ``Problem.grid``) with no density-based grid pruning (small_rho_cutoff = 0)."""
+    from pyscf import dft, scf
+
+    if method in KS_METHODS:
+        from harness.backend import grid as _grid
+
+        mf = {"rks": dft.rks.RKS, "uks": dft.uks.UKS, "roks": dft.roks.ROKS}[method](mol)
+        mf.xc = functional
+        coords, weights, _ = _grid.grid_arrays(mol)
+        mf.grids = _grid.pyscf_grids(mol, coords, weights)
+        mf.small_rho_cutoff = 0.0
+    else:
+        cls = {"rhf": scf.hf.RHF, "uhf": scf.uhf.UHF, "rohf": scf.rohf.ROHF}[method]
+        mf = cls(mol)
     mf.conv_tol = CONV_TOL
     mf.conv_tol_grad = CONV_TOL_GRAD
     mf.max_cycle = MAX_CYCLE
@@ -121,7 +139,8 @@ def _initial_density(mf, guess: str) -> np.ndarray:
     if guess == BROKEN_SYMMETRY:
         return _broken_symmetry_density(mf)
     if guess == RESTRICTED:
-        rhf = _new_scf(mf.mol, "rhf")
+        ks = getattr(mf, "xc", None) if hasattr(mf, "grids") else None
+        rhf = _new_scf(mf.mol, "rks" if ks else "rhf", ks)
         _stable_solution(rhf, rhf.get_init_guess(key="minao"))
         dm = 0.5 * np.asarray(rhf.make_rdm1())
         return np.stack([dm, dm])
@@ -212,8 +231,27 @@ def follow(mol, method: str, mo_coeff, mo_occ) -> tuple[float, float]:
 
 
 
+def _ks_energy_terms(mf) -> dict[str, float]:
+    """Kohn–Sham: E_1, E_J as for HF; E_xc of the density on the pinned grid
+    (``harness.backend.grid.xc_on_grid``); the exact-exchange part E_K = the rest of
+    pyscf's E_xc + E_K (−¼ Tr(P K_eff) restricted, −½ Σσ Tr(Pσ K_eff[Pσ]) otherwise)."""
+    from harness.backend import grid as _grid
+
+    mol = mf.mol
+    dm = np.asarray(mf.make_rdm1())
+    veff = mf.get_veff(mol, dm)
+    d = dm[None] if dm.ndim == 2 else dm
+    exc, _, _ = _grid.xc_on_grid(mol, mf.xc, d, mf.grids.coords, mf.grids.weights)
+    p = d.sum(axis=0)
+    e1 = float(np.einsum("ij,ji->", p, mf.get_hcore()))
+    return {"nuclear": float(mol.energy_nuc()), "one_electron": e1,
+            "coulomb": float(veff.ecoul), "exchange": float(veff.exc) - exc, "xc": exc}
+
+
 def _energy_terms(mf) -> dict[str, float]:
     """E_1 = Tr(P h), E_J = ½ Tr(P J[P]), E_K = −½ Σσ Tr(Pσ K[Pσ]) (RHF: −¼ Tr(P K[P]))."""
+    if hasattr(mf, "xc") and hasattr(mf, "grids"):
+        return _ks_energy_terms(mf)
     mol = mf.mol
     dm = np.asarray(mf.make_rdm1())
     h1e = mf.get_hcore()
@@ -234,7 +272,7 @@ def _energy_terms(mf) -> dict[str, float]:
 
 
 
-def _solve(mol, method: str):
+def _solve(mol, method: str, functional: str | None = None):
     """Run every guess through :func:`_stable_solution`; return the kept run, all runs and
     the stationary states met (in order met).
 
@@ -243,11 +281,11 @@ def _solve(mol, method: str):
     SAME_SOLUTION Eh go to the earlier guess.
     """
     guesses = list(GUESSES)
-    if method == "uhf" and mol.spin == 0:
+    if method in RESTRICTED_OF and mol.spin == 0:
         guesses += [BROKEN_SYMMETRY, RESTRICTED]
     runs, states = [], []
     for guess in guesses:
-        mf = _new_scf(mol, method)
+        mf = _new_scf(mol, method, functional)
         stable, rounds = _stable_solution(mf, _initial_density(mf, guess), guess, states)
         runs.append((guess, mf, bool(mf.converged), stable, rounds))
 
@@ -261,11 +299,12 @@ def _solve(mol, method: str):
     return kept, runs, states
 
 
-def reference_solution(mol, method: str) -> ReferenceSolution:
+def reference_solution(mol, method: str, functional: str | None = None) -> ReferenceSolution:
     """The reference solution of ``method`` for a pyscf ``Mole`` built in bohr: every
     guess converged and followed until internally stable, the lowest converged stable
-    run kept (see :func:`_solve`), as plain data."""
-    (guess, mf, converged, stable, rounds), runs, states = _solve(mol, method)
+    run kept (see :func:`_solve`), as plain data. Kohn–Sham methods need ``functional``
+    and run on the pinned grid; ``terms`` then also holds ``xc``."""
+    (guess, mf, converged, stable, rounds), runs, states = _solve(mol, method, functional)
     return ReferenceSolution(
         guess=guess, converged=bool(converged), stable=bool(stable), rounds=int(rounds),
         guesses=tuple(r[0] for r in runs),

@@ -51,6 +51,7 @@ CASE_KEYS: dict[str, tuple[type | tuple[type, ...], Any]] = {
     "multiplicity": (int, 1),
     "suites": (list, ()),
     "note": (str, ""),
+    "functional": (str, ""),
 }
 
 
@@ -243,7 +244,8 @@ class Case:
         coordinates: nuclear positions in **bohr**, read-only float array (natm, 3).
         charge: total charge; multiplicity: 2S + 1.
         basis: pyscf basis name; cartesian: True for cartesian (6D/10F) shells.
-        method: "rhf", "uhf" or "rohf".
+        method: "rhf", "uhf", "rohf", "rks", "uks" or "roks".
+        functional: Kohn–Sham only: the libxc name as pyscf spells it ("" for HF).
         suites: names of the suites the case belongs to.
         note: why the case is there.
         geometry_source: provenance of the geometry (from the XYZ comment line).
@@ -262,6 +264,7 @@ class Case:
     note: str = ""
     geometry_source: str = ""
     geometry_file: str = ""
+    functional: str = ""
 
     def __post_init__(self):
         coords = np.array(self.coordinates, dtype=np.float64)
@@ -285,7 +288,8 @@ class Case:
                               coordinates=self.coordinates, charge=self.charge,
                               multiplicity=self.multiplicity, basis=self.basis,
                               cartesian=self.cartesian, method=self.method,
-                              convergence=convergence, initial_density=initial_density)
+                              convergence=convergence, initial_density=initial_density,
+                              functional=self.functional or None)
 
     def mole(self):
         """The pyscf ``Mole`` of this case (bohr, symmetry off), via ``build_mole``."""
@@ -385,14 +389,16 @@ def _case_from_table(table: Any, index: int, base: Path, where: str,
     if spin > n_electrons or (n_electrons - spin) % 2:
         fail("multiplicity", f"{values['multiplicity']} is impossible with {n_electrons} "
                              f"electrons")
-    if method == "rhf" and spin:
-        fail("method", f"rhf needs a singlet, got multiplicity {values['multiplicity']} "
-                       f"(use uhf or rohf)")
+    if method in ("rhf", "rks") and spin:
+        other = "uhf or rohf" if method == "rhf" else "uks or roks"
+        fail("method", f"{method} needs a singlet, got multiplicity "
+                       f"{values['multiplicity']} (use {other})")
     case = Case(name=name, numbers=numbers, coordinates=coordinates, charge=values["charge"],
                 multiplicity=values["multiplicity"], basis=values["basis"].strip().lower(),
                 cartesian=values["cartesian"], method=method, suites=tuple(values["suites"]),
                 note=values["note"], geometry_source=_geometry_source(comment),
-                geometry_file=str(geometry))
+                geometry_file=str(geometry),
+                functional=values["functional"].strip().lower())
     try:  # let pyscf confirm the basis exists for these elements
         case.problem()
     except CaseError as exc:

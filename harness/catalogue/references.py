@@ -119,9 +119,29 @@ def _clean(x):
 
 
 def _inputs(case: Case) -> dict[str, Any]:
-    return {"numbers": list(case.numbers), "coordinates": _clean(case.coordinates),
-            "charge": case.charge, "multiplicity": case.multiplicity, "method": case.method,
-            "cartesian": case.cartesian, "basis": case.basis}
+    out = {"numbers": list(case.numbers), "coordinates": _clean(case.coordinates),
+           "charge": case.charge, "multiplicity": case.multiplicity, "method": case.method,
+           "cartesian": case.cartesian, "basis": case.basis}
+    if case.functional:  # Kohn–Sham only, so Hartree–Fock hashes are unchanged
+        out["functional"] = case.functional
+    return out
+
+
+#: Kohn–Sham references: the same policy (STABILITY_POLICY, unchanged) run with pyscf
+#: RKS/UKS/ROKS on the pinned grid; hashed (with the grid's hash) for Kohn–Sham cases only.
+KS_POLICY = ("ks/1: pyscf RKS/UKS/ROKS with the case's functional (libxc via pyscf) on the "
+             "pinned grid (harness.backend.grid, points and weights as handed to the code), "
+             "small_rho_cutoff 0 (no density-based pruning), stability policy as for "
+             "Hartree-Fock with pyscf's Kohn-Sham orbital Hessian")
+
+
+def _ks_settings(case: Case, mol) -> dict[str, Any]:
+    from harness.backend import grid as _grid
+    from harness.contract.grid import grid_hash
+
+    coords, weights, description = _grid.grid_arrays(mol)
+    return {"ks_policy": KS_POLICY, "grid_hash": grid_hash(coords, weights),
+            "grid": description}
 
 
 def input_hash(case: Case) -> str:
@@ -131,15 +151,20 @@ def input_hash(case: Case) -> str:
     multiplicity, method, cartesian flag, basis name, the basis contents pyscf
     actually uses (``harness.backend.mole.basis_set``, hashed in pyscf's row layout
     ``{symbol: [[l, [exponent, c1, ...], ...], ...]}``) and the reference settings (conv_tol,
-    conv_tol_grad, stability policy). Not hashed: the pyscf or numpy version.
+    conv_tol_grad, stability policy); Kohn–Sham cases also the functional, KS_POLICY,
+    the pinned grid's description and content hash. Not hashed: the pyscf, libxc or
+    numpy version.
     """
     from harness.backend.mole import basis_set
     from harness.contract.basis import as_rows
 
     payload = _inputs(case)
-    payload["basis_contents"] = _clean(as_rows(basis_set(case.mole())))
+    mol = case.mole()
+    payload["basis_contents"] = _clean(as_rows(basis_set(mol)))
     payload["settings"] = {"conv_tol": CONV_TOL, "conv_tol_grad": CONV_TOL_GRAD,
                            "stability_policy": STABILITY_POLICY}
+    if case.functional:
+        payload["settings"].update(_ks_settings(case, mol))
     text = json.dumps(payload, sort_keys=True, separators=(",", ":"))
     return "sha256:" + hashlib.sha256(text.encode("utf-8")).hexdigest()
 
@@ -374,6 +399,10 @@ class Reference:
     known_states: tuple[KnownState, ...] = ()
     density: ReferenceDensity | None = None
     density_file: Mapping[str, Any] | None = None
+    #: Kohn–Sham: the functional and E_xc (Eh; ``energy_exchange`` is then the scaled
+    #: exact-exchange part). "" and 0.0 for Hartree–Fock.
+    functional: str = ""
+    energy_xc: float = 0.0
 
     def __post_init__(self):
         for name in ("orbital_energies", "occupations", "dipole"):
@@ -384,11 +413,19 @@ class Reference:
     def energy_terms_sum(self) -> float:
         """E_nuc + E_1 + E_J + E_K (Eh); equals ``energy`` to ~1e-10."""
         return (self.energy_nuclear + self.energy_one_electron + self.energy_coulomb
-                + self.energy_exchange)
+                + self.energy_exchange + self.energy_xc)
 
     def to_json(self) -> dict[str, Any]:
         """A JSON-ready dict (floats at full precision), tagged with REFERENCE_FORMAT,
         with the content hashes of its values (:data:`CONTENT_HASH_KEY`)."""
+        data = self._to_json()
+        if self.functional:  # Kohn–Sham keys only where they mean something
+            data["functional"] = self.functional
+            data["energies"]["xc"] = _clean(self.energy_xc)
+        data[CONTENT_HASH_KEY] = content_hashes(data)
+        return data
+
+    def _to_json(self) -> dict[str, Any]:
         data = _clean({
             "format": REFERENCE_FORMAT,
             "case": self.case,
@@ -411,7 +448,6 @@ class Reference:
             "known_states": [k.to_json() for k in self.known_states],
             **({"density_file": dict(self.density_file)} if self.density_file else {}),
         })
-        data[CONTENT_HASH_KEY] = content_hashes(data)
         return data
 
     @classmethod
@@ -442,7 +478,9 @@ class Reference:
                       known_states=tuple(KnownState.from_json(k)
                                          for k in data.get("known_states", ())),
                       density_file=(dict(data["density_file"]) if data.get("density_file")
-                                    else None))
+                                    else None),
+                      functional=str(data.get("functional", "")),
+                      energy_xc=float(e.get("xc", 0.0)))
         except KeyError as exc:
             raise ReferenceDataError(f"missing key {exc.args[0]!r}", case=data.get("case"),
                                      field="reference") from None
@@ -475,12 +513,12 @@ def distinct_states(states: Iterable[KnownState]) -> tuple[KnownState, ...]:
     return tuple(sorted(kept, key=lambda k: k.energy))
 
 
-def _solve(mol, method: str):
+def _solve(mol, method: str, functional: str = ""):
     """The backend's reference solution (``harness.backend.reference_scf``) and the
     distinct stationary states met, the kept solution first."""
     from harness.backend.reference_scf import reference_solution
 
-    sol = reference_solution(mol, method)
+    sol = reference_solution(mol, method, functional or None)
     # the kept solution is state 0, the others follow by energy (a saddle point below it
     # would be listed too: it would mean a lower minimum exists that no guess reached)
     known = distinct_states(KnownState(**dataclasses.asdict(st)) for st in sol.states)
@@ -510,7 +548,7 @@ def compute_reference(case: Case) -> Reference:
     from harness.backend.mole import pyscf_version
 
     mol = case.mole()
-    sol, known = _solve(mol, case.method)
+    sol, known = _solve(mol, case.method, case.functional)
     guess, converged, stable, rounds = sol.guess, sol.converged, sol.stable, sol.rounds
     guesses = list(sol.guesses)
 
@@ -537,6 +575,13 @@ def compute_reference(case: Case) -> Reference:
     }
     density = (reference_density(mol, sol.density)
                if sol.density is not None and sol.nao >= STORED_DENSITY_MIN_AO else None)
+    if case.functional:
+        from harness.backend.grid import libxc_version
+
+        ks = _ks_settings(case, mol)
+        provenance.update({"functional": case.functional, "libxc_version": libxc_version(),
+                           "grid_hash": ks["grid_hash"], "grid": ks["grid"],
+                           "ks_policy": KS_POLICY, "small_rho_cutoff": 0.0})
     return Reference(case=case.name, input_hash=input_hash(case), method=case.method,
                      basis=case.basis, cartesian=case.cartesian, charge=case.charge,
                      multiplicity=case.multiplicity, energy=total,
@@ -547,7 +592,8 @@ def compute_reference(case: Case) -> Reference:
                      dipole=dipole, nao=sol.nao, nmo=sol.nmo,
                      converged=converged, stable=stable, stability_rounds=rounds,
                      inputs=_inputs(case), provenance=provenance, known_states=known,
-                     density=density)
+                     density=density, functional=case.functional,
+                     energy_xc=float(terms.get("xc", 0.0)))
 
 
 # --------------------------------------------------------------------------- storage

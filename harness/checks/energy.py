@@ -15,16 +15,19 @@ from harness.contract.results import Measurement, fixed
 
 @dataclasses.dataclass(frozen=True)
 class EnergyTerms:
-    """The Hartree–Fock energy split into its terms (Eh)."""
+    """The SCF energy split into its terms (Eh): Hartree–Fock, or Kohn–Sham with
+    ``exchange`` the exact-exchange part (scaled by the functional's fraction) and ``xc``
+    the exchange–correlation energy E_xc (0 for Hartree–Fock)."""
 
     nuclear: float
     one_electron: float
     coulomb: float
     exchange: float
+    xc: float = 0.0
 
     @property
     def total(self) -> float:
-        return self.nuclear + self.one_electron + self.coulomb + self.exchange
+        return self.nuclear + self.one_electron + self.coulomb + self.exchange + self.xc
 
 
 def energy_terms(d: np.ndarray, h: np.ndarray, vj: np.ndarray, vk: np.ndarray,

@@ -11,7 +11,12 @@ import numpy as np
 from harness.contract import defaults as _defaults
 from harness.contract.errors import CaseError
 
-METHODS = ("rhf", "uhf", "rohf")
+METHODS = ("rhf", "uhf", "rohf", "rks", "uks", "roks")
+#: Kohn–Sham methods: need ``functional``; get a pinned ``grid`` (docs/kohn-sham.md).
+KS_METHODS = ("rks", "uks", "roks")
+#: The Hartree–Fock method with the same orbital structure (shapes, occupations, checks).
+HF_SHAPE = {"rhf": "rhf", "uhf": "uhf", "rohf": "rohf", "rks": "rhf", "uks": "uhf",
+            "roks": "rohf"}
 
 #: Default stationarity asked of a plug-in (``harness.contract.defaults``).
 DEFAULT_CONVERGENCE = _defaults.DEFAULT_CONVERGENCE
@@ -71,6 +76,26 @@ def build_mole(numbers, coordinates, *, charge: int, multiplicity: int, basis: s
                               basis=basis, cartesian=cartesian)
 
 
+def _check_functional(method: str, functional, name: str) -> str | None:
+    """The functional name, lower-case, checked with pyscf/libxc; None for HF methods."""
+    if method not in KS_METHODS:
+        if functional not in (None, ""):
+            raise CaseError(f"is only for Kohn–Sham methods (rks, uks, roks), got "
+                            f"{functional!r} with {method}", case=name, field="functional")
+        return None
+    if not isinstance(functional, str) or not functional.strip():
+        raise CaseError(f"{method} needs an exchange–correlation functional (a libxc name "
+                        f"as pyscf spells it, e.g. 'pbe'), got {functional!r}", case=name,
+                        field="functional")
+    from harness.backend.grid import check_functional
+
+    functional = functional.strip().lower()
+    why = check_functional(functional)
+    if why is not None:
+        raise CaseError(f"{functional!r}: {why}", case=name, field="functional")
+    return functional
+
+
 @dataclasses.dataclass(frozen=True)
 class Problem:
     """One SCF problem: a molecule, a basis, a method and the stationarity asked for.
@@ -83,11 +108,17 @@ class Problem:
         multiplicity: 2S + 1.
         basis: a basis name pyscf knows ("sto-3g", "6-31g*", "cc-pvdz").
         cartesian: True for cartesian (6D, 10F) shells, False for spherical harmonics.
-        method: "rhf", "uhf" or "rohf".
+        method: "rhf", "uhf", "rohf" (Hartree–Fock) or "rks", "uks", "roks" (Kohn–Sham;
+            shapes and occupations as for rhf, uhf, rohf).
         convergence: the stationarity the code must reach: max |X^T (F P S - S P F) X|
             with X = S^(-1/2) (see README).
         ao_labels: the AO order the harness expects (pyscf's for this basis and flag).
         initial_density: optional starting density a code may use or ignore (None).
+        functional: Kohn–Sham only: the exchange–correlation functional, a libxc name as
+            pyscf spells it ("lda,vwn", "pbe", "b3lyp", "pbe0", "wb97x"); None for HF.
+        grid: Kohn–Sham only: the pinned quadrature grid
+            (:class:`harness.contract.grid.Grid`: ``coords`` bohr (ngrid, 3), ``weights``
+            (ngrid,), ``description``, ``hash``); None for HF.
 
     Properties computed on request: ``basis_set`` (the exact basis the reference uses,
     as plain data: ``{symbol: (Shell(l, exponents, coefficients), ...)}``, see
@@ -106,12 +137,15 @@ class Problem:
     convergence: float = DEFAULT_CONVERGENCE
     ao_labels: tuple[str, ...] = ()
     initial_density: np.ndarray | None = None
+    functional: str | None = None
+    grid: object | None = None
 
     @classmethod
     def create(cls, *, name: str, numbers, coordinates, charge: int = 0,
                multiplicity: int = 1, basis: str, cartesian: bool = False,
                method: str = "rhf", convergence: float = DEFAULT_CONVERGENCE,
-               initial_density=None) -> "Problem":
+               initial_density=None, functional: str | None = None,
+               grid=None) -> "Problem":
         """Validate the inputs, compute the AO labels with pyscf, return a Problem.
 
         ``coordinates`` are in bohr. Raises ``CaseError`` naming the case and field.
@@ -145,9 +179,11 @@ class Problem:
         if (n_electrons - spin) % 2 != 0 or spin > n_electrons:
             raise CaseError(f"multiplicity {multiplicity} is impossible with {n_electrons} "
                             f"electrons", case=name, field="multiplicity")
-        if method == "rhf" and spin != 0:
-            raise CaseError(f"rhf needs a singlet, got multiplicity {multiplicity} "
-                            f"(use uhf or rohf)", case=name, field="method")
+        if method in ("rhf", "rks") and spin != 0:
+            other = "uhf or rohf" if method == "rhf" else "uks or roks"
+            raise CaseError(f"{method} needs a singlet, got multiplicity {multiplicity} "
+                            f"(use {other})", case=name, field="method")
+        functional = _check_functional(method, functional, name)
         if not (isinstance(convergence, (int, float)) and 0 < convergence < 1):
             raise CaseError(f"must be a number in (0, 1), got {convergence!r}", case=name,
                             field="convergence")
@@ -176,10 +212,27 @@ class Problem:
                             field="multiplicity")
         if initial_density is not None:
             initial_density = _frozen_array(initial_density, np.float64, "initial_density", name)
+        if functional is not None and grid is None:
+            from harness.backend.grid import pinned_grid
+
+            grid = pinned_grid(mol)
+        elif functional is None:
+            grid = None
         return cls(name=name, numbers=numbers, coordinates=coordinates, charge=int(charge),
                    multiplicity=int(multiplicity), basis=basis, cartesian=bool(cartesian),
                    method=method, convergence=float(convergence),
-                   ao_labels=tuple(mol.ao_labels()), initial_density=initial_density)
+                   ao_labels=tuple(mol.ao_labels()), initial_density=initial_density,
+                   functional=functional, grid=grid)
+
+    @property
+    def is_kohn_sham(self) -> bool:
+        return self.method in KS_METHODS
+
+    @property
+    def shape_method(self) -> str:
+        """The HF method with this method's orbital structure (rks → rhf, uks → uhf,
+        roks → rohf)."""
+        return HF_SHAPE[self.method]
 
     @property
     def n_electrons(self) -> int:
@@ -233,7 +286,8 @@ class Problem:
         return Problem.create(**fields)
 
     def __repr__(self) -> str:
-        return (f"Problem({self.name!r}, {self.method}/{self.basis}"
+        return (f"Problem({self.name!r}, {self.method}"
+                f"{'(' + self.functional + ')' if self.functional else ''}/{self.basis}"
                 f"{' cartesian' if self.cartesian else ''}, charge={self.charge}, "
                 f"multiplicity={self.multiplicity}, nao={self.nao}, "
                 f"convergence={self.convergence:g})")

@@ -16,8 +16,14 @@ import numpy as np
 
 REQUIRED_KEYS = ("energy", "coefficients", "occupations")
 OPTIONAL_ARRAY_KEYS = ("orbital_energies", "density", "fock", "overlap", "core_hamiltonian",
-                       "kinetic", "nuclear_attraction", "two_electron")
-OPTIONAL_SCALAR_KEYS = ("converged", "iterations")
+                       "kinetic", "nuclear_attraction", "two_electron", "xc_potential")
+OPTIONAL_SCALAR_KEYS = ("converged", "iterations", "xc_energy")
+#: Kohn–Sham text keys: ``functional`` (only when the code used another functional than
+#: the problem's: a failure, clearly worded) and ``grid`` (GRID_MODES).
+OPTIONAL_TEXT_KEYS = ("functional", "grid")
+#: ``grid``: "pinned" (integrated on ``problem.grid``, the default when absent) or "own"
+#: (the code's own quadrature; XC tolerances then come from a measured grid sensitivity).
+GRID_MODES = ("pinned", "own")
 #: ``history``: a list of per-iteration records (mappings or objects) with ``energy``
 #: (Eh) and ``error`` (the code's own convergence measure); extracted as an (n, 2)
 #: float array, NaN where a record lacks a field.
@@ -25,8 +31,8 @@ HISTORY_KEY = "history"
 #: ``basis``: the basis the code actually used, as NWChem-format text (or the path of a
 #: file holding it); the harness then builds the reference in exactly that basis.
 BASIS_KEY = "basis"
-KNOWN_KEYS = REQUIRED_KEYS + OPTIONAL_ARRAY_KEYS + OPTIONAL_SCALAR_KEYS + (HISTORY_KEY,
-                                                                          BASIS_KEY)
+KNOWN_KEYS = (REQUIRED_KEYS + OPTIONAL_ARRAY_KEYS + OPTIONAL_SCALAR_KEYS
+              + (HISTORY_KEY, BASIS_KEY) + OPTIONAL_TEXT_KEYS)
 
 #: Longest basis text accepted (characters); guards memory against garbage.
 MAX_BASIS_TEXT = 5_000_000
@@ -159,7 +165,20 @@ def _read_scalar(key: str, value: Any):
                 return Malformed(f"must be a count (an int ≥ 0), got {int(value)}")
             return int(value)
         return Malformed(f"must be an int, got {type(value).__name__}")
-    return _read_number(value)  # energy
+    return _read_number(value)  # energy, xc_energy
+
+
+def _read_text(key: str, value: Any):
+    if isinstance(value, bytes):
+        value = value.decode("utf-8", "replace")
+    if isinstance(value, np.ndarray) and value.ndim == 0 and value.dtype.kind in "US":
+        value = str(value)
+    if not isinstance(value, str) or not value.strip():
+        return Malformed(f"must be a non-empty string, got {type(value).__name__}")
+    text = value.strip().lower()
+    if key == "grid" and text not in GRID_MODES:
+        return Malformed(f"must be one of {', '.join(GRID_MODES)}, got {value!r}")
+    return text
 
 
 def _read_history(value: Any):
@@ -210,6 +229,9 @@ class Solution:
     chemists' notation (ij|kl); ``converged``; ``iterations``; ``history`` an (n, 2)
     array of (energy, error) per iteration, NaN where a record lacks a field;
     ``basis`` the NWChem-format text of the basis the code used (a str).
+    Kohn–Sham: ``xc_energy`` E_xc (Eh); ``xc_potential`` V_xc like ``fock``;
+    ``functional`` (lower-case; given only when it differs from the problem's);
+    ``grid`` "pinned" or "own".
     Frozen and free of plug-in objects, so it crosses processes as plain data
     (:meth:`as_dict` / :meth:`from_dict`).
     """
@@ -225,10 +247,14 @@ class Solution:
     kinetic: Value = None
     nuclear_attraction: Value = None
     two_electron: Value = None
+    xc_potential: Value = None
     converged: Value = None
     iterations: Value = None
+    xc_energy: Value = None
     history: Value = None
     basis: Value = None
+    functional: Value = None
+    grid: Value = None
 
     def as_dict(self) -> dict[str, Any]:
         """The given fields as ``{key: value}`` (absent ones left out)."""
@@ -282,8 +308,10 @@ def extract(raw: Any) -> Solution:
             out[key] = Malformed("is None: leave out a key you have no value for (None is "
                                  "not read as absent)")
             continue
-        if key in ("converged", "iterations", "energy"):
+        if key in ("converged", "iterations", "energy", "xc_energy"):
             out[key] = _read_scalar(key, value)
+        elif key in OPTIONAL_TEXT_KEYS:
+            out[key] = _read_text(key, value)
         elif key == HISTORY_KEY:
             out[key] = _read_history(value)
         elif key == BASIS_KEY:

@@ -82,6 +82,8 @@ GEOMETRY_FILE = "geometry.xyz"
 BASIS_FILE = "basis.nwchem"
 AO_ORDER_FILE = "ao_order.txt"
 INITIAL_DENSITY_FILE = "initial_density.npy"
+#: Kohn–Sham cases: the pinned grid, ``coords`` (ngrid, 3) bohr and ``weights`` (ngrid,).
+GRID_FILE = "grid.npz"
 STDOUT_FILE = "stdout.log"
 STDERR_FILE = "stderr.log"
 #: A command that cannot run a case (a basis, element or method it does not have) says
@@ -104,6 +106,7 @@ SOLUTION_CANDIDATES = ("solution.molden", "solution.npz", "solution.json", "solu
 #: Files of the scratch directory a command may name relatively (they are never made
 #: absolute against the start directory).
 SCRATCH_NAMES = (PROBLEM_FILE, GEOMETRY_FILE, BASIS_FILE, AO_ORDER_FILE, INITIAL_DENSITY_FILE,
+                 GRID_FILE,
                  STDOUT_FILE, STDERR_FILE, UNSUPPORTED_FILE) + SOLUTION_CANDIDATES
 #: Placeholders a template may use.
 PLACEHOLDERS = ("problem", "solution", "geometry", "basis", "ao_order", "dir")
@@ -175,11 +178,21 @@ def problem_document(problem, *, solution: str = DEFAULT_SOLUTION) -> dict[str, 
     (``{"length": "bohr", "energy": "hartree"}``) and ``files`` (names relative to this
     file's directory: geometry, basis, ao_order, solution, and initial_density when the
     problem has one). Floats are written at full precision.
+
+    Kohn–Sham problems add ``functional`` (libxc name as pyscf spells it) and ``grid``
+    (``{"description": ..., "hash": ..., "points": ngrid}``), and ``files.grid`` names
+    ``grid.npz`` (arrays ``coords`` (ngrid, 3) in bohr and ``weights`` (ngrid,)).
     """
     files = {"geometry": GEOMETRY_FILE, "basis": BASIS_FILE, "ao_order": AO_ORDER_FILE,
              "solution": solution}
     if problem.initial_density is not None:
         files["initial_density"] = INITIAL_DENSITY_FILE
+    ks = {}
+    if getattr(problem, "functional", None):
+        files["grid"] = GRID_FILE
+        ks = {"functional": problem.functional,
+              "grid": {"description": dict(problem.grid.description),
+                       "hash": problem.grid.hash, "points": int(problem.grid.size)}}
     return {
         "format": PROBLEM_FORMAT,
         "name": problem.name,
@@ -198,6 +211,7 @@ def problem_document(problem, *, solution: str = DEFAULT_SOLUTION) -> dict[str, 
         "ao_labels": [" ".join(label.split()) for label in problem.ao_labels],
         "units": {"length": "bohr", "energy": "hartree"},
         "files": files,
+        **ks,
     }
 
 
@@ -228,6 +242,9 @@ def write_inputs(problem, directory, *, solution: str = DEFAULT_SOLUTION) -> dic
     (directory / AO_ORDER_FILE).write_text("\n".join(doc["ao_labels"]) + "\n", encoding="utf-8")
     if problem.initial_density is not None:
         np.save(directory / INITIAL_DENSITY_FILE, np.asarray(problem.initial_density))
+    if getattr(problem, "grid", None) is not None:
+        np.savez(directory / GRID_FILE, coords=np.asarray(problem.grid.coords),
+                 weights=np.asarray(problem.grid.weights))
     return {"problem": directory / PROBLEM_FILE, "geometry": directory / GEOMETRY_FILE,
             "basis": directory / BASIS_FILE, "ao_order": directory / AO_ORDER_FILE,
             "dir": directory}

@@ -46,6 +46,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from harness.contract.errors import CaseError, HarnessError
+from harness.contract.solution import OPTIONAL_TEXT_KEYS
 from harness.contract.solution import (HISTORY_KEY, KNOWN_KEYS, MAX_ARRAY_ELEMENTS, READABLE_KINDS,
                               REQUIRED_KEYS, extract)
 
@@ -72,7 +73,10 @@ MOLDEN_ELECTRON_COUNT_TOLERANCE = 1e-6
 #: largest float64 (1.8e308, 309 digits), so it cannot be a number the harness reads.
 MAX_JSON_INT_DIGITS = len(str(int(sys.float_info.max)))
 
-SCALAR_KEYS = ("energy", "converged", "iterations")
+SCALAR_KEYS = ("energy", "converged", "iterations", "xc_energy")
+#: Keys holding text (Kohn–Sham ``functional`` and ``grid``): a string in JSON, a 0-d
+#: string array in npz, a string dataset or attribute in HDF5.
+TEXT_KEYS = OPTIONAL_TEXT_KEYS
 _SPHERICAL_TAGS = ("[5D]", "[5D7F]", "[5D10F]", "[7F]", "[9G]")
 _CARTESIAN_TAGS = ("[6D]", "[6D10F]", "[10F]", "[15G]")
 
@@ -90,7 +94,10 @@ class SolutionFileError(HarnessError):
 
 
 def _numeric(name: str, key: str, arr: np.ndarray):
-    """A numeric array from a file (0-d arrays of scalar keys become Python scalars)."""
+    """A numeric array from a file (0-d arrays of scalar keys become Python scalars;
+    text keys become str)."""
+    if key in TEXT_KEYS:
+        return _text(name, key, arr)
     if arr.dtype.hasobject:
         raise SolutionFileError("is an object array (pickled Python objects are refused)",
                                 file=name, key=key)
@@ -110,6 +117,21 @@ def _numeric(name: str, key: str, arr: np.ndarray):
                                     f"{arr.shape}", file=name, key=key)
         return [{"energy": float(e), "error": float(g)} for e, g in arr]
     return arr
+
+
+def _text(name: str, key: str, value) -> str:
+    """A text key's value from a file: one string."""
+    if isinstance(value, np.ndarray):
+        if value.size != 1 or value.dtype.kind not in "USO":
+            raise SolutionFileError(f"must be one string, got {value.dtype} array of shape "
+                                    f"{value.shape}", file=name, key=key)
+        value = value.reshape(()).item()
+    if isinstance(value, bytes):
+        value = value.decode("utf-8", "replace")
+    if not isinstance(value, str):
+        raise SolutionFileError(f"must be a string, got {type(value).__name__}", file=name,
+                                key=key)
+    return value
 
 
 def _check_required(name: str, out: Mapping[str, Any], found) -> None:
@@ -189,7 +211,8 @@ def read_npz(path) -> dict[str, Any]:
                 raise SolutionFileError(f"declares shape {tuple(shape)} ({size} elements), "
                                         f"more than the limit {MAX_ARRAY_ELEMENTS}",
                                         file=name, key=key)
-            if dtype.kind not in READABLE_KINDS:
+            if dtype.kind not in READABLE_KINDS and not (key in TEXT_KEYS
+                                                         and dtype.kind in "US"):
                 raise SolutionFileError(f"has dtype {dtype}, not a number", file=name, key=key)
             try:
                 with archive.open(info) as fp:
@@ -271,6 +294,13 @@ def _json_value(name: str, key: str, value):
         return float(value)
     if key == HISTORY_KEY:
         return _json_history(name, value)
+    if key in TEXT_KEYS:
+        return _text(name, key, value)
+    if key == "xc_energy":
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise SolutionFileError(f"must be a number, got {_json_kind(value)}",
+                                    file=name, key=key)
+        return float(value)
     if not isinstance(value, list):
         raise SolutionFileError(f"must be a (nested) list of numbers, got "
                                 f"{_json_kind(value)}", file=name, key=key)
@@ -407,6 +437,9 @@ def read_h5(path) -> dict[str, Any]:
                         f"a {type(obj).__name__.lower()}"
                     raise SolutionFileError(f"is {kind}, not a dataset", file=name, key=key)
                 _h5_own_data(name, key, obj)
+                if key in TEXT_KEYS:
+                    out[key] = _text(name, key, np.asarray(obj[()]))
+                    continue
                 if obj.dtype.kind not in READABLE_KINDS:
                     raise SolutionFileError(f"has dtype {obj.dtype}, not a number",
                                             file=name, key=key)
@@ -421,6 +454,8 @@ def read_h5(path) -> dict[str, Any]:
                     raise SolutionFileError(f"is unreadable ({str(exc).splitlines()[0][:80]})",
                                             file=name, key=key) from None
                 out[key] = _numeric(name, key, value)
+            elif key in TEXT_KEYS and key in handle.attrs:
+                out[key] = _text(name, key, handle.attrs[key])
             elif key in SCALAR_KEYS and key in handle.attrs:
                 out[key] = _numeric(name, key, np.asarray(handle.attrs[key]))
     _check_required(name, out, found)

@@ -1,4 +1,5 @@
-"""The bundled example SCF code: a lab's in-house Hartree–Fock program (RHF, UHF, ROHF).
+"""The bundled example SCF code: a lab's in-house SCF program (RHF, UHF, ROHF; Kohn–Sham
+RKS, UKS, ROKS).
 
 Scenario: a research group has written its own SCF code and wants its numbers checked
 before they go into a paper. This module is that code. It is written independently of
@@ -6,7 +7,10 @@ the harness checks (it imports nothing from ``harness.checks``) and uses pyscf f
 thing only: the integrals over the basis functions (overlap, kinetic, nuclear
 attraction, electron repulsion) and the nuclear repulsion energy. Everything else — the
 Fock matrices, the generalised eigenproblem, the guess, DIIS, the ROHF effective Fock,
-the convergence measure — is numpy/scipy below.
+the convergence measure — is numpy/scipy below. Kohn–Sham: pyscf (through
+``harness.backend.grid.XCEvaluator``) also evaluates the functional — E_xc and V_xc of a
+density — on the problem's pinned grid (``problem.grid``), or on a pyscf grid of another
+level in own-grid mode (:func:`solve_own_grid`); the SCF loop stays this code's.
 
 Atomic units throughout: coordinates in bohr, energies and Fock matrices in hartree (Eh).
 
@@ -165,9 +169,13 @@ class LabSCF:
     max_iterations = MAX_ITERATIONS
     diis_size = DIIS_SIZE
 
-    def __init__(self, problem, integrals: Integrals | None = None):
+    def __init__(self, problem, integrals: Integrals | None = None,
+                 grid_level: int | None = None):
         self.problem = problem
-        self.method = problem.method
+        self.ks = bool(getattr(problem, "functional", None))
+        # Kohn–Sham methods share the orbital structure of rhf/uhf/rohf
+        self.method = problem.shape_method if self.ks else problem.method
+        self.grid_level = grid_level
         self.n_alpha = problem.n_alpha
         self.n_beta = problem.n_beta
         self.ints = integrals if integrals is not None else compute_integrals(problem)
@@ -175,6 +183,15 @@ class LabSCF:
         self.h = self.core_hamiltonian()
         self.x = canonical_orthogonaliser(self.s)
         self.s_half, self.s_inv_half, self.identity = lowdin_powers(self.s)
+        self.xc = self.eri_lr = None
+        if self.ks:
+            from harness.backend.grid import XCEvaluator, long_range_eri
+
+            self.xc = XCEvaluator(problem, level=grid_level)
+            cx = self.xc.coefficients
+            if cx.omega != 0.0 and cx.alpha != cx.hyb:
+                self.eri_lr = long_range_eri(problem, cx.omega)
+        self._ks_cache = None
 
     # -- Fock matrix and energy ---------------------------------------------------------
 
@@ -186,8 +203,35 @@ class LabSCF:
         """(J(P), K(P)) for one density P (nao, nao); see :func:`coulomb`, :func:`exchange`."""
         return coulomb(self.ints.eri, d), exchange(self.ints.eri, d)
 
+    def exact_exchange(self, d: np.ndarray) -> np.ndarray:
+        """Kohn–Sham K_eff = hyb·K + (alpha − hyb)·K_lr(ω) of one density (pyscf's
+        convention for the functional's exact-exchange coefficients)."""
+        cx = self.xc.coefficients
+        k = cx.hyb * exchange(self.ints.eri, d) if cx.hyb else np.zeros_like(d)
+        if self.eri_lr is not None:
+            k = k + (cx.alpha - cx.hyb) * exchange(self.eri_lr, d)
+        return k
+
+    def ks_parts(self, d: np.ndarray):
+        """(J, K_eff per component, E_xc, V_xc) of a Kohn–Sham density, the last one
+        cached (the energy reuses the Fock build's parts)."""
+        if self._ks_cache is not None and self._ks_cache[0] is d:
+            return self._ks_cache[1]
+        comps = d[None] if self.method == "rhf" else d
+        j = coulomb(self.ints.eri, comps.sum(axis=0))
+        k = np.stack([self.exact_exchange(x) for x in comps])
+        exc, vxc = self.xc(comps)
+        self._ks_cache = (d, (j, k, exc, vxc))
+        return j, k, exc, vxc
+
     def fock(self, d: np.ndarray) -> np.ndarray:
-        """RHF: F = H + J(P) − ½K(P). UHF/ROHF: Fσ = H + J(Pα+Pβ) − K(Pσ), as (2, nao, nao)."""
+        """RHF: F = H + J(P) − ½K(P). UHF/ROHF: Fσ = H + J(Pα+Pβ) − K(Pσ), as (2, nao, nao).
+        Kohn–Sham: K → K_eff, plus V_xc (RKS: F = H + J − ½K_eff + V_xc)."""
+        if self.ks:
+            j, k, _, vxc = self.ks_parts(d)
+            if self.method == "rhf":
+                return self.h + j - 0.5 * k[0] + vxc[0]
+            return np.stack([self.h + j - k[s] + vxc[s] for s in (0, 1)])
         if self.method == "rhf":
             j, k = self.coulomb_exchange(d)
             return self.h + j - 0.5 * k
@@ -196,7 +240,16 @@ class LabSCF:
         return np.stack([self.h + ja + jb - ka, self.h + ja + jb - kb])
 
     def energy(self, d: np.ndarray, f: np.ndarray) -> float:
-        """E = ½ Tr[P(H + F)] + E_nuc (RHF); ½ Σσ Tr[Pσ(H + Fσ)] + E_nuc (UHF/ROHF), Eh."""
+        """E = ½ Tr[P(H + F)] + E_nuc (RHF); ½ Σσ Tr[Pσ(H + Fσ)] + E_nuc (UHF/ROHF), Eh.
+        Kohn–Sham: E = Tr(PH) + ½Tr(PJ) − ¼Tr(P K_eff) (RKS; −½ Σσ Tr(Pσ K_eff,σ)) + E_xc
+        + E_nuc."""
+        if self.ks:
+            j, k, exc, _ = self.ks_parts(d)
+            comps = d[None] if self.method == "rhf" else d
+            p = comps.sum(axis=0)
+            ek = -0.25 * np.sum(p * k[0]) if self.method == "rhf" else \
+                -0.5 * sum(np.sum(x * y) for x, y in zip(comps, k))
+            return float(np.sum(p * self.h) + 0.5 * np.sum(p * j) + ek + exc) + self.ints.e_nuc
         if self.method == "rhf":
             e_el = 0.5 * np.sum(d * (self.h + f))
         else:
@@ -417,7 +470,18 @@ class LabSCF:
         return self.report(e, c, occ, d, f, converged, iterations)
 
     def report(self, e, c, occ, d, f, converged: bool, iterations: int) -> dict:
-        """The plug-in dict: energy (Eh, incl. E_nuc), orbitals, density, Fock, S, H, flags."""
+        """The plug-in dict: energy (Eh, incl. E_nuc), orbitals, density, Fock, S, H, flags
+        (Kohn–Sham also E_xc, V_xc and, on its own grid, ``grid = "own"``)."""
+        out = self._report(e, c, occ, d, f, converged, iterations)
+        if self.ks:
+            _, _, exc, vxc = self.ks_parts(d)
+            out["xc_energy"] = exc
+            out["xc_potential"] = vxc[0] if self.method == "rhf" else vxc
+            if self.grid_level is not None:
+                out["grid"] = "own"
+        return out
+
+    def _report(self, e, c, occ, d, f, converged: bool, iterations: int) -> dict:
         return {
             "energy": self.energy(d, f),
             "coefficients": c,
@@ -442,3 +506,14 @@ def solve(problem) -> dict:
     ``core_hamiltonian``, ``converged`` and ``iterations`` (number of Fock builds).
     """
     return LabSCF(problem).iterate()
+
+
+#: Own-grid mode of the example code: pyscf's grid level 2 (coarser than the pinned
+#: level 3; the harness then derives its XC tolerances from a measured grid sensitivity).
+OWN_GRID_LEVEL = 2
+
+
+def solve_own_grid(problem, level: int = OWN_GRID_LEVEL) -> dict:
+    """:func:`solve` integrating the functional on a pyscf grid of ``level`` instead of
+    ``problem.grid``; the solution says ``grid = "own"``."""
+    return LabSCF(problem, grid_level=level).iterate()

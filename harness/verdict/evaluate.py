@@ -26,6 +26,7 @@ from harness.verdict import states as _stability
 from harness.verdict.states import state_hint
 from harness.verdict.diagnosis import diagnose
 from harness.verdict.coulomb import coulomb_exchange
+from harness.verdict import xc as _xc
 from harness.verdict.conventions import CONVENTION_MATCH, BasisMismatch, detect_convention
 from harness.verdict.conventions import named_convention, rescaling
 from harness.contract.errors import HarnessError
@@ -119,11 +120,12 @@ def evaluate(problem: Problem, extracted: Solution, reference=None,
              integrals: AOIntegrals | None = None, *,
              ao_convention: str | None = None,
              stability: str = DEFAULT_STABILITY,
-             basis_note: str | None = None) -> tuple[CheckResult, ...]:
+             basis_note: str | None = None,
+             grid: str | None = None) -> tuple[CheckResult, ...]:
     """All checks of one case (see :func:`evaluate_case`); the checks only."""
     return evaluate_case(problem, extracted, reference, tolerances, integrals,
                          ao_convention=ao_convention, stability=stability,
-                         basis_note=basis_note).checks
+                         basis_note=basis_note, grid=grid).checks
 
 
 def evaluate_case(problem: Problem, extracted: Solution, reference=None,
@@ -131,7 +133,8 @@ def evaluate_case(problem: Problem, extracted: Solution, reference=None,
                   integrals: AOIntegrals | None = None, *,
                   ao_convention: str | None = None,
                   stability: str = DEFAULT_STABILITY,
-                  basis_note: str | None = None) -> Verdict:
+                  basis_note: str | None = None,
+                  grid: str | None = None) -> Verdict:
     """All checks of one case, with hints on failures.
 
     ``reference`` (a ``harness.catalogue.references.Reference``) may be None, then
@@ -139,7 +142,9 @@ def evaluate_case(problem: Problem, extracted: Solution, reference=None,
     (``harness.verdict.conventions.NAMED``) when it reports no overlap. ``stability``: "internal"
     (default), "external" (RHF→UHF too) or "off". ``basis_note``: set when the code's
     own basis is judged (``integrals`` and ``reference`` are then in it); the basis check
-    says so. Energies in Eh.
+    says so. ``grid``: Kohn–Sham only, "own" when the code integrated on its own grid
+    (also said by the solution's ``grid`` key; see ``harness.verdict.xc``), else the
+    pinned grid is assumed. Energies in Eh.
     """
     if stability not in STABILITY_MODES:
         raise HarnessError(f"must be one of {', '.join(STABILITY_MODES)}, got {stability!r}",
@@ -148,16 +153,17 @@ def evaluate_case(problem: Problem, extracted: Solution, reference=None,
     # numpy's RuntimeWarnings about the same values would only clutter the terminal.
     with np.errstate(all="ignore"):
         checks, analysis = _evaluate(problem, extracted, reference, tolerances, integrals,
-                                     ao_convention, stability)
+                                     ao_convention, stability, grid)
     if basis_note:
         checks = _noted_basis(checks, basis_note, problem.name)
     return Verdict(checks=checks, analysis=analysis)
 
 
-def _evaluate(problem, extracted, reference, tolerances, integrals, ao_convention, stability):
+def _evaluate(problem, extracted, reference, tolerances, integrals, ao_convention, stability,
+              grid_mode=None):
     tol = tolerances or Tolerances()
     case = problem.name
-    method = problem.method
+    method = problem.shape_method  # rks/uks/roks have the shapes of rhf/uhf/rohf
 
     def verdict(name, measurement):
         return judge(name, measurement, tol.for_check(name, problem.convergence), case)
@@ -170,6 +176,7 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
 
     problems = well_formed(sol, len(ints.labels), method, problem.n_alpha, problem.n_beta,
                           symmetry=tol.for_check("well-formed", problem.convergence))
+    problems = list(problems) + _xc.ks_contract_problems(problem, sol)
     if problems:
         more = f" (and {len(problems) - 1} more: {'; '.join(problems[1:])})" if len(problems) > 1 else ""
         head = failed("well-formed", f"well-formed: {problems[0]} ({case}){more}",
@@ -218,14 +225,29 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
                           energy_tolerance=tol.for_check("energy-consistency",
                                                          problem.convergence))
     vj, vk = jk.j_total, jk.k
-    rebuilt = _energy.fock_from_terms(ints.h, vj, vk, len(d))
-    if jk.route == "difference":
-        ref_terms = _energy.energy_terms_from_difference(d, jk.d_ref, ints.h, jk.j_ref,
-                                                         jk.k_ref, jk.j_diff, jk.k_diff,
-                                                         ints.e_nuc)
+    if problem.is_kohn_sham:
+        # F = H + J − c_x K (+ long range) + V_xc[P] on the pinned grid (harness.verdict.xc)
+        rebuilt, terms, xc = _xc.fock_and_energy_terms(problem, d, ints, vj, vk)
+        own_fock = rebuilt
     else:
-        ref_terms = _energy.energy_terms(d, ints.h, vj, vk, ints.e_nuc)
-    own_fock, terms = _energy_integrals(sol, ints, d, vj, vk, ref_terms)
+        xc = None
+        rebuilt = _energy.fock_from_terms(ints.h, vj, vk, len(d))
+        if jk.route == "difference":
+            ref_terms = _energy.energy_terms_from_difference(d, jk.d_ref, ints.h, jk.j_ref,
+                                                             jk.k_ref, jk.j_diff, jk.k_diff,
+                                                             ints.e_nuc)
+        else:
+            ref_terms = _energy.energy_terms(d, ints.h, vj, vk, ints.e_nuc)
+        own_fock, terms = _energy_integrals(sol, ints, d, vj, vk, ref_terms)
+    xc_tol = _xc_tolerances(problem, sol, ints, d, xc, tol, grid_mode, low, labels)
+
+    def xc_verdict(name, measurement):
+        """A check whose size depends on the XC quadrature: own-grid tolerance if any."""
+        if name not in xc_tol:
+            return verdict(name, measurement)
+        tolerance, words = xc_tol[name]
+        result = judge(name, measurement, tolerance, case)
+        return dataclasses.replace(result, message=f"{result.message} [{words}]")
 
     def stationarity(f):
         if method == "rohf":
@@ -237,7 +259,7 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
                                           stationarity(fock_by_spin(method, sol.fock)))
     else:
         results["stationarity"] = not_applicable("stationarity", "no 'fock' key", case)
-    results["self-consistency"] = verdict("self-consistency", stationarity(own_fock))
+    results["self-consistency"] = xc_verdict("self-consistency", stationarity(own_fock))
 
     if method == "rohf":
         results["roothaan-hall"] = not_applicable(
@@ -250,10 +272,10 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
         results["roothaan-hall"] = not_applicable("roothaan-hall", "no 'orbital_energies' key",
                                                   case)
 
-    results["energy-consistency"] = verdict("energy-consistency",
-                                            _energy.energy_consistency(sol.energy, terms))
+    results["energy-consistency"] = xc_verdict("energy-consistency",
+                                               _energy.energy_consistency(sol.energy, terms))
     if reference is not None:
-        results["reference-energy"] = verdict("reference-energy", _energy.reference_energy(
+        results["reference-energy"] = xc_verdict("reference-energy", _energy.reference_energy(
             sol.energy, float(reference.energy)))
     else:
         results["reference-energy"] = not_applicable("reference-energy", "no reference", case)
@@ -280,7 +302,8 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
         energy_step=tol.overrides.get("history"))
 
     analysis: dict = {}
-    if any(r.status is Status.FAILED for r in results.values()):
+    # the same-density analysis is Hartree–Fock's; Kohn–Sham hints are not built yet
+    if not problem.is_kohn_sham and any(r.status is Status.FAILED for r in results.values()):
         diagnosis = diagnose(problem, sol, ints, d, results, reference=reference,
                              jk=(jk.j, vk))
         analysis = dict(diagnosis.analysis)
@@ -411,6 +434,35 @@ def _explained_hint(sol, ints, at, reference, results) -> str | None:
     gap = float(sol.energy) - float(reference.energy)
     return (f"of E − E_ref = {gap:+.1e} Eh your integrals explain {explained:+.1e} Eh "
             f"(first order at your density), the rest is {gap - explained:+.1e} Eh")
+def _xc_tolerances(problem, sol, ints, d, xc, tol: Tolerances, grid_mode, low, labels
+                   ) -> dict[str, tuple[float, str]]:
+    """Own-grid mode (``grid="own"`` or the solution's ``grid`` key): {check: (tolerance,
+    where it came from)} for the XC-dependent checks, max(named tolerance, GRID_SAFETY ×
+    measured grid sensitivity) (``harness.verdict.xc``). Empty in pinned mode, for HF,
+    and for a check whose tolerance the user overrode."""
+    if not problem.is_kohn_sham or "own" not in (grid_mode, sol.grid):
+        return {}
+    conv = problem.convergence
+    sens = _xc.grid_sensitivity(problem, ints, d, xc)
+    if problem.shape_method == "rohf":
+        dv = _stat.rohf_conditions(sens.potential, d, low, labels).value
+    else:
+        dv = _stat.commutator(sens.potential, d, ints.s, low, labels).value
+    out = {}
+    for name, size, what in (
+            ("self-consistency", dv, f"max|X(ΔV_xc P S − S P ΔV_xc)X| = {dv:.1e}"),
+            ("energy-consistency", sens.energy, f"|ΔE_xc| = {sens.energy:.1e} Eh"),
+            ("reference-energy", sens.energy, f"|ΔE_xc| = {sens.energy:.1e} Eh")):
+        if name in tol.overrides:
+            continue
+        named = tol.for_check(name, conv)
+        derived = _xc.GRID_SAFETY * float(size)
+        if derived > named:
+            out[name] = (derived, sens.words(what))
+        else:
+            out[name] = (named, f"own grid: the named tolerance, larger than "
+                                f"{_xc.GRID_SAFETY:g} × {what}")
+    return out
 
 
 def _state_checks(problem, sol, reference, ints, tol: Tolerances, mode: str, d, fock):
@@ -418,6 +470,17 @@ def _state_checks(problem, sol, reference, ints, tol: Tolerances, mode: str, d, 
     tolerance overrides applied."""
     conv = problem.convergence
     out = {}
+    if problem.is_kohn_sham:
+        # the orbital-Hessian analyses of harness.verdict.states are Hartree–Fock's
+        why = "the orbital-Hessian analysis is built for Hartree–Fock only (not yet for " \
+              "Kohn–Sham)"
+        out["stability"] = not_applicable("stability", why, problem.name)
+        shaped = dataclasses.replace(problem, method=problem.shape_method, functional=None,
+                                     grid=None)
+        out["spin-squared"] = _stability.spin_check(
+            shaped, sol, ints, reference, tolerance=tol.overrides.get("spin-squared"))
+        out["energy-error-bound"] = not_applicable("energy-error-bound", why, problem.name)
+        return out
     out["stability"] = _stability.stability_check(
         problem, sol, ints, mode=mode, threshold=tol.for_check("stability", conv))
     # None unless overridden: spin_check picks the UHF or the ROHF bound itself

@@ -36,6 +36,9 @@ class JudgeSettings:
     plug-in's own run time (s), recorded in the result. ``basis_source``: "pyscf"
     (named bases from pyscf's copies) or "bse" (from the basis_set_exchange library: the
     reference is then built and computed from its data, its version recorded).
+    ``grid``: Kohn–Sham only,
+    "own" when the code integrated on its own quadrature grid (XC tolerances then come
+    from a measured grid sensitivity, ``harness.verdict.xc``); None/"pinned" otherwise.
     """
 
     tolerances: object = None
@@ -45,6 +48,7 @@ class JudgeSettings:
     reference_error: str | None = None
     plugin_seconds: float | None = None
     basis_source: str = "pyscf"
+    grid: str | None = None
 
 
 def _evaluate(problem, solution, reference, settings: JudgeSettings, integrals=None):
@@ -55,7 +59,7 @@ def _evaluate(problem, solution, reference, settings: JudgeSettings, integrals=N
                                                          integrals, settings.basis_source)
     return evaluate_case(problem, solution, reference, settings.tolerances, integrals,
                          ao_convention=settings.ao_convention, stability=settings.stability,
-                         basis_note=note)
+                         basis_note=note, grid=settings.grid)
 
 
 def _in_own_basis(problem, solution: Solution, reference, integrals, source="pyscf"):

@@ -85,7 +85,11 @@ def test_open_shell_cases_present(catalogue):
 def test_case_ids_carry_basis_and_method(catalogue):
     token = {"6-31g*": "6-31gd", "6-31+g*": "6-31+gd"}
     for c in catalogue.cases:
-        assert c.name.endswith(f"-{token.get(c.basis, c.basis)}-{c.method}"), c.name
+        stem = f"-{token.get(c.basis, c.basis)}-{c.method}"
+        if c.functional:  # Kohn–Sham: the functional's token follows the method
+            assert f"{stem}-" in c.name, c.name
+        else:
+            assert c.name.endswith(stem), c.name
         assert c.id == c.name
 
 
@@ -136,7 +140,7 @@ def test_unknown_suite_and_case_list_names(catalogue):
     assert str(err.value) == "suite: unknown suite 'smok' (closest: smoke)"
     with pytest.raises(CaseError) as err:
         catalogue.suite("zzz")
-    assert str(err.value) == "suite: unknown suite 'zzz' (known: smoke, standard, states, atoms)"
+    assert str(err.value) == "suite: unknown suite 'zzz' (known: smoke, standard, states, atoms, dft)"
     with pytest.raises(CaseError) as err:
         catalogue.case("water-ccpvdz-rhf")
     assert str(err.value).startswith("case: unknown case 'water-ccpvdz-rhf' (closest: "
@@ -265,7 +269,7 @@ def _one_case(**fields) -> str:
 @pytest.mark.parametrize("fields, message", [
     ({"basis": None}, "case 'x': basis: missing"),
     ({"name": None}, "case #1: name: missing"),
-    ({"method": '"dft"'}, "case 'x': method: must be one of rhf, uhf, rohf, got 'dft'"),
+    ({"method": '"dft"'}, "case 'x': method: must be one of rhf, uhf, rohf, rks, uks, roks, got 'dft'"),
     ({"charge": '"0"'}, "case 'x': charge: must be an integer, got '0'"),
     ({"charge": "true"}, "case 'x': charge: must be an integer, got True"),
     ({"cartesian": '"yes"'}, "case 'x': cartesian: must be true or false, got 'yes'"),

@@ -354,7 +354,7 @@ class TestCheckResult:
         xyz.write_text("2\nH2 units=bohr\nH 0 0 0\nH 0 0 1.4\n")
         with pytest.raises(CaseError) as err:
             check_result(tmp_path / "s.npz", geometry=xyz, basis="sto-3g", method="mp2")
-        assert str(err.value) == "h2-sto-3g-mp2: method: must be one of rhf, uhf, rohf, got 'mp2'"
+        assert str(err.value) == "h2-sto-3g-mp2: method: must be one of rhf, uhf, rohf, rks, uks, roks, got 'mp2'"
 
     def test_errors_are_harness_errors(self):
         assert issubclass(SolutionFileError, HarnessError)
