@@ -37,8 +37,12 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from harness.contract.solution import (HISTORY_KEY, KNOWN_KEYS, MAX_ARRAY_ELEMENTS,
-                                       MAX_HISTORY, Malformed)
+from harness.contract.solution import (BASIS_KEY, HISTORY_KEY, KNOWN_KEYS,
+                                       MAX_ARRAY_ELEMENTS, MAX_BASIS_TEXT, MAX_HISTORY,
+                                       OPTIONAL_TEXT_KEYS, Malformed)
+
+#: Solution keys whose value is text (the basis, the functional, the grid mode).
+TEXT_KEYS = (BASIS_KEY,) + OPTIONAL_TEXT_KEYS
 
 #: First bytes of every message (a pickle starts with b"\x80"; this never does).
 MAGIC = b"SCFHMSG1"
@@ -279,8 +283,10 @@ def _check_solution(solution) -> None:
         if isinstance(value, Malformed):
             continue
         where = f"solution key {key!r}"
-        if key == "energy":
+        if key in ("energy", "xc_energy"):
             ok = isinstance(value, float)
+        elif key in TEXT_KEYS:
+            ok = isinstance(value, str) and len(value) <= MAX_BASIS_TEXT
         elif key == "converged":
             ok = isinstance(value, bool)
         elif key == "iterations":

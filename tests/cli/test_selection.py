@@ -132,8 +132,8 @@ def test_cases_lists_what_certify_would_run(capsys, args):
 
 
 def test_certify_runs_a_pattern_selection(capsys):
-    code = main(["certify", "--case", "h2-sto-*", "--basis", "STO-3G", "--stability", "off",
-                 "--quiet"])
+    code = main(["certify", "--case", "h2-sto-*", "--basis", "STO-3G", "--method", "rhf",
+                 "--stability", "off", "--quiet"])
     out = capsys.readouterr().out
     assert code == 0, out
     assert out.splitlines()[-1] == "1 passed, 0 failed"

@@ -26,7 +26,12 @@ from harness.testing.planted.orientation import (abs_nuclear_repulsion,
                                          nuclear_repulsion_from_abs_coordinates)
 
 CATALOGUE = load_catalogue()
-STO3G = [c for c in CATALOGUE.cases if c.basis == "sto-3g"]
+#: Hartree–Fock only: a Kohn–Sham energy on an atom-centred quadrature grid is not exactly
+#: invariant under rotation (the angular points do not turn with the molecule; measured
+#: 7.1e-7 Eh for CH2 UKS/PBE0 STO-3G rotated by 1 rad), so rigid motion would need a
+#: grid-derived tolerance there (docs/kohn-sham.md).
+STO3G = [c for c in CATALOGUE.cases if c.basis == "sto-3g"
+         and c.method in ("rhf", "uhf", "rohf")]
 #: The closed-shell ones: the pool of the shrinking test below (its smallest three-atom
 #: member is water).
 CLOSED = [c for c in STO3G if c.method == "rhf"]

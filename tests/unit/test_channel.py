@@ -22,8 +22,9 @@ from harness.contract.solution import KNOWN_KEYS, MAX_ARRAY_ELEMENTS, Malformed,
 from harness.run import channel
 from harness.run.channel import ChannelError, decode, encode
 
+TEXT_KEYS = ("basis", "functional", "grid")
 ARRAY_KEYS = [k for k in KNOWN_KEYS if k not in ("energy", "converged", "iterations",
-                                                   "history")]
+                                                   "history", "xc_energy") + TEXT_KEYS]
 
 
 def raw(header: dict, *buffers: bytes) -> bytes:
@@ -55,6 +56,8 @@ arrays = hnp.arrays(np.float64, hnp.array_shapes(min_dims=1, max_dims=4, max_sid
 malformed = st.builds(Malformed, st.text(max_size=30))
 solutions = st.fixed_dictionaries({}, optional={
     "energy": st.one_of(floats, malformed),
+    "xc_energy": st.one_of(floats, malformed),
+    **{k: st.one_of(st.text(max_size=40), malformed) for k in TEXT_KEYS},
     "converged": st.one_of(st.booleans(), malformed),
     "iterations": st.one_of(st.integers(min_value=0, max_value=10**12), malformed),
     "history": st.one_of(hnp.arrays(np.float64, st.tuples(st.integers(0, 5), st.just(2)),
@@ -259,3 +262,19 @@ class TestSolutionForms:
 
         assert channel.solution_to_plain({"energy": -1.0}) == {"energy": -1.0}
         assert channel.solution_to_plain(Fake()) == {"energy": -1.0}
+
+
+class TestTextAndKohnShamKeys:
+    def test_basis_functional_grid_and_xc_energy_cross(self):
+        """The text keys (basis, functional, grid) and E_xc cross as they are (synthetic)."""
+        sol = Solution(energy=-1.0, xc_energy=-0.5, basis="H S\n  1.0  1.0\n",
+                       functional="pbe", grid="own", xc_potential=np.eye(2))
+        out = channel.decode(channel.encode("case", {"solution": sol, "seconds": 0.1}), "case")
+        assert same(out["solution"], sol)
+
+    def test_a_non_text_basis_is_refused(self):
+        data = channel.encode("case", {"solution": {"basis": 3.0}, "seconds": 0.1})
+        with pytest.raises(channel.ChannelError,
+                           match="^solution key 'basis' holds a float, not what the contract "
+                                 "extracts$"):
+            channel.decode(data, "case")

@@ -146,7 +146,7 @@ methods = ["rhf", "dft"]
         f"{f}: matrix 'bad': case 'li-sto-3g-uhf': multiplicity: 6 is impossible with 3 "
         f"electrons",
         f"{f}: matrix 'bad': exclude: 'never-*' matches no generated case",
-        f"{f}: matrix #2: methods: must be among rhf, uhf, rohf, got 'dft'",
+        f"{f}: matrix #2: methods: must be among rhf, uhf, rohf, rks, uks, roks, got 'dft'",
     )
     lines = str(err.value).splitlines()
     assert lines[0] == f"{f}: 9 bad entries:"
