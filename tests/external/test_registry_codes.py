@@ -70,10 +70,6 @@ def test_pyquante2_h2_passes(pyquante2):
     assert result.passed
 
 
-@pytest.mark.xfail(strict=True, reason="issue 11 item 2/3: energy-consistency uses the "
-                   "reference's integrals; pyquante2's Boys function makes V differ by "
-                   "2e-7, so |E − E[P]| = 5.0e-7 although E = E[P] with its own "
-                   "integrals to 1e-13; the defect belongs to nuclear-attraction alone")
 def test_pyquante2_water_energy_consistency_in_own_integrals(pyquante2):
     failed, result = verdict(rc.solve_pyquante2, "water-sto-3g-rhf")
     # today: energy-consistency, nuclear-attraction, core-hamiltonian, two-electron
@@ -89,20 +85,12 @@ def pyqint():
     return pytest.importorskip("pyqint")
 
 
-@pytest.mark.xfail(strict=True, reason="issue 11 item 2: pyqint's STO-3G data are "
-                   "rounded to 6 digits (3.425251), its S differs from pyscf's by 5e-7; "
-                   "orthonormality, idempotency, electron count and stationarity are "
-                   "measured with pyscf's S instead of the code's own")
 def test_pyqint_own_basis_judged_in_own_metric(pyqint):
     failed, _ = verdict(rc.solve_pyqint, "water-sto-3g-rhf")
     assert "overlap" in failed  # 5.0e-7: the basis data differ, reported once
     assert failed & OWN_METRIC == set()
 
 
-@pytest.mark.xfail(strict=True, reason="issue 11 item 2/3: with the harness's exact basis "
-                   "pyqint's S matches to 2e-16 but its V differs by 6.8e-7 (Boys "
-                   "function); energy-consistency fails by 3.9e-7 although E equals E[P] "
-                   "in the code's own integrals exactly")
 def test_pyqint_harness_basis_energy_consistency(pyqint):
     failed, result = verdict(rc.solve_pyqint_harness_basis, "h2-sto-3g-rhf")
     assert "overlap" not in failed and failed & OWN_METRIC == set()  # true today
@@ -149,10 +137,6 @@ def openqp():
     return pytest.importorskip("oqp")
 
 
-@pytest.mark.xfail(strict=True, reason="issue 11 items 1c/3: OpenQP's STO-3G carries the "
-                   "basis-set exchange's digits; its T differs from pyscf's by 1.1e-8 > 1e-8 "
-                   "(4.1e-6 on water's O 1s), an energy effect of 4e-10 Eh: the kinetic "
-                   "check fails on basis digits, not on the code's integrals")
 def test_openqp_heh_cation_passes(openqp):
     failed, result = verdict(rc.solve_openqp, "heh-cation-sto-3g-rhf")
     assert abs(result.energy - result.reference_energy) < 1e-8  # true today: 1.7e-9
@@ -228,13 +212,6 @@ def test_openqp_harness_basis_cc_pvdz_passes(openqp):
     assert result.passed
 
 
-@pytest.mark.xfail(strict=True, reason="issue 11 item 4: given the harness's basis, OpenQP "
-                   "normalises its contracted s/p functions only to ~3e-8 (max|S − S_ref| "
-                   "2.7e-8, E − E_ref 7e-13); in pyscf's own order the per-function "
-                   "rescaling is never tried (harness/verdict/evaluate.py: "
-                   "SAME_ORDER_INACCURATE_OVERLAP = 1e-3 returns before detect_convention, "
-                   "which does find the factors), so overlap, orthonormality, idempotency, "
-                   "electron-count, energy-consistency and kinetic fail on one cause")
 def test_openqp_harness_basis_sp_norms_detected(openqp):
     failed, result = verdict(rc.solve_openqp_harness_basis, "water-sto-3g-rhf")
     assert abs(result.energy - result.reference_energy) < 1e-10  # true today: 7e-13
