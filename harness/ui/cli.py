@@ -170,7 +170,7 @@ def _add_selection(parser: argparse.ArgumentParser, default_text: str, *,
                        metavar="NAME", help="keep only the selected cases in this basis "
                        "(case-insensitive, e.g. cc-pVDZ; repeatable; default: any basis)")
     group.add_argument("--method", action="append", dest="methods", default=None,
-                       choices=("rhf", "uhf", "rohf"),
+                       choices=("rhf", "uhf", "rohf", "rks", "uks", "roks"),
                        help="keep only the selected cases of this method (repeatable; "
                        "default: any method)")
     return group

@@ -34,7 +34,7 @@ from harness.backend.integrals import AOIntegrals, integrals_for
 from harness.contract.problem import Problem
 from harness.contract.solution import Solution
 from harness.contract.results import CheckResult, Status, failed, judge, not_applicable, skipped
-from harness.checks.tolerances import CHECK_NAMES, Tolerances
+from harness.checks.tolerances import CHECK_NAMES, INTEGRAL_ENERGY_EFFECT, Tolerances
 from harness.contract.defaults import DEFAULT_STABILITY, STABILITY_MODES
 
 
@@ -172,7 +172,7 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
     basis, sol, go_on = _basis(problem, extracted, ints, ao_convention,
                               tol.for_check("basis", problem.convergence))
     if not go_on:
-        return _after_failed_basis(basis, sol, ints, tol, case), {}
+        return _geometry_hinted(problem, sol, _after_failed_basis(basis, sol, ints, tol, case))
 
     problems = well_formed(sol, len(ints.labels), method, problem.n_alpha, problem.n_beta,
                           symmetry=tol.for_check("well-formed", problem.convergence))
@@ -349,6 +349,23 @@ def _noted_basis(checks, note, case):
 _OVERLAP_ONLY = ("overlap", "overlap-definite")
 
 
+def _geometry_hinted(problem, sol, checks):
+    """(checks, analysis) after a failed basis check, with the ångström hint on the failed
+    basis and overlap checks when the code's overlap is that of the molecule with its
+    coordinates read as ångström (``harness.verdict.diagnosis.geometry_hint``)."""
+    from harness.verdict.diagnosis import geometry_hint
+
+    if not isinstance(sol.overlap, np.ndarray) or sol.overlap.ndim != 2:
+        return checks, {}
+    hint, numbers = geometry_hint(problem, sol.overlap)
+    analysis = {"geometry": numbers} if numbers else {}
+    if hint:
+        checks = tuple(dataclasses.replace(c, hint=hint)
+                       if c.name in ("basis", "overlap") and c.status is Status.FAILED else c
+                       for c in checks)
+    return checks, analysis
+
+
 def _after_failed_basis(basis, sol, ints, tol, case):
     """The checks after a failed basis check: every matrix check skipped with the basis
     check's reason; the overlap's own checks run when it has pyscf's size."""
@@ -429,7 +446,8 @@ def _explained_hint(sol, ints, at, reference, results) -> str | None:
     if reference is None or at is None or r is None or r.status is not Status.FAILED:
         return None
     explained = explained_energy(energy_effects(sol, ints, at))
-    if explained is None:
+    # below the integral checks' own tolerance the integrals explain nothing worth naming
+    if explained is None or abs(explained) <= INTEGRAL_ENERGY_EFFECT:
         return None
     gap = float(sol.energy) - float(reference.energy)
     return (f"of E − E_ref = {gap:+.1e} Eh your integrals explain {explained:+.1e} Eh "
