@@ -112,8 +112,8 @@ def test_a_filter_that_leaves_nothing_says_what_the_selection_holds(capsys, cata
 
 
 def test_a_bad_method_is_a_usage_error(capsys):
-    line = error_line(capsys, "cases", "--method", "rks")
-    assert line.startswith(ERROR + "argument --method: invalid choice: 'rks'")
+    line = error_line(capsys, "cases", "--method", "mp2")
+    assert line.startswith(ERROR + "argument --method: invalid choice: 'mp2'")
 
 
 @pytest.mark.parametrize("args", [("--case", "h2-*"), ("--suite", "standard", "--method", "uhf"),
@@ -152,3 +152,10 @@ def test_cases_lists_a_cases_file_with_the_same_filters(capsys, tmp_path):
     out = capsys.readouterr().out.splitlines()
     assert code == 0
     assert [line.split()[0] for line in out if line.startswith("lab-")] == ["lab-h2-a"]
+
+
+def test_method_filter_selects_kohn_sham_cases(capsys):
+    """--method rks keeps the Kohn–Sham closed-shell cases of the dft suite only."""
+    assert main(["cases", "--suite", "dft", "--method", "rks"]) == 0
+    out = capsys.readouterr().out
+    assert "water-6-31g-rks-b3lyp" in out and "-uks-" not in out and "-rhf" not in out
