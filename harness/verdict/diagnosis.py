@@ -545,6 +545,17 @@ def geometry_hint(problem, s_code) -> tuple[str | None, dict]:
             f"{gap:.0e}): convert bohr ↔ ångström (1 bohr = {BOHR_IN_ANGSTROM:.6f} Å)"), numbers
 
 
+def geometry_hints(problem, sol, results) -> tuple[dict[str, str], dict]:
+    """({check: hint}, numbers): the :func:`geometry_hint` on the failed basis and overlap
+    checks of ``results`` (name → CheckResult) when the basis check failed and the code
+    reported an overlap; the numbers of the comparison whenever it was made."""
+    if not _failed(results, "basis") or not isinstance(sol.overlap, np.ndarray):
+        return {}, {}
+    hint, numbers = geometry_hint(problem, sol.overlap)
+    hints = {n: hint for n in ("basis", "overlap") if hint and _failed(results, n)}
+    return hints, numbers
+
+
 # --------------------------------------------------------------------------- screening
 
 
@@ -677,14 +688,10 @@ def diagnose(problem, sol: Solution, ints, d: np.ndarray, results, *, reference=
     method = problem.method
     d = np.asarray(d, dtype=float)
     s = ints.s
-    if _failed(results, "basis") and isinstance(sol.overlap, np.ndarray):
-        hint, numbers = geometry_hint(problem, sol.overlap)
-        if numbers:
-            analysis["geometry"] = numbers
-        if hint:
-            for name in ("basis", "overlap"):
-                if _failed(results, name):
-                    hints[name] = hint
+    geometry, numbers = geometry_hints(problem, sol, results)
+    hints.update(geometry)
+    if numbers:
+        analysis["geometry"] = numbers
     t = ints.kinetic()
     v = ints.h - t  # H = T + V
 

@@ -350,20 +350,14 @@ _OVERLAP_ONLY = ("overlap", "overlap-definite")
 
 
 def _geometry_hinted(problem, sol, checks):
-    """(checks, analysis) after a failed basis check, with the ångström hint on the failed
-    basis and overlap checks when the code's overlap is that of the molecule with its
-    coordinates read as ångström (``harness.verdict.diagnosis.geometry_hint``)."""
-    from harness.verdict.diagnosis import geometry_hint
+    """(checks, analysis) after a failed basis check, with the ångström hint
+    (``harness.verdict.diagnosis.geometry_hints``) on the failed basis and overlap checks."""
+    from harness.verdict.diagnosis import geometry_hints
 
-    if not isinstance(sol.overlap, np.ndarray) or sol.overlap.ndim != 2:
-        return checks, {}
-    hint, numbers = geometry_hint(problem, sol.overlap)
-    analysis = {"geometry": numbers} if numbers else {}
-    if hint:
-        checks = tuple(dataclasses.replace(c, hint=hint)
-                       if c.name in ("basis", "overlap") and c.status is Status.FAILED else c
-                       for c in checks)
-    return checks, analysis
+    hints, numbers = geometry_hints(problem, sol, {c.name: c for c in checks})
+    checks = tuple(dataclasses.replace(c, hint=hints[c.name]) if c.name in hints else c
+                   for c in checks)
+    return checks, ({"geometry": numbers} if numbers else {})
 
 
 def _after_failed_basis(basis, sol, ints, tol, case):
