@@ -479,8 +479,9 @@ def run_bench(accelerator, *, cases, guesses: int = DEFAULT_GUESSES, seed: int =
               plots: bool = True) -> BenchOutcome:
     """Bench ``accelerator`` against ``baselines`` on ``cases`` (module docstring).
 
-    accelerator: ``"MODULE:NAME"`` / ``"path.py:NAME"`` or an object (class or instance
-    following the protocol of :mod:`harness.bench.accelerators`). cases: ``Case`` objects.
+    accelerator: ``"MODULE:NAME"`` / ``"path.py:NAME"`` (loaded and run in its own
+    process, :mod:`harness.bench.isolated`) or an object (class or instance following
+    the protocol of :mod:`harness.bench.accelerators`, called in this process). cases: ``Case`` objects.
     guesses: perturbed starting guesses per case (plus the default guess). baselines:
     names, each run once (a repeated name is dropped). report_dir: folder for
     ``bench.jsonl`` (incremental) and ``bench.json``, and with ``plots`` the PNGs and
@@ -495,14 +496,36 @@ def run_bench(accelerator, *, cases, guesses: int = DEFAULT_GUESSES, seed: int =
     name, call limit or report folder (:func:`check_report_dir`).
     """
     from harness.contract.errors import HarnessError
-    from harness.catalogue.references import reference_for
 
     t0 = time.perf_counter()
     if call_limit and not 0 < call_limit <= acc.MAX_CALL_LIMIT:
         raise HarnessError(f"expected seconds in (0, {acc.MAX_CALL_LIMIT:g}], got "
                            f"{call_limit!r}", field="call_limit")
-    name, factory = acc.load_accelerator(accelerator)
-    factory = acc.time_limited(factory, call_limit)
+    isolated = None
+    if isinstance(accelerator, str):  # its own process, behind the closed channel
+        from harness.bench.isolated import Isolated
+
+        isolated = Isolated(accelerator, call_limit)
+        name, factory = isolated.load(), isolated.factory
+    else:  # an object already in this process: called here
+        name, factory = acc.load_accelerator(accelerator)
+        factory = acc.time_limited(factory, call_limit)
+    try:
+        return _bench(name, factory, isolated, cases=cases, guesses=guesses, seed=seed,
+                      report_dir=report_dir, baselines=baselines, progress=progress,
+                      references=references, write_references=write_references,
+                      properties=properties, max_fock_builds=max_fock_builds,
+                      plots=plots, t0=t0)
+    finally:
+        if isolated is not None:
+            isolated.close()
+
+
+def _bench(name, factory, isolated, *, cases, guesses, seed, report_dir, baselines,
+           progress, references, write_references, properties, max_fock_builds, plots,
+           t0) -> BenchOutcome:
+    from harness.catalogue.references import reference_for
+
     baselines = tuple(dict.fromkeys(baselines))
     if name in baselines:
         name = f"{name} (yours)"
@@ -544,6 +567,8 @@ def run_bench(accelerator, *, cases, guesses: int = DEFAULT_GUESSES, seed: int =
             for p in accelerator_properties(factory, problem, ham, starts[0],
                                             problem.convergence):
                 props.append(CaseProperty(case.name, p.name, p.passed, p.value, p.detail))
+        if isolated is not None:  # nothing the accelerator started outlives its case
+            isolated.close()
     summary = tuple(summarise(records, m) for m in methods)
     per_case = {c.name: tuple(summarise([r for r in records if r.case == c.name], m)
                               for m in methods) for c in cases}
