@@ -242,9 +242,13 @@ class Isolated:
                 self.close()
                 raise acc.AcceleratorTimeout(late)
         proc.join(1.0)
-        from harness.run.runner import _ended
+        from harness.run.runner import PARENT_KILLED, _ended, _fork_server_died
 
         code = _ended(proc.exitcode)
+        if proc.exitcode == 255 and _fork_server_died():
+            self.close()
+            raise AcceleratorProcessFailed(
+                f"{what}: {PARENT_KILLED.replace('plug-in', 'accelerator')}")
         self.close()
         raise AcceleratorProcessFailed(f"{what}: the accelerator's process ended ({code}) "
                                        f"without replying")
