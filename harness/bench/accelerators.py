@@ -30,7 +30,9 @@ lacks ``reset``/``step``, creating it raises, ``returns`` is not ``"fock"`` or
 :class:`harness.contract.errors.PluginLoadError` naming the spec (a usage error: exit 2). The name
 shown is ``name`` (or the class name) without control characters, at most
 :data:`NAME_LENGTH` characters. The bundled example is
-:class:`harness.bench.example_accelerator.CommutatorDIIS`.
+:class:`harness.bench.example_accelerator.CommutatorDIIS`. The bench runs a spec's
+accelerator in its own process behind the closed channel (:mod:`harness.bench.isolated`);
+the functions here call whatever object they are given, in this process.
 
 Whatever the accelerator's code raises during a run — any exception, ``SystemExit``
 (``sys.exit``), ``GeneratorExit`` or another ``BaseException`` — fails that run (or that

@@ -222,3 +222,23 @@ def test_a_load_failure_in_the_child_is_one_line(hostile):
 def test_replies_are_checked_on_arrival(message, why):
     with pytest.raises(channel.ChannelError, match=why):
         channel.decode(channel.encode(isolated.KIND, message), isolated.KIND)
+
+
+@pytest.mark.slow  # the smoke suite with properties: ~18 s
+def test_the_command_line_names_the_case_and_goes_on(hostile, capsys, tmp_path):
+    """On the command line a forging accelerator's run fails in one progress line naming
+    the case; the baselines run, bench.json is written, the exit status is 1."""
+    from harness.ui.cli import main
+
+    code = main(["bench", f"{hostile}:ForgesBytes", "--suite", "smoke",
+                 "--guesses", "0", "--baselines", "roothaan",
+                 "--report", str(tmp_path / "rep")])
+    out = capsys.readouterr()
+    assert code == 1, out.out + out.err
+    assert "Traceback" not in out.out + out.err
+    assert ("[3/8] water-sto-3g-rhf guess 0 ForgesBytes: failed (step raised "
+            "AcceleratorProcessFailed: step: the accelerator's process sent a message the "
+            "harness cannot read (not the channel's format (it starts b'converge', not "
+            "b'SCFHMSG1')) at Fock build 1), 1 Fock builds, —") in out.out.splitlines()
+    assert "[4/8] water-sto-3g-rhf guess 0 roothaan: converged" in out.out
+    assert (tmp_path / "rep" / "bench.json").exists()
