@@ -276,6 +276,7 @@ class Isolated:
     def factory(self) -> "Proxy":
         reply = self.call("creating it", ("new",))
         if "returns" not in reply:
+            self.close()
             raise AcceleratorProcessFailed("creating it: the reply has no declared kind")
         if reply["returns"] not in acc.RETURNS:
             raise acc.ProtocolError(f"declares returns={reply['returns'][:40]!r}, expected "
@@ -293,11 +294,14 @@ class Proxy:
         self.name = name
 
     def reset(self, problem):
-        self._owner.call("reset", ("reset", problem))
+        if self._owner.call("reset", ("reset", problem)).get("ok") is not True:
+            self._owner.close()  # out of turn: this child's replies cannot be trusted
+            raise AcceleratorProcessFailed("reset: the reply is not 'ok'")
 
     def step(self, it):
         reply = self._owner.call("step", ("step", it, self.returns))
         a = reply.get("array")
         if a is None:
+            self._owner.close()
             raise AcceleratorProcessFailed("step: the reply holds no array")
         return a

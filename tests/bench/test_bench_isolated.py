@@ -242,3 +242,24 @@ def test_the_command_line_names_the_case_and_goes_on(hostile, capsys, tmp_path):
             "b'SCFHMSG1')) at Fock build 1), 1 Fock builds, —") in out.out.splitlines()
     assert "[4/8] water-sto-3g-rhf guess 0 roothaan: converged" in out.out
     assert (tmp_path / "rep" / "bench.json").exists()
+
+
+def test_a_reply_out_of_turn_fails_the_run(hostile, catalogue, tmp_path):
+    """A reply of the channel's own format but for another call (an array written during
+    reset) is refused: each call accepts only its own reply."""
+    path = tmp_path / "out_of_turn.py"
+    path.write_text(HOSTILE + '''
+
+class ExtraReply(Base):
+    def reset(self, problem):
+        import numpy as np
+        from harness.run import channel
+        for c in _pipes():
+            try:
+                channel.send(c, "accelerator", {"array": np.zeros((1, 7, 7))})
+            except OSError:
+                pass
+''', encoding="utf-8")
+    (rec,) = _mine(_bench(f"{path}:ExtraReply", catalogue))
+    assert rec.reason == ("reset raised AcceleratorProcessFailed: reset: the reply is not "
+                          "'ok'")
