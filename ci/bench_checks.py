@@ -52,8 +52,10 @@ from harness.verdict.evaluate import evaluate  # noqa: E402
 #: orbital energies (counted in the code): Löwdin X, S^½ and projector 3; CᵀSC 2;
 #: idempotency 2; stationarity and self-consistency X(FPS − SPF)X 6 each; Roothaan–Hall
 #: 3; energy-error-bound (orbital transforms of F and the semicanonical blocks) 6; the
-#: difference route's bounds (X J X, X K X) 4. Plus one n×n eigh (the overlap).
-GEMM_COUNT = 32
+#: difference route's bounds (X J X, X K X) 4; the energy-weighted density ½PFP 2 and
+#: the density C n Cᵀ 1 (matrix products since 2026-12-03, before an n⁴ einsum loop).
+#: Plus one n×n eigh (the overlap).
+GEMM_COUNT = 35
 
 LARGE_SUITE = ROOT / "references" / "suites" / "large.toml"
 

@@ -15,8 +15,13 @@ Robust Coulomb-metric fitting, with (L|pq) the three-centre integrals and
 with D = Σ_i w_i u_i u_iᵀ (eigenpairs of D with |w_i| > RANK_CUTOFF; ΔP of two
 idempotent densities has rank ≤ 2 N_occ, so the metric is applied to naux × n·rank
 numbers, not to the whole tensor). Both are linear in D, so J̃[ΔP] carries the fitting
-error of ΔP only, not of P. Memory: the tensor (L|pq), naux × n² doubles
-(FITTING_MAX_BYTES caps it), and T, naux × n × rank; no n⁴ array.
+error of ΔP only, not of P.
+
+Cost and memory: (L|pq) is computed once per molecule, packed (p ≥ q: naux × n(n+1)/2
+doubles, FITTING_MAX_BYTES caps it; half the integrals and memory of the full tensor);
+the exchange unpacks it UNPACK_BLOCK auxiliary functions at a time (a block of
+UNPACK_BLOCK × n² doubles) into T, naux × n × rank doubles. No n⁴ array, and no
+naux × n² one beyond the packed tensor.
 """
 
 from __future__ import annotations
@@ -29,23 +34,33 @@ import numpy as np
 #: and rounding noise of P − P_ref (~1e-17 per element) produces such eigenvalues.
 RANK_CUTOFF = 1e-14
 
-#: Largest three-centre tensor (bytes) the checks build; above it the exact
-#: (integral-direct) J/K build is used. 1 GiB: benzene/cc-pVDZ needs 58 MB, ~200 AO
-#: ~0.3 GB; the cap keeps a shared machine's memory for the plug-ins.
+#: Largest packed three-centre tensor (bytes) the checks build; above it the exact
+#: (integral-direct) J/K build is used. 1 GiB: benzene/cc-pVDZ needs 29 MB, ~200 AO
+#: ~0.15 GB, ~400 AO ~1.2 GB (over: exact build); the cap keeps a shared machine's
+#: memory for the plug-ins.
 FITTING_MAX_BYTES = 1 << 30
+
+#: Auxiliary functions unpacked to a full (n, n) slice at a time in the exchange build:
+#: bounds the scratch memory to UNPACK_BLOCK × n² doubles (benzene: 6.6 MB).
+UNPACK_BLOCK = 64
+
+
+def _auxmol(mol):
+    from pyscf import df
+
+    return df.addons.make_auxmol(mol, df.make_auxbasis(mol))
 
 
 def auxiliary_size(mol) -> int:
     """Number of auxiliary functions pyscf's default J/K-fitting basis gives ``mol``."""
-    from pyscf import df
-
-    return int(df.addons.make_auxmol(mol, df.make_auxbasis(mol)).nao_nr())
+    return int(_auxmol(mol).nao_nr())
 
 
 def fitting_bytes(mol) -> int:
-    """Bytes of the three-centre tensor (L|pq) for ``mol``: naux × n² doubles."""
+    """Bytes of the packed three-centre tensor (L|pq), p ≥ q, for ``mol``:
+    naux × n(n+1)/2 doubles."""
     n = int(mol.nao_nr())
-    return auxiliary_size(mol) * n * n * 8
+    return auxiliary_size(mol) * (n * (n + 1) // 2) * 8
 
 
 class FittedJK:
@@ -55,25 +70,35 @@ class FittedJK:
         import scipy.linalg
         from pyscf import df
 
-        auxmol = df.addons.make_auxmol(mol, df.make_auxbasis(mol))
+        auxmol = _auxmol(mol)
         self.nao = int(mol.nao_nr())
         self.naux = int(auxmol.nao_nr())
-        # pyscf returns (n, n, naux) in Fortran order: its transpose is C-ordered (naux, n, n)
-        self.int3 = np.asarray(df.incore.aux_e2(mol, auxmol, "int3c2e", aosym="s1")).T
+        # pyscf returns (n(n+1)/2, naux) in Fortran order: its transpose is C-ordered
+        self.int3 = np.asarray(df.incore.aux_e2(mol, auxmol, "int3c2e", aosym="s2ij")).T
         self.lc = scipy.linalg.cholesky(auxmol.intor("int2c2e", hermi=1), lower=True)
+        self._diag = np.cumsum(np.arange(1, self.nao + 1)) - 1  # packed index of (p, p)
+
+    def _pack(self, d: np.ndarray) -> np.ndarray:
+        """Weights w_pq (p ≥ q) with Σ_{p≥q} (L|pq) w_pq = Σ_pq (L|pq) D_pq."""
+        from pyscf import lib
+
+        d = np.asarray(d, dtype=float)
+        w = lib.pack_tril(d + d.T)
+        w[self._diag] *= 0.5
+        return w
 
     def j(self, d: np.ndarray) -> np.ndarray:
         """J̃[D] of one symmetric (nao, nao) density, Eh."""
         import scipy.linalg
+        from pyscf import lib
 
-        m = self.int3.reshape(self.naux, -1)
-        c = scipy.linalg.cho_solve((self.lc, True), m @ np.asarray(d, dtype=float).ravel())
-        out = (c @ m).reshape(self.nao, self.nao)
-        return 0.5 * (out + out.T)
+        c = scipy.linalg.cho_solve((self.lc, True), self.int3 @ self._pack(d))
+        return lib.unpack_tril(c @ self.int3)
 
     def k(self, d: np.ndarray) -> np.ndarray:
         """K̃[D] of one symmetric (nao, nao) density, Eh."""
         import scipy.linalg
+        from pyscf import lib
 
         n, naux = self.nao, self.naux
         w, u = np.linalg.eigh(0.5 * (d + d.T))
@@ -82,9 +107,13 @@ class FittedJK:
         r = len(w)
         if r == 0:
             return np.zeros((n, n))
-        t = (self.int3.reshape(naux * n, n) @ u).reshape(naux, n * r)
-        t = scipy.linalg.solve_triangular(self.lc, t, lower=True, overwrite_b=True,
-                                          check_finite=False)
+        t = np.empty((naux, n, r))
+        for a in range(0, naux, UNPACK_BLOCK):
+            b = min(a + UNPACK_BLOCK, naux)
+            full = lib.unpack_tril(self.int3[a:b])  # (b − a, n, n), symmetric in p, q
+            np.matmul(full.reshape((b - a) * n, n), u, out=t[a:b].reshape((b - a) * n, r))
+        t = scipy.linalg.solve_triangular(self.lc, t.reshape(naux, n * r), lower=True,
+                                          overwrite_b=True, check_finite=False)
         t = t.reshape(naux, n, r).transpose(1, 0, 2).reshape(n, naux * r)
         out = (t * np.tile(w, naux)) @ t.T
         return 0.5 * (out + out.T)

@@ -36,7 +36,8 @@ def orbitals_by_spin(method: str, c: np.ndarray, occ: np.ndarray):
 
 def density_from_orbitals(c: np.ndarray, occ: np.ndarray) -> np.ndarray:
     """P[σ] = C[σ] diag(n[σ]) C[σ]ᵀ for each spin component (ns, nao, nao)."""
-    return np.einsum("spi,si,sqi->spq", c, occ, c)
+    c = np.asarray(c, dtype=float)
+    return np.stack([(cs * ns) @ cs.T for cs, ns in zip(c, np.asarray(occ, dtype=float))])
 
 
 def density_by_spin(method: str, density: np.ndarray) -> np.ndarray:

@@ -204,3 +204,55 @@ def test_large_stored_references_carry_their_density():
         p = ref.density.density.sum(axis=0)
         s = case.problem().to_pyscf().intor("int1e_ovlp")
         assert abs(np.einsum("pq,qp->", p, s) - case.n_electrons) < 1e-8
+
+
+def test_packed_fitted_build_equals_the_full_tensor_fit(water):
+    """The packed (p ≥ q) tensor, unpacked in blocks, gives the fit of the module docstring
+    computed directly from the full (L|pq) and the metric inverse; and a wrong packing
+    (diagonal weights not halved) would be caught."""
+    import scipy.linalg
+    from pyscf import df
+
+    from harness.backend import fitting
+
+    mol = water.ints.mol
+    fit = fitting.FittedJK(mol)
+    n = mol.nao
+    assert fit.int3.shape == (fit.naux, n * (n + 1) // 2)  # no full naux × n² tensor kept
+    aux = df.addons.make_auxmol(mol, df.make_auxbasis(mol))
+    full = np.asarray(df.incore.aux_e2(mol, aux, "int3c2e", aosym="s1")).T  # (naux, n, n)
+    metric_inv = scipy.linalg.inv(aux.intor("int2c2e"))
+    _, d = rotated(water.mf, 1e-3)
+    delta = d[0] - water.reference.density.density[0]
+    j_ref = np.einsum("lpq,lm,mrs,rs->pq", full, metric_inv, full, delta, optimize=True)
+    k_ref = np.einsum("lpr,lm,mqs,rs->pq", full, metric_inv, full, delta, optimize=True)
+    scale = np.abs(k_ref).max()
+    assert np.abs(fit.j(delta) - j_ref).max() <= 1e-10 * np.abs(j_ref).max()
+    assert np.abs(fit.k(delta) - k_ref).max() <= 1e-10 * scale
+    # planted: a tensor unpacked with the wrong weights no longer matches
+    bad = fitting.FittedJK.__new__(fitting.FittedJK)
+    bad.__dict__.update(fit.__dict__, _diag=np.array([], dtype=int))
+    assert np.abs(bad.j(delta) - j_ref).max() > 1e-6 * np.abs(j_ref).max()
+
+
+def test_matrix_product_kernels_equal_their_einsum_definitions(o2):
+    """W = Σσ PσFσPσ, P = C n Cᵀ and Tr(PαSPβS) by matrix products (no n⁴ loops) equal
+    the index formulas of their docstrings."""
+    from harness.checks.integrals import energy_weighted_density
+    from harness.checks.spin import density_from_orbitals
+    from harness.verdict.states import spin_squared
+
+    c = np.asarray(o2.mf.mo_coeff)
+    occ = np.asarray(o2.mf.mo_occ, dtype=float)
+    d = density_from_orbitals(c, occ)
+    assert np.allclose(d, np.einsum("spi,si,sqi->spq", c, occ, c), atol=1e-14)
+    f = np.asarray(o2.mf.get_fock())
+    assert np.allclose(energy_weighted_density(d, f),
+                       np.einsum("spq,sqr,srt->pt", d, f, d), atol=1e-12)
+    assert np.allclose(energy_weighted_density(d[:1] * 2, f[:1]),
+                       0.5 * np.einsum("pq,qr,rt->pt", 2 * d[0], f[0], 2 * d[0]), atol=1e-12)
+    s = o2.ints.s
+    na, nb = int(occ[0].sum()), int(occ[1].sum())
+    expect = 0.5 * (na - nb) * (0.5 * (na - nb) + 1) + nb - np.einsum(
+        "pq,qr,rs,sp->", d[0], s, d[1], s)
+    assert abs(spin_squared(d, s, na, nb) - expect) < 1e-12
