@@ -185,7 +185,8 @@ def _case_of(problem):
     return Case(name=problem.name, numbers=tuple(int(z) for z in problem.numbers),
                 coordinates=problem.coordinates, charge=problem.charge,
                 multiplicity=problem.multiplicity, basis=problem.basis,
-                cartesian=problem.cartesian, method=problem.method)
+                cartesian=problem.cartesian, method=problem.method,
+                functional=getattr(problem, "functional", None) or "")
 
 
 def _inputs(problem) -> dict[str, Any]:
@@ -193,7 +194,17 @@ def _inputs(problem) -> dict[str, Any]:
             "coordinates_bohr": [[float(x) + 0.0 for x in row] for row in problem.coordinates],
             "charge": int(problem.charge), "multiplicity": int(problem.multiplicity),
             "basis": problem.basis, "cartesian": bool(problem.cartesian),
-            "method": problem.method, "convergence": float(problem.convergence)}
+            "method": problem.method, "convergence": float(problem.convergence),
+            **_ks_inputs(problem)}
+
+
+def _ks_inputs(problem) -> dict[str, Any]:
+    """Kohn–Sham only (absent for Hartree–Fock, whose inputs stay as they were): the
+    functional and the pinned grid's content hash (a recompute rebuilds the grid and
+    must get the same one)."""
+    if not getattr(problem, "functional", None):
+        return {}
+    return {"functional": problem.functional, "grid_hash": problem.grid.hash}
 
 
 def _reference_entry(reference, source) -> dict[str, Any] | None:
@@ -734,7 +745,11 @@ def _recompute_case(entry: dict, record: dict, arrays, tolerances, options: dict
                              coordinates=inputs["coordinates_bohr"],
                              charge=inputs["charge"], multiplicity=inputs["multiplicity"],
                              basis=inputs["basis"], cartesian=inputs["cartesian"],
-                             method=inputs["method"], convergence=inputs["convergence"])
+                             method=inputs["method"], convergence=inputs["convergence"],
+                             functional=inputs.get("functional"))
+    if inputs.get("grid_hash") is not None and problem.grid.hash != inputs["grid_hash"]:
+        issues.append(f"cases/{name}/inputs: the pinned grid rebuilt now has hash "
+                      f"{problem.grid.hash}, certified {inputs['grid_hash']}")
     reference, source = None, None
     if entry.get("reference") is not None:
         reference, source = reference_for(_case_of(problem), reference_dir)
