@@ -1,6 +1,7 @@
 """Benchmark: the checks' cost against one pyscf SCF of the same case, and its growth with n.
 
 Usage: python ci/bench_checks.py [--case benzene-cc-pvdz-rhf] [--repeat 3] [--max-ao 400]
+       [--ks] [--ks-functional b3lyp]
 
 One run prints:
 
@@ -18,6 +19,11 @@ One run prints:
    kernels and floor are the best of 3.
    It also asserts that the checks never call ``eri()`` (the n⁴ tensor) when the code
    did not report ``two_electron``.
+
+With ``--ks`` (slow: a pyscf KS SCF on the pinned grid) it also prints the Kohn–Sham line
+(:func:`ks_cost`): the case's molecule as RKS with ``--ks-functional`` (default b3lyp) on
+the pinned grid; one V_xc evaluation on that grid (what the XC part of the checks costs,
+``harness.verdict.xc``) beside the J/K build, and its ratio to one pyscf KS SCF.
 
 The solution checked is pyscf's own converged one (the plug-in's run is excluded by
 design; any converged solution costs the checks the same). The check time covers what
@@ -218,6 +224,54 @@ def growth(max_ao: int) -> int:
           f"{cases[-1].problem().nao ** 4 * 8 / 2**20:.0f} MB at the largest n")
     return status
 
+def ks_cost(case_name: str, functional: str, repeat: int) -> int:
+    """One printed line: the XC part of the checks (one V_xc evaluation on the pinned grid,
+    ``harness.backend.grid.xc_on_grid``) beside the J/K build, and each as a fraction of
+    one pyscf RKS SCF of the same molecule on the same grid; the checks run with
+    stability off and without a reference (the KS reference is not stored for this
+    case; reference-energy is one subtraction)."""
+    from pyscf import dft
+
+    from harness.backend import grid as _grid
+    from harness.contract.problem import Problem
+
+    case = load_catalogue().case(case_name)
+    problem = Problem.create(name=case.name.replace("-rhf", "-rks"), numbers=case.numbers,
+                             coordinates=case.coordinates, charge=case.charge,
+                             multiplicity=case.multiplicity, basis=case.basis,
+                             cartesian=case.cartesian, method="rks", functional=functional)
+    mol = problem.to_pyscf()
+    mf = dft.RKS(mol)
+    mf.xc = functional
+    mf.grids = _grid.pyscf_grids(mol, problem.grid.coords, problem.grid.weights)
+    mf.verbose = 0
+    t = time.perf_counter()
+    mf.kernel()
+    scf = time.perf_counter() - t
+    d = mf.make_rdm1()
+    xc_times = []
+    for _ in range(repeat):
+        t = time.perf_counter()
+        _grid.xc_on_grid(mol, functional, d[None], problem.grid.coords, problem.grid.weights)
+        xc_times.append(time.perf_counter() - t)
+    out = {"energy": mf.e_tot, "coefficients": mf.mo_coeff, "occupations": mf.mo_occ,
+           "density": d, "fock": mf.get_fock(), "orbital_energies": mf.mo_energy,
+           "converged": bool(mf.converged)}
+    with _Watch() as watch:
+        t = time.perf_counter()
+        results = evaluate(problem, extract(out), None, stability="off")
+        checks = time.perf_counter() - t
+    xc, jk = min(xc_times), min(watch.jk_seconds)
+    print(f"KS {functional} {problem.name} (nao = {problem.nao}, {problem.grid.size} grid "
+          f"points): pyscf KS SCF {scf:.2f} s ({mf.cycles} cycles); checks {checks:.2f} s; "
+          f"V_xc once {xc:.3f} s, J/K {jk:.3f} s; XC/SCF ratio {xc / scf:.3f}, "
+          f"checks/SCF {checks / scf:.3f}")
+    failed = [r.message for r in results if r.passed is False and r.name != "reference-energy"]
+    if failed:
+        print("KS checks that failed on pyscf's own solution:", *failed, sep="\n  ")
+        return 1
+    return 0
+
 
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
@@ -225,7 +279,14 @@ def main(argv=None) -> int:
     parser.add_argument("--repeat", type=int, default=3)
     parser.add_argument("--max-ao", type=int, default=400,
                         help="largest large-suite case of the growth table (0: none)")
+    parser.add_argument("--ks", action="store_true",
+                        help="also the Kohn–Sham line (slow: one pyscf KS SCF)")
+    parser.add_argument("--ks-functional", default="b3lyp")
     args = parser.parse_args(argv)
+    if args.ks:
+        status = ks_cost(args.case, args.ks_functional, args.repeat)
+        if args.max_ao == 0:
+            return status
     status = check_cost(args.case, args.repeat)
     return max(status, growth(args.max_ao))
 

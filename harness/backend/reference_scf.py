@@ -315,3 +315,16 @@ def reference_solution(mol, method: str, functional: str | None = None) -> Refer
         occupations=np.asarray(mf.mo_occ, dtype=float), nao=int(mol.nao),
         nmo=int(np.shape(mf.mo_coeff)[-1]), states=tuple(states),
         density=np.asarray(mf.make_rdm1(), dtype=float).reshape(-1, mol.nao, mol.nao))
+
+
+def one_scf_energy(mol, method: str, functional: str | None = None) -> float:
+    """Total energy (Eh) of ONE SCF of ``method`` from pyscf's default guess with the
+    reference settings (:func:`_new_scf`; Kohn–Sham on the pinned grid): no other guesses,
+    no stability following. For outside checks of closed-shell atoms in large bases
+    (tests/published), where the full reference search would cost four SCFs each.
+    Raises RuntimeError if the SCF does not converge."""
+    mf = _new_scf(mol, method, functional)
+    mf.kernel()
+    if not mf.converged:
+        raise RuntimeError(f"{method}/{functional}: SCF not converged")
+    return float(mf.e_tot)

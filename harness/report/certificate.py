@@ -48,7 +48,7 @@ DIGESTS_KEY = "digests"
 #: else it uses is recorded per case or in ``tolerances``). A certificate made before
 #: they were recorded is recomputed with evaluate_case's defaults.
 EVALUATION_KEY = "evaluation"
-EVALUATION_OPTIONS = ("ao_convention", "stability", "basis_source")
+EVALUATION_OPTIONS = ("ao_convention", "stability", "basis_source", "grid")
 #: ``verify-certificate`` lists at most this many problems, then says how many more.
 MAX_LISTED_PROBLEMS = 20
 #: A recomputed check value agrees with the certified one when
@@ -61,7 +61,8 @@ VALUE_AGREEMENT_REL = 1e-6
 #: reproduce to 1e-9 (``harness.catalogue.references.RECOMPUTE_TOLERANCE``).
 REFERENCE_AGREEMENT = 1e-9
 
-_SCALARS = {"energy": float, "converged": bool, "iterations": int, "basis": str}
+_SCALARS = {"energy": float, "converged": bool, "iterations": int, "basis": str,
+            "xc_energy": float, "functional": str, "grid": str}
 
 
 # --------------------------------------------------------------------------- hashing
@@ -184,7 +185,8 @@ def _case_of(problem):
     return Case(name=problem.name, numbers=tuple(int(z) for z in problem.numbers),
                 coordinates=problem.coordinates, charge=problem.charge,
                 multiplicity=problem.multiplicity, basis=problem.basis,
-                cartesian=problem.cartesian, method=problem.method)
+                cartesian=problem.cartesian, method=problem.method,
+                functional=getattr(problem, "functional", None) or "")
 
 
 def _inputs(problem) -> dict[str, Any]:
@@ -192,7 +194,17 @@ def _inputs(problem) -> dict[str, Any]:
             "coordinates_bohr": [[float(x) + 0.0 for x in row] for row in problem.coordinates],
             "charge": int(problem.charge), "multiplicity": int(problem.multiplicity),
             "basis": problem.basis, "cartesian": bool(problem.cartesian),
-            "method": problem.method, "convergence": float(problem.convergence)}
+            "method": problem.method, "convergence": float(problem.convergence),
+            **_ks_inputs(problem)}
+
+
+def _ks_inputs(problem) -> dict[str, Any]:
+    """Kohn–Sham only (absent for Hartree–Fock, whose inputs stay as they were): the
+    functional and the pinned grid's content hash (a recompute rebuilds the grid and
+    must get the same one)."""
+    if not getattr(problem, "functional", None):
+        return {}
+    return {"functional": problem.functional, "grid_hash": problem.grid.hash}
 
 
 def _reference_entry(reference, source) -> dict[str, Any] | None:
@@ -237,7 +249,7 @@ def make_certificate(case_results: Sequence[CaseResult], *, problems: Mapping[st
                      sidecar: Mapping[str, str] | None = None,
                      created: str | None = None, ao_convention: str | None = None,
                      stability: str = "internal", require_all: bool = False,
-                     basis_source: str = "pyscf") -> dict[str, Any]:
+                     basis_source: str = "pyscf", grid: str | None = None) -> dict[str, Any]:
     """The certificate of a run as a JSON-ready dict, hashed and digested.
 
     Each case records its ``status`` (``passed``, ``failed`` or ``unsupported``, with
@@ -249,8 +261,10 @@ def make_certificate(case_results: Sequence[CaseResult], *, problems: Mapping[st
     are keyed by case name. ``tolerances``: the ``harness.checks.tolerances.Tolerances`` in
     force (default ones if None). ``sidecar``: ``{"file": name, "sha256": hash}`` of
     the solution arrays (see :func:`write_certificate`, which fills it).
-    ``ao_convention`` and ``stability``: the options the checks were run with
-    (``harness.verdict.evaluate.evaluate_case``), recorded under :data:`EVALUATION_KEY`.
+    ``ao_convention``, ``stability``, ``basis_source`` and ``grid`` (Kohn–Sham
+    ``--grid own``): the options the checks were run with
+    (``harness.verdict.judge.JudgeSettings``), recorded under :data:`EVALUATION_KEY`
+    (basis_source and grid only when not the default).
     """
     from harness.checks.tolerances import Tolerances
 
@@ -269,7 +283,8 @@ def make_certificate(case_results: Sequence[CaseResult], *, problems: Mapping[st
         "tolerances": {"factor": float(tol.factor),
                        "overrides": {k: float(v) for k, v in sorted(tol.overrides.items())}},
         EVALUATION_KEY: {"ao_convention": ao_convention, "stability": stability,
-                         **_basis_source_entry(basis_source)},
+                         **_basis_source_entry(basis_source),
+                         **({"grid": "own"} if grid == "own" else {})},
         "passed": bool(case_results) and not any(r.failed for r in case_results),
         "require_all": bool(require_all),
         "sidecar": dict(sidecar) if sidecar is not None else None,
@@ -305,7 +320,7 @@ def write_certificate(path, case_results: Sequence[CaseResult], *, problems, sol
                       references=None, tolerances=None, versions=None,
                       plugin: str | None = None, ao_convention: str | None = None,
                       stability: str = "internal", require_all: bool = False,
-                      basis_source: str = "pyscf") -> Path:
+                      basis_source: str = "pyscf", grid: str | None = None) -> Path:
     """Write the sidecar ``NAME.solutions.npz`` (every non-malformed array of every
     solution, keyed ``<case>/<key>``), then the certificate ``path`` with the sidecar's
     hash; both atomically. Arguments as for :func:`make_certificate`. Returns ``path``."""
@@ -322,7 +337,7 @@ def write_certificate(path, case_results: Sequence[CaseResult], *, problems, sol
     cert = make_certificate(case_results, problems=problems, solutions=solutions,
                             references=references, tolerances=tolerances, versions=versions,
                             plugin=plugin, ao_convention=ao_convention, stability=stability,
-                            require_all=require_all, basis_source=basis_source,
+                            require_all=require_all, basis_source=basis_source, grid=grid,
                             sidecar={"file": side.name, "sha256": file_sha256(side)})
 
     def save_json(tmp):
@@ -680,6 +695,10 @@ def _evaluation_options(cert: Mapping[str, Any], issues: list[str]) -> dict[str,
         issues.append(f"{EVALUATION_KEY}: basis_source {data['basis_source']!r} is not one "
                       f"of pyscf, bse")
         return None
+    if data.get("grid", "own") != "own":
+        issues.append(f"{EVALUATION_KEY}: grid {data['grid']!r} is not 'own' (the only "
+                      f"recorded value)")
+        return None
     return {k: data[k] for k in EVALUATION_OPTIONS if k in data}
 
 
@@ -726,7 +745,11 @@ def _recompute_case(entry: dict, record: dict, arrays, tolerances, options: dict
                              coordinates=inputs["coordinates_bohr"],
                              charge=inputs["charge"], multiplicity=inputs["multiplicity"],
                              basis=inputs["basis"], cartesian=inputs["cartesian"],
-                             method=inputs["method"], convergence=inputs["convergence"])
+                             method=inputs["method"], convergence=inputs["convergence"],
+                             functional=inputs.get("functional"))
+    if inputs.get("grid_hash") is not None and problem.grid.hash != inputs["grid_hash"]:
+        issues.append(f"cases/{name}/inputs: the pinned grid rebuilt now has hash "
+                      f"{problem.grid.hash}, certified {inputs['grid_hash']}")
     reference, source = None, None
     if entry.get("reference") is not None:
         reference, source = reference_for(_case_of(problem), reference_dir)

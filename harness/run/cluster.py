@@ -192,6 +192,7 @@ class TaskOptions:
     cwd: str = ""
     require_all: bool = False
     basis_source: str = "pyscf"
+    grid: str | None = None
 
 
 def _allow_children() -> None:
@@ -244,7 +245,7 @@ def run_case_task(case, plugin_spec, options: TaskOptions) -> dict:
                             timeout=options.timeout, jobs=1, plugin_checked=True,
                             judge_workers=0, reference_lookup=lambda c: lookup(c),
                             require_all=options.require_all,
-                            basis_source=options.basis_source)
+                            basis_source=options.basis_source, grid=options.grid)
     if not outcome.cases:
         raise RuntimeError(f"case {case.name} was interrupted on the worker")
     return {"result": outcome.cases[0], "problem": outcome.problems.get(case.name),
@@ -434,7 +435,7 @@ class ClusterRun:
 def task_options(*, tolerances, convergence=None, ao_convention=None, stability="internal",
                  timeout: float, reference_dir=None, cache_dir=None,
                  write_references: bool = False, require_all: bool = False,
-                 basis_source: str = "pyscf") -> TaskOptions:
+                 basis_source: str = "pyscf", grid: str | None = None) -> TaskOptions:
     """:class:`TaskOptions` with this process's ``sys.path`` and current directory."""
     return TaskOptions(tolerances=tolerances, convergence=convergence,
                        ao_convention=ao_convention, stability=stability, timeout=timeout,
@@ -442,7 +443,8 @@ def task_options(*, tolerances, convergence=None, ao_convention=None, stability=
                            Path(reference_dir).resolve()),
                        cache_dir=None if cache_dir is None else str(Path(cache_dir).resolve()),
                        write_references=write_references, path=tuple(sys.path),
-                       cwd=os.getcwd(), require_all=require_all, basis_source=basis_source)
+                       cwd=os.getcwd(), require_all=require_all, basis_source=basis_source,
+                       grid=grid)
 
 
 def run_cases_on_cluster(cases: Iterable, plugin_spec, *, scheduler: str, tolerances,
@@ -453,7 +455,7 @@ def run_cases_on_cluster(cases: Iterable, plugin_spec, *, scheduler: str, tolera
                          on_start: Callable[[str], None] | None = None,
                          on_result: Callable[[CaseResult], None] | None = None,
                          plugin_checked: bool = False, require_all: bool = False,
-                         basis_source: str = "pyscf") -> RunOutcome:
+                         basis_source: str = "pyscf", grid: str | None = None) -> RunOutcome:
     """``harness.run.runner.run_cases`` on a Dask cluster: same arguments (``jobs`` is the
     cluster's workers; ``reference_cache`` the shared cache directory) and the same
     outcome, cases in input order. ``plugin_checked=False`` first loads the plug-in on
@@ -468,7 +470,7 @@ def run_cases_on_cluster(cases: Iterable, plugin_spec, *, scheduler: str, tolera
                            ao_convention=ao_convention, stability=stability, timeout=timeout,
                            reference_dir=reference_dir, cache_dir=reference_cache,
                            write_references=write_references, require_all=require_all,
-                           basis_source=basis_source)
+                           basis_source=basis_source, grid=grid)
     results_file = Path(results_path) if results_path is not None else None
     finished: dict[int, CaseResult] = {}
     problems: dict[str, Any] = {}

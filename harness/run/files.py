@@ -692,13 +692,14 @@ def _default_name(geometry: Path, basis: str, method: str) -> str:
 
 def result_case(*, geometry, basis: str, method: str, charge: int = 0,
                 multiplicity: int = 1, cartesian: bool = False, name: str | None = None,
-                note: str = ""):
+                note: str = "", functional: str | None = None):
     """A ``harness.catalogue.cases.Case`` from an XYZ geometry and options (for ``check-result``).
 
     ``geometry`` is an XYZ file (ångström, or bohr with ``units=bohr`` on its comment
     line; see ``harness.catalogue.cases.read_xyz``); the case's coordinates are in bohr. ``name``
-    defaults to ``<xyz stem>-<basis>-<method>``. Raises a one-line ``CaseError`` for a
-    bad geometry or option (validated as ``Problem.create`` validates).
+    defaults to ``<xyz stem>-<basis>-<method>``. ``functional``: Kohn–Sham methods only
+    (rks/uks/roks need it; a libxc name as pyscf spells it). Raises a one-line
+    ``CaseError`` for a bad geometry or option (validated as ``Problem.create`` validates).
     """
     from harness.catalogue.cases import NAME_PATTERN, Case, _geometry_source, read_xyz
 
@@ -713,14 +714,16 @@ def result_case(*, geometry, basis: str, method: str, charge: int = 0,
     case = Case(name=name, numbers=numbers, coordinates=coordinates, charge=int(charge),
                 multiplicity=int(multiplicity), basis=basis, cartesian=bool(cartesian),
                 method=method, note=note, geometry_source=_geometry_source(comment),
-                geometry_file=str(geometry))
+                geometry_file=str(geometry),
+                functional=(functional or "").strip().lower())
     case.problem()  # validates charge, multiplicity, method and basis
     return case
 
 
 def check_result(path, *, geometry, basis: str, method: str, charge: int = 0,
                  multiplicity: int = 1, cartesian: bool = False, name: str | None = None,
-                 energy_file=None, convergence: float | None = None):
+                 energy_file=None, convergence: float | None = None,
+                 functional: str | None = None):
     """A case built from an XYZ geometry and options (:func:`result_case`), and the
     solution file read for it (:func:`read_solution`).
 
@@ -734,7 +737,7 @@ def check_result(path, *, geometry, basis: str, method: str, charge: int = 0,
 
     case = result_case(geometry=geometry, basis=basis, method=method, charge=charge,
                        multiplicity=multiplicity, cartesian=cartesian, name=name,
-                       note=f"check-result of {Path(path).name}")
+                       note=f"check-result of {Path(path).name}", functional=functional)
     problem = case.problem(DEFAULT_CONVERGENCE if convergence is None else convergence)
     raw = read_solution(path, problem=problem, energy_file=energy_file)
     return case, extract(raw)

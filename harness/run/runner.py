@@ -777,7 +777,7 @@ def _stop(run: _Running, *, grace: float) -> None:
 
 def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | None = None,
               ao_convention: str | None = None, stability: str = "internal",
-              basis_source: str = "pyscf",
+              basis_source: str = "pyscf", grid: str | None = None,
               timeout: float = DEFAULT_TIMEOUT, jobs: int = 1, reference_dir=None,
               write_references: bool = False, results_path=None,
               on_start: Callable[[str], None] | None = None,
@@ -801,7 +801,8 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     when a case starts, ``on_result(case_result)`` when it is finished. Ctrl-C stops
     the children and returns the finished cases with ``interrupted=True``.
 
-    ``ao_convention``, ``stability`` and ``basis_source`` are passed to ``harness.verdict.judge.judge``.
+    ``ao_convention``, ``stability``, ``basis_source`` and ``grid`` (Kohn–Sham: "own"
+    as ``certify --grid own``, or None) are passed to ``harness.verdict.judge.judge``.
     ``judge_workers``: how many judge worker processes (:class:`JudgePool`, processes
     that never run plug-in code) check the solutions and look the references up; 0
     judges each solution here, in the harness process, one at a time. Default: ``jobs``
@@ -827,7 +828,7 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     interrupted outcome.
     """
     settings = JudgeSettings(tolerances=tolerances, ao_convention=ao_convention,
-                             stability=stability, basis_source=basis_source)
+                             stability=stability, basis_source=basis_source, grid=grid)
     cases = list(cases)
     _interrupt.clear()
     jobs = max(1, int(jobs))

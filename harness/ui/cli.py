@@ -150,6 +150,13 @@ def _add_checking(group) -> None:
                        "(default) or the basis_set_exchange library (pip install "
                        "'scf-harness[bse]'); with bse the reference is built and computed "
                        "from its data, not stored. Key: basis_source")
+    group.add_argument("--grid", choices=("pinned", "own"), default=None,
+                       help="Kohn–Sham only: 'own' when the code integrates the XC term on "
+                       "its own quadrature grid, not the pinned grid the problem hands it "
+                       "(XC-dependent tolerances then come from a measured grid "
+                       "sensitivity of each case, stated in the message; "
+                       "docs/kohn-sham.md). Default: pinned, unless the solution says "
+                       "grid='own'. Key: grid")
     group.add_argument("--stability", choices=STABILITY_MODES, default=DEFAULT_STABILITY,
                        help="stability analysis of the converged state: internal (same "
                        "method), external (RHF also against UHF) or off (default: "
@@ -270,8 +277,15 @@ def build_parser() -> argparse.ArgumentParser:
                      "its comment line; required)")
     mol.add_argument("--basis", required=True, metavar="NAME",
                      help="basis set name as pyscf knows it, e.g. sto-3g (required)")
-    mol.add_argument("--method", required=True, choices=("rhf", "uhf", "rohf"),
-                     help="rhf, uhf or rohf (required)")
+    mol.add_argument("--method", required=True,
+                     choices=("rhf", "uhf", "rohf", "rks", "uks", "roks"),
+                     help="rhf, uhf, rohf, or Kohn–Sham rks, uks, roks (required)")
+    mol.add_argument("--functional", metavar="XC", default=None,
+                     help="Kohn–Sham only (required with rks/uks/roks): the exchange–"
+                     "correlation functional the code was asked for, a libxc name as "
+                     "pyscf spells it, e.g. 'lda,vwn', 'pbe', 'b3lyp'; the reference and "
+                     "the pinned grid are those of this functional. A 'functional' key in "
+                     "the file is the code's claim, checked against it")
     mol.add_argument("--charge", type=int, default=0, metavar="Q",
                      help="total charge in units of e (default: 0)")
     mol.add_argument("--multiplicity", type=_positive_int, default=1, metavar="M",
@@ -542,6 +556,11 @@ def _scheduler(args) -> str | None:
     return scheduler
 
 
+def _grid(args) -> str | None:
+    """``--grid`` as ``JudgeSettings.grid``: "own", or None (pinned, the default)."""
+    return "own" if getattr(args, "grid", None) == "own" else None
+
+
 def _basis_source(args) -> str:
     """``--basis-source`` (default pyscf), checked: a one-line error saying how to install
     basis_set_exchange when bse is asked for without it."""
@@ -575,7 +594,8 @@ def _plugin(args):
 
 def _write_certificate(path: Path, outcome, *, tolerances, plugin: str, console,
                        quiet: bool, ao_convention: str | None, stability: str,
-                       require_all: bool = False, basis_source: str = "pyscf") -> None:
+                       require_all: bool = False, basis_source: str = "pyscf",
+                       grid: str | None = None) -> None:
     """Write the certificate of the cases whose problem could be built (the others
     have no inputs to certify), recording the evaluation options (--ao-convention,
     --stability) that a recompute must use again."""
@@ -585,7 +605,7 @@ def _write_certificate(path: Path, outcome, *, tolerances, plugin: str, console,
     write_certificate(path, results, problems=outcome.problems, solutions=outcome.solutions,
                       references=outcome.references, tolerances=tolerances, plugin=plugin,
                       ao_convention=ao_convention, stability=stability,
-                      require_all=require_all, basis_source=basis_source)
+                      require_all=require_all, basis_source=basis_source, grid=grid)
     if not quiet:
         console.print(f"certificate: {path} (solutions in {sidecar_path(path).name})",
                       markup=False, soft_wrap=True)
@@ -638,7 +658,7 @@ def _certify(args, console) -> int:
                 reference_dir=args.references, reference_cache=args.reference_cache,
                 write_references=args.write_references, results_path=partial,
                 on_result=on_result, plugin_checked=False, require_all=args.require_all,
-                basis_source=_basis_source(args))
+                basis_source=_basis_source(args), grid=_grid(args))
         else:
             outcome = run_cases(cases, plugin, tolerances=tolerances,
                                 convergence=args.convergence,
@@ -648,7 +668,7 @@ def _certify(args, console) -> int:
                                 write_references=args.write_references, results_path=partial,
                                 on_result=on_result, plugin_checked=True,
                                 require_all=args.require_all,
-                                basis_source=_basis_source(args))
+                                basis_source=_basis_source(args), grid=_grid(args))
         if not args.quiet and outcome.cases:
             console.print()
         report.render(outcome, console, quiet=args.quiet)
@@ -669,7 +689,7 @@ def _certify(args, console) -> int:
                                console=console, quiet=args.quiet,
                                ao_convention=args.ao_convention, stability=args.stability,
                                require_all=args.require_all,
-                               basis_source=_basis_source(args))
+                               basis_source=_basis_source(args), grid=_grid(args))
     return 0 if outcome.passed else 1
 
 
@@ -698,6 +718,7 @@ def _check_result(args, console) -> int:
     case = result_case(geometry=args.geometry, basis=args.basis, method=args.method,
                        charge=args.charge, multiplicity=args.multiplicity,
                        cartesian=args.cartesian, name=args.name,
+                       functional=args.functional,
                        note=f"check-result of {args.file.name}")
     convergence = args.convergence if args.convergence is not None else DEFAULT_CONVERGENCE
     problem = case.problem(convergence)
@@ -723,7 +744,7 @@ def _check_result(args, console) -> int:
         result = judge(problem, extracted, reference, JudgeSettings(
             tolerances=tolerances, ao_convention=args.ao_convention, stability=args.stability,
             reference_source=source, reference_error=reference_error,
-            basis_source=_basis_source(args)))
+            basis_source=_basis_source(args), grid=_grid(args)))
     outcome = RunOutcome(cases=(result,), interrupted=False,
                          seconds=time.perf_counter() - started,
                          problems={case.name: problem}, solutions={case.name: extracted},
@@ -744,7 +765,7 @@ def _check_result(args, console) -> int:
         _write_certificate(args.certificate, outcome, tolerances=tolerances, plugin=label,
                            console=console, quiet=args.quiet,
                            ao_convention=args.ao_convention, stability=args.stability,
-                           basis_source=_basis_source(args))
+                           basis_source=_basis_source(args), grid=_grid(args))
     return 0 if outcome.passed else 1
 
 

@@ -19,6 +19,7 @@ over its key, and ``--scf-tol`` wins per check over ``tolerances``)::
     scheduler = "local:2"              # a Dask cluster: tcp://HOST:PORT or local:N (as
                                        # certify --scheduler; needs the cluster extra)
     basis_source = "pyscf"             # pyscf | bse (as certify --basis-source)
+    grid = "pinned"                    # pinned | own (Kohn–Sham; as certify --grid)
 
 This module imports only the standard library, ``harness.contract.errors``,
 ``harness.contract.defaults`` and, when needed, ``harness.checks.tolerances`` (all light),
@@ -57,7 +58,7 @@ DEFAULT_STABILITY = _defaults.DEFAULT_STABILITY
 
 #: The keys of the table, in the order the documentation lists them.
 KEYS = ("plugin", "suite", "cases_file", "tolerances", "timeout", "convergence", "stability",
-        "require_all", "scheduler", "basis_source")
+        "require_all", "scheduler", "basis_source", "grid")
 
 
 class ConfigError(HarnessError):
@@ -78,6 +79,8 @@ class Settings:
     instead of being skipped, as ``certify --require-all``.
     ``scheduler``: a Dask scheduler address or ``local:N`` (the cases then run as tasks
     on that cluster, ``harness.run.cluster``), or None (each item runs its case here).
+    ``grid``: Kohn–Sham, "own" when the code integrates on its own grid (as ``certify
+    --grid own``), else None (pinned).
     ``source``: the pyproject.toml that was read ("" if none); ``from_flags``: the
     names of the settings that came from flags.
     """
@@ -92,6 +95,7 @@ class Settings:
     require_all: bool = False
     scheduler: str | None = None
     basis_source: str = "pyscf"
+    grid: str | None = None
     source: str = ""
     from_flags: frozenset = frozenset()
 
@@ -120,6 +124,8 @@ class Settings:
             parts.append("--require-all")
         if self.basis_source != "pyscf":
             parts += ["--basis-source", self.basis_source]
+        if self.grid == "own":
+            parts += ["--grid", "own"]
         return " ".join(parts)
 
 
@@ -275,9 +281,20 @@ def _basis_source(value, where, field) -> str:
         raise ConfigError(exc.detail, case=where, field=field) from None
 
 
+GRID_CHOICES = ("pinned", "own")
+
+
+def _grid(value, where, field) -> str | None:
+    if not isinstance(value, str) or value.strip().lower() not in GRID_CHOICES:
+        raise ConfigError(f"expected one of {', '.join(GRID_CHOICES)}, got {value!r}",
+                          case=where, field=field)
+    return "own" if value.strip().lower() == "own" else None
+
+
 _PARSERS = {"plugin": _plugin, "suite": _suites, "tolerances": _tolerances,
             "timeout": _timeout, "convergence": _convergence, "stability": _stability,
-            "require_all": _boolean, "scheduler": _scheduler, "basis_source": _basis_source}
+            "require_all": _boolean, "scheduler": _scheduler, "basis_source": _basis_source,
+            "grid": _grid}
 
 
 def parse_table(table: Mapping[str, Any], source: str = "pyproject.toml") -> dict[str, Any]:
@@ -305,7 +322,7 @@ def parse_flags(*, plugin: str | None = None, suites: Sequence[str] | None = Non
                 convergence: str | None = None, stability: str | None = None,
                 cases_file: str | None = None, require_all: bool | None = None,
                 base=None, scheduler: str | None = None,
-                basis_source: str | None = None) -> dict[str, Any]:
+                basis_source: str | None = None, grid: str | None = None) -> dict[str, Any]:
     """Validate the ``--scf-…`` flag values (strings as typed; None: not given).
 
     ``tolerances`` are ``CHECK=VALUE`` strings as for ``--tol``; a relative
@@ -344,6 +361,8 @@ def parse_flags(*, plugin: str | None = None, suites: Sequence[str] | None = Non
         out["scheduler"] = _scheduler(scheduler, None, "--scf-scheduler")
     if basis_source is not None:
         out["basis_source"] = _basis_source(basis_source, None, "--scf-basis-source")
+    if grid is not None:
+        out["grid"] = _grid(grid, None, "--scf-grid")
     return out
 
 
@@ -363,7 +382,8 @@ def resolve(flags: Mapping[str, Any], keys: Mapping[str, Any], source: str = "")
                     stability=pick("stability", DEFAULT_STABILITY),
                     require_all=bool(pick("require_all", False)),
                     scheduler=pick("scheduler", None),
-                    basis_source=pick("basis_source", "pyscf"), source=source,
+                    basis_source=pick("basis_source", "pyscf"),
+                    grid=pick("grid", None), source=source,
                     from_flags=frozenset(flags))
 
 

@@ -98,6 +98,11 @@ def pytest_addoption(parser: pytest.Parser) -> None:
                     help="where named basis sets come from: pyscf's copies (default) or "
                     "basis_set_exchange (pip install 'scf-harness[bse]'), as certify "
                     "--basis-source. Key: basis_source")
+    group.addoption("--scf-grid", dest="scf_grid", default=None, choices=("pinned", "own"),
+                    help="Kohn–Sham only: 'own' when the code integrates the XC term on its "
+                    "own quadrature grid (XC tolerances from a measured grid sensitivity, "
+                    "stated in the message), as certify --grid. Key: grid. Default: pinned "
+                    "unless the solution says grid='own'")
     group.addoption("--scf-stability", dest="scf_stability", default=None,
                     metavar="|".join(_config.STABILITY_CHOICES),
                     help="orbital stability analysis of the code's solution, as certify "
@@ -123,6 +128,7 @@ def pytest_configure(config: pytest.Config) -> None:
             convergence=getattr(opt, "scf_convergence", None),
             stability=getattr(opt, "scf_stability", None),
             basis_source=getattr(opt, "scf_basis_source", None),
+            grid=getattr(opt, "scf_grid", None),
             cases_file=getattr(opt, "scf_cases_file", None),
             require_all=getattr(opt, "scf_require_all", None),
             base=config.invocation_params.dir,
@@ -234,7 +240,7 @@ class CaseItem(pytest.Item):
                                 timeout=settings.timeout, convergence=settings.convergence,
                                 stability=settings.stability, plugin_checked=True,
                                 require_all=settings.require_all,
-                                basis_source=settings.basis_source)
+                                basis_source=settings.basis_source, grid=settings.grid)
             if outcome.interrupted or not outcome.cases:
                 raise KeyboardInterrupt
             result = outcome.cases[0]
@@ -273,7 +279,7 @@ def _cluster_result(item: "CaseItem"):
         options = task_options(tolerances=Tolerances(overrides=dict(settings.tolerances)),
                                convergence=settings.convergence, stability=settings.stability,
                                timeout=settings.timeout, require_all=settings.require_all,
-                               basis_source=settings.basis_source)
+                               basis_source=settings.basis_source, grid=settings.grid)
         run = ClusterRun(settings.scheduler, settings.plugin, options)
         state = {"run": run, "index": {}}
         config.stash[_CLUSTER] = state
@@ -418,7 +424,7 @@ def scf_check(request, scf_case):
             tolerances=Tolerances(overrides=dict(settings.tolerances)),
             ao_convention=ao_convention, stability=settings.stability,
             reference_source=source, reference_error=reference_error,
-            basis_source=settings.basis_source))
+            basis_source=settings.basis_source, grid=settings.grid))
         lines = [result.error] if result.error is not None else []
         for r in result.failures:
             lines.append(r.message)

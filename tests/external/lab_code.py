@@ -4,7 +4,8 @@
 
 It reads ``problem.json`` (format scf-harness-problem/1, coordinates in bohr) and the
 basis from ``basis.nwchem`` (pyscf's NWChem parser, used for the integrals only), runs
-the bundled example SCF code (``harness.testing.example_scf.LabSCF``: numpy Hartree–Fock) and
+the bundled example SCF code (``harness.testing.example_scf.LabSCF``: numpy Hartree–Fock,
+or Kohn–Sham on the pinned grid of ``grid.npz`` with the functional of problem.json) and
 writes the result as ``.npz``, ``.json`` or ``.h5`` by the output's suffix (energies in
 hartree). It refuses to run (exit status 4) if pyscf's AO order for that basis is not
 the one in ``ao_order.txt``. ``--fail-with N`` exits with status N after writing
@@ -23,6 +24,13 @@ import numpy as np
 FORMAT = "scf-harness-problem/1"
 
 
+class _Grid:
+    """The pinned quadrature grid of a Kohn–Sham problem (coords bohr, weights)."""
+
+    def __init__(self, coords, weights):
+        self.coords, self.weights = coords, weights
+
+
 class FileProblem:
     """The attributes the example SCF code reads, built from problem.json (bohr)."""
 
@@ -39,6 +47,29 @@ class FileProblem:
         self.convergence = float(doc["convergence"])
         density = doc["files"].get("initial_density")
         self.initial_density = np.load(self.folder / density) if density else None
+        # Kohn–Sham: the functional and the pinned grid (grid.npz: coords bohr, weights)
+        self.functional = doc.get("functional") or None
+        self.grid = None
+        if self.functional:
+            with np.load(self.folder / doc["files"]["grid"]) as grid:
+                self.grid = _Grid(np.array(grid["coords"]), np.array(grid["weights"]))
+        self.shape_method = {"rks": "rhf", "uks": "uhf", "roks": "rohf"}.get(
+            self.method, self.method)
+        # what harness.backend.mole.mole_for reads (the XC evaluation builds a molecule)
+        self.numbers = list(doc["numbers"])
+        self.coordinates = np.asarray(doc["coordinates_bohr"], dtype=float)
+        self.charge = int(doc["charge"])
+        self.multiplicity = int(doc["multiplicity"])
+        self.cartesian = bool(doc["cartesian"])
+        self.basis = self._basis_dict()
+
+    def _basis_dict(self) -> dict:
+        from pyscf.data import elements
+        from pyscf.gto.basis import parse_nwchem
+
+        symbols = {elements.ELEMENTS[z] for z in self.doc["numbers"]}
+        basis_file = str(self.folder / self.doc["files"]["basis"])
+        return {s: parse_nwchem.load(basis_file, s) for s in symbols}
 
     def to_pyscf(self):
         """pyscf Mole from the coordinates (bohr) and the NWChem basis file."""
