@@ -90,8 +90,20 @@ def _all_match(fits) -> bool:
     return all(fit.confident and _dg.matches(fit, exp) for _, fit, exp in fits)
 
 
+def _residual(r: float) -> str:
+    """A fit residual in words: at round-off level it is "residual ≤ 1e-06" (FIT_RESIDUAL,
+    so the hint does not depend on the last bits of a machine's arithmetic)."""
+    return (f"residual ≤ {_dg.FIT_RESIDUAL:.0e}" if r <= _dg.FIT_RESIDUAL
+            else f"residual {r:.0e}")
+
+
 def _forms(fits) -> str:
-    return "; ".join(_dg.describe_fit(fit, label, exp) for label, fit, exp in fits)
+    """:func:`harness.verdict.diagnosis.describe_fit` of each spin, residual in words."""
+    out = []
+    for label, fit, exp in fits:
+        text = _dg.describe_fit(fit, label, exp)
+        out.append(text[:text.rindex(", residual ")] + f", {_residual(fit.residual)}")
+    return "; ".join(out)
 
 
 def _only_off(fits, name) -> bool:
@@ -132,6 +144,7 @@ def ks_fock_diagnosis(problem, ints, d, f, vj_total, vk, xc) -> tuple[str | None
         return None, analysis
     if _only_off(fits, "K"):
         c = [dict(zip(fit.names, fit.coefficients))["K"] for _, fit, _ in fits]
+        analysis["c_x"] = float(np.mean(c))
         return (f"{WRONG_EXCHANGE}: fitted c_x = {fixed(float(np.mean(c)), 3)}, expected "
                 f"{fixed(coeff.hyb, 3)} for {problem.functional!r}: {_forms(fits)}"), analysis
     if "V_c" in xc_terms and _only_off(fits, "V_c"):
@@ -166,17 +179,37 @@ def ks_fock_diagnosis(problem, ints, d, f, vj_total, vk, xc) -> tuple[str | None
             label: fit.to_json() for label, fit, _ in alt}
         if _all_match(alt):
             worst = max(fit.residual for _, fit, _ in fits)
-            return (f"{words}: the Fock matrix fits H + J − c_x K + {name} with residual "
-                    f"{max(fit.residual for _, fit, _ in alt):.0e} (expected "
-                    f"V_xc[{problem.functional}]: residual {worst:.0e})"), analysis
+            best = max(fit.residual for _, fit, _ in alt)
+            return (f"{words}: the Fock matrix fits H + J − c_x K + {name}, {_residual(best)} "
+                    f"(with V_xc[{problem.functional}]: {_residual(worst)})"), analysis
     return None, analysis
 
 
-def ks_energy_candidates(problem, ints, d, xc) -> dict[str, tuple[float, str]]:
-    """Named E − E[P] values (Eh) of Kohn–Sham energy bugs → (value, evidence words)."""
+def ks_energy_candidates(problem, ints, d, xc, terms, c_x=None
+                         ) -> dict[str, tuple[float, str]]:
+    """Named E − E[P] values (Eh) of Kohn–Sham energy bugs → (value, evidence words):
+    correlation energy missing −E_c[P]; exact exchange with the fitted fraction ``c_x``
+    (when the Fock fit found one) (c_x/hyb − 1)·E_K; unpolarised XC in an unrestricted code
+    E_xc[Pα+Pβ unpolarised] − E_xc; unpartitioned weights E_xc[w⁰] − E_xc; the VWN variant
+    E_xc[variant] − E_xc. ``terms``: the KS EnergyTerms of d (E_K with the fraction hyb)."""
     out: dict[str, tuple[float, str]] = {}
     split = _grid.xc_split(problem.functional)
     coords, w = problem.grid.coords, problem.grid.weights
+    hyb = xc.coefficients.hyb
+    if c_x is not None and hyb and not xc.coefficients.range_separated:
+        out[WRONG_EXCHANGE] = ((c_x / hyb - 1.0) * terms.exchange,
+                               f"(c_x/hyb − 1)·E_K with c_x = {fixed(c_x, 3)} from the Fock "
+                               f"fit (E_K = {fixed(terms.exchange, 6)} Eh at hyb = "
+                               f"{fixed(hyb, 3)})")
+    if len(d) == 2:
+        e_u = _grid.xc_on_grid(ints.mol, problem.functional, d.sum(axis=0)[None], coords, w)[0]
+        out[UNPOLARISED] = (e_u - xc.energy, f"E_xc[Pα+Pβ, unpolarised] − E_xc[Pα, Pβ] "
+                                             f"({fixed(e_u - xc.energy, 6, sign=True)} Eh)")
+    w0 = _grid.unpartitioned_weights(ints.mol, coords, w)
+    if w0 is not None:
+        e_0 = _grid.xc_on_grid(ints.mol, problem.functional, d, coords, w0)[0]
+        out[UNPARTITIONED] = (e_0 - xc.energy, f"E_xc[unpartitioned weights] − E_xc[P] "
+                                               f"({fixed(e_0 - xc.energy, 6, sign=True)} Eh)")
     if split is not None and split.correlation:
         e_c = _grid.xc_on_grid(ints.mol, split.correlation, d, coords, w)[0]
         out["correlation energy missing"] = (-e_c, f"−E_c[P] (E_c = {fixed(e_c, 6)} Eh)")

@@ -145,10 +145,11 @@ class _VWNVariant(_XC):
         return {"energy_functional": vwn_variant(problem.functional)[0]}
 
 
-def vwn_rpa_for_b3lyp5(problem) -> dict:
-    """Builds the hybrid on the other VWN parametrisation (VWN-RPA for pyscf's "b3lyp5").
+def other_vwn_parametrisation(problem) -> dict:
+    """Builds the hybrid on the other VWN form of the local correlation (VWN5 ↔ VWN-RPA).
 
-    The classic definition mismatch between programs under the same functional name.
+    The classic definition mismatch between programs under the same functional name:
+    pyscf's "b3lyp" is built on VWN-RPA (VWN3-style), its "b3lyp5" on VWN5.
     """
     return _VWNVariant(problem).iterate()
 
@@ -158,25 +159,33 @@ def correct_ks(problem) -> dict:
     return LabSCF(problem).iterate()
 
 
-def _catalogue():
-    from harness.testing.planted import entries
+#: Failing checks the Kohn–Sham mistakes share: the Fock matrix is not the functional's at
+#: the code's density, E ≠ E[P] of the functional, and the energy is not the reference's.
+_FAILS = ("self-consistency", "energy-consistency", "reference-energy")
 
-    return entries(
-        caught=[
-            (exchange_fraction_of_pbe0, ["water-6-31g-rks-b3lyp"],
-             ["self-consistency", "energy-consistency", "reference-energy"]),
-            (correlation_missing, ["water-sto-3g-rks-lda"],
-             ["self-consistency", "energy-consistency", "reference-energy"]),
-            (lda_potential_with_gga_energy, ["water-6-31g-rks-pbe"],
-             ["self-consistency", "reference-energy"]),
-            (unpolarised_xc_in_uks, ["n-atom-6-31g-uks-lda"],
-             ["self-consistency", "energy-consistency", "reference-energy"]),
-            (weights_without_partition, ["water-sto-3g-rks-lda"],
-             ["self-consistency", "energy-consistency", "reference-energy"]),
-            (vwn_rpa_for_b3lyp5, ["water-6-31g-rks-b3lyp5"],
-             ["self-consistency", "energy-consistency", "reference-energy"]),
-        ],
-        correct=[(correct_ks, ["water-sto-3g-rks-lda", "n-atom-6-31g-uks-lda"])])
+
+def _catalogue():
+    from harness.testing.planted import Planted, note_of
+    from harness.verdict import xc_diagnosis as xd
+
+    def entry(function, case, fails=_FAILS, hint=None, check="self-consistency"):
+        return Planted(function.__name__, function, case, frozenset(fails), note_of(function),
+                       hint=hint, hint_check=check if hint else None)
+
+    vwn = [entry(other_vwn_parametrisation, case, hint=xd.VWN_MISMATCH, check="reference-energy")
+           for case in ("water-6-31g-rks-b3lyp5", "water-6-31g-rks-b3lyp")]
+    return (
+        entry(exchange_fraction_of_pbe0, "water-6-31g-rks-b3lyp", hint=xd.WRONG_EXCHANGE),
+        entry(correlation_missing, "water-sto-3g-rks-lda", hint=xd.MISSING_CORRELATION),
+        entry(lda_potential_with_gga_energy, "water-6-31g-rks-pbe",
+              ("self-consistency", "reference-energy"), hint=xd.LDA_POTENTIAL),
+        entry(unpolarised_xc_in_uks, "n-atom-6-31g-uks-lda", _FAILS + ("spin-squared",),
+              hint=xd.UNPOLARISED),
+        entry(weights_without_partition, "water-sto-3g-rks-lda", hint=xd.UNPARTITIONED),
+        *vwn,
+        entry(correct_ks, "water-sto-3g-rks-lda", ()),
+        entry(correct_ks, "n-atom-6-31g-uks-lda", ()),
+    )
 
 
 #: The planted Kohn–Sham bugs and the correct variant (see the module docstring).
