@@ -230,7 +230,7 @@ def xc_energy_of_density(functional: str, rho: np.ndarray, weights: np.ndarray) 
 #: Composite libxc functionals that pyscf's parser does not expand, as their semi-local
 #: mixtures (libxc id → ((component id, coefficient), ...)); the exact-exchange part comes
 #: from :func:`hybrid_coefficients`. From memory of libxc's source (hyb_gga_xc_b3lyp.c,
-#: hyb_gga_xc_pbeh.c), verified numerically by tests/unit/test_xc_split.py: the mixture's
+#: hyb_gga_xc_pbeh.c), verified numerically by tests/unit/test_diagnosis_ks.py: the mixture's
 #: E_xc equals pyscf's evaluation of the composite to 1e-10 Eh.
 #: 402 B3LYP: 0.08 LDA_X + 0.72 GGA_X_B88 + 0.19 LDA_C_VWN_RPA + 0.81 GGA_C_LYP;
 #: 406 PBE0 (PBEH): 0.75 GGA_X_PBE + GGA_C_PBE.
