@@ -353,3 +353,18 @@ def unpolarised_potential(mol, functional: str, d: np.ndarray, coords: np.ndarra
     unrestricted code gets when it calls the closed-shell XC routine), Eh."""
     total = np.asarray(d).sum(axis=0)[None]
     return xc_on_grid(mol, functional, total, coords, weights)[1][0]
+
+
+def xc_with_grids(mol, grids, functional: str, d: np.ndarray) -> tuple[float, np.ndarray]:
+    """(E_xc (Eh), V_xc (ns, nao, nao)) of ``functional`` at d (leading spin axis: one
+    component unpolarised, two polarised) on a pyscf ``Grids`` object already built (an
+    SCF loop's, see :class:`XCEvaluator`; the planted Kohn–Sham variants)."""
+    from pyscf.dft import numint
+
+    ni = numint.NumInt()
+    d = np.ascontiguousarray(d, dtype=float)
+    if len(d) == 1:
+        _, e, v = ni.nr_rks(mol, grids, functional, d[0])
+        return float(e), np.asarray(v)[None]
+    _, e, v = ni.nr_uks(mol, grids, functional, d)
+    return float(e), np.asarray(v)
