@@ -221,3 +221,150 @@ def xc_energy_of_density(functional: str, rho: np.ndarray, weights: np.ndarray) 
 
     exc = libxc.eval_xc(functional, np.asarray(rho, dtype=float), spin=0, deriv=0)[0]
     return float(np.sum(np.asarray(weights) * rho * exc))
+
+
+# --------------------------------------------------------------------------- diagnosis
+# Pieces the same-density diagnosis (harness.verdict.diagnosis) regresses a Kohn–Sham
+# code's Fock matrix on; evaluated only after some check failed.
+
+#: Composite libxc functionals that pyscf's parser does not expand, as their semi-local
+#: mixtures (libxc id → ((component id, coefficient), ...)); the exact-exchange part comes
+#: from :func:`hybrid_coefficients`. From memory of libxc's source (hyb_gga_xc_b3lyp.c,
+#: hyb_gga_xc_pbeh.c), verified numerically by tests/unit/test_diagnosis_ks.py: the mixture's
+#: E_xc equals pyscf's evaluation of the composite to 1e-10 Eh.
+#: 402 B3LYP: 0.08 LDA_X + 0.72 GGA_X_B88 + 0.19 LDA_C_VWN_RPA + 0.81 GGA_C_LYP;
+#: 406 PBE0 (PBEH): 0.75 GGA_X_PBE + GGA_C_PBE.
+COMPOSITES = {402: ((1, 0.08), (106, 0.72), (8, 0.19), (131, 0.81)),
+              406: ((101, 0.75), (130, 1.0))}
+#: libxc ids of the two VWN parametrisations of the local correlation: LDA_C_VWN (VWN5, the
+#: form fitted to the Ceperley–Alder data) and LDA_C_VWN_RPA (the "RPA" form, VWN3-like).
+VWN5_ID, VWN_RPA_ID = 7, 8
+#: The LDA functional a GGA code's planted "LDA potential" is compared with (Slater
+#: exchange + VWN5 correlation, pyscf's "lda,vwn").
+LDA_FUNCTIONAL = "lda,vwn"
+
+
+def _component_names() -> dict[int, str]:
+    import re
+
+    from pyscf.dft import libxc
+
+    out: dict[int, str] = {}
+    for name, code in libxc.XC_CODES.items():
+        if isinstance(code, str) or not re.match(r"^(LDA|GGA|MGGA)_(X|C)(_|$)", name):
+            continue
+        out.setdefault(int(code), name)
+    return out
+
+
+def xc_components(functional: str) -> tuple[tuple[str, float], ...] | None:
+    """The semi-local components of ``functional`` as (libxc name, coefficient), composite
+    functionals expanded by :data:`COMPOSITES`; None when a component is not a pure
+    exchange or correlation functional (e.g. ωB97X's range-separated GGA)."""
+    from pyscf.dft import libxc
+
+    names = _component_names()
+    out: list[tuple[str, float]] = []
+    for code, coef in libxc.parse_xc(functional)[1]:
+        parts = COMPOSITES.get(int(code), ((int(code), 1.0),))
+        for sub, c in parts:
+            if int(sub) not in names:
+                return None
+            out.append((names[int(sub)], float(coef) * float(c)))
+    return tuple(out)
+
+
+def _mixture(components) -> str:
+    return " + ".join(f"{c!r}*{n}" for n, c in components)
+
+
+@dataclasses.dataclass(frozen=True)
+class XCSplit:
+    """A functional's semi-local part split for the Fock fit, as pyscf functional
+    strings: ``exchange`` ("… ," form) and ``correlation`` (", …" form); None when the
+    part is absent."""
+
+    exchange: str | None
+    correlation: str | None
+
+
+def xc_split(functional: str) -> XCSplit | None:
+    """:class:`XCSplit` of ``functional`` (None when :func:`xc_components` cannot split it)."""
+    comps = xc_components(functional)
+    if comps is None:
+        return None
+    x = [(n, c) for n, c in comps if n.split("_")[1] == "X"]
+    cc = [(n, c) for n, c in comps if n.split("_")[1] == "C"]
+    return XCSplit(exchange=f"{_mixture(x)}," if x else None,
+                   correlation=f",{_mixture(cc)}" if cc else None)
+
+
+def vwn_variant(functional: str) -> tuple[str, str] | None:
+    """(pyscf string of ``functional`` with its VWN correlation in the other
+    parametrisation, words naming the two) or None when it has no VWN component.
+    E.g. "b3lyp" (VWN-RPA in pyscf) → the B3LYP mixture on VWN5, "VWN5 instead of VWN-RPA"."""
+    comps = xc_components(functional)
+    if comps is None:
+        return None
+    names = _component_names()
+    vwn5, rpa = names[VWN5_ID], names[VWN_RPA_ID]
+    have = {n for n, _ in comps}
+    if vwn5 in have:
+        swap, words = {vwn5: rpa}, "VWN-RPA (VWN3-style) instead of VWN5"
+    elif rpa in have:
+        swap, words = {rpa: vwn5}, "VWN5 instead of VWN-RPA (VWN3-style)"
+    else:
+        return None
+    new = [(swap.get(n, n), c) for n, c in comps]
+    x = [(n, c) for n, c in new if n.split("_")[1] == "X"]
+    cc = [(n, c) for n, c in new if n.split("_")[1] == "C"]
+    coeff = hybrid_coefficients(functional)
+    hf = f"{coeff.hyb!r}*HF + " if coeff.hyb and not coeff.range_separated else ""
+    return f"{hf}{_mixture(x)},{_mixture(cc)}", words
+
+
+def unpartitioned_weights(mol, coords: np.ndarray, weights: np.ndarray) -> np.ndarray | None:
+    """The weights of the same points without the atomic (Becke) partition: each point's
+    weight in its own atom's radial × angular grid (pyscf ``gen_atomic_grids`` at
+    GRID_LEVEL, GRID_SETTINGS), in the order of ``coords``; None when the points are not
+    those of that grid (a grid not built by :func:`grid_arrays`)."""
+    g = _grids(mol, GRID_LEVEL)
+    tab = g.gen_atomic_grids(mol, g.atom_grid, g.radi_method, g.level, g.prune)
+    cs, ws = [], []
+    for ia in range(mol.natm):
+        ac, aw = tab[mol.atom_symbol(ia)]
+        cs.append(np.asarray(ac) + mol.atom_coord(ia))
+        ws.append(np.asarray(aw))
+    cs, ws = np.vstack(cs), np.concatenate(ws)
+    coords = np.asarray(coords, dtype=float)
+    if cs.shape != coords.shape:
+        return None
+    oa, ob = np.lexsort(coords.T[::-1]), np.lexsort(cs.T[::-1])
+    if np.abs(coords[oa] - cs[ob]).max() > 1e-10:
+        return None
+    out = np.empty_like(ws)
+    out[oa] = ws[ob]
+    return out
+
+
+def unpolarised_potential(mol, functional: str, d: np.ndarray, coords: np.ndarray,
+                          weights: np.ndarray) -> np.ndarray:
+    """V_xc (nao, nao) of the total density Pα + Pβ evaluated spin-unpolarised (what an
+    unrestricted code gets when it calls the closed-shell XC routine), Eh."""
+    total = np.asarray(d).sum(axis=0)[None]
+    return xc_on_grid(mol, functional, total, coords, weights)[1][0]
+
+
+def xc_with_grids(mol, grids, functional: str, d: np.ndarray) -> tuple[float, np.ndarray]:
+    """(E_xc (Eh), V_xc (ns, nao, nao)) of ``functional`` at d (leading spin axis: one
+    component unpolarised, two polarised) on a pyscf ``Grids`` object already built (an
+    SCF loop's, see :class:`XCEvaluator`; the planted Kohn–Sham variants)."""
+    from pyscf.dft import numint
+
+    ni = numint.NumInt()
+    d = np.ascontiguousarray(d, dtype=float)
+    if len(d) == 1:
+        _, e, v = ni.nr_rks(mol, grids, functional, d[0])
+        return float(e), np.asarray(v)[None]
+    _, e, v = ni.nr_uks(mol, grids, functional, d)
+    return float(e), np.asarray(v)

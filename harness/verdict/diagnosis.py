@@ -663,7 +663,7 @@ def _passed(results: Mapping, name: str) -> bool:
 
 
 def diagnose(problem, sol: Solution, ints, d: np.ndarray, results, *, reference=None,
-             jk=None) -> Diagnosis:
+             jk=None, xc=None) -> Diagnosis:
     """Hints for the failing checks of one solution, from the same density ``d``.
 
     ``sol`` is the extracted solution (pyscf AO order), ``ints`` the AOIntegrals,
@@ -675,6 +675,9 @@ def diagnose(problem, sol: Solution, ints, d: np.ndarray, results, *, reference=
     reference-energy when E[P] itself agrees with E_ref. ``jk``: (J, K) of ``d`` as evaluate
     computed them, to save a J/K build: J per component (ns, nao, nao) — then nothing is
     rebuilt — or J of the total density (nao, nao) with K per component.
+    Kohn–Sham problems: the rebuilt Fock and E[P] are the KS ones (``harness.verdict.xc``;
+    ``xc``: the pinned XCPieces of ``d`` as evaluate computed them), and the Fock fit and
+    the energy signatures are those of ``harness.verdict.xc_diagnosis``.
     Bohr and Eh throughout. Pure: no I/O.
     """
     if not isinstance(results, Mapping):
@@ -685,7 +688,7 @@ def diagnose(problem, sol: Solution, ints, d: np.ndarray, results, *, reference=
     if not failing or "well-formed" in failing:
         return Diagnosis(hints, analysis)
 
-    method = problem.method
+    method = problem.shape_method  # rks/uks/roks share rhf/uhf/rohf's array shapes
     d = np.asarray(d, dtype=float)
     s = ints.s
     geometry, numbers = geometry_hints(problem, sol, results)
@@ -723,7 +726,14 @@ def diagnose(problem, sol: Solution, ints, d: np.ndarray, results, *, reference=
             j, vk = ints.jk_components(d)
             vj_total = j.sum(axis=0)
 
-    rebuilt = _energy.fock_from_terms(ints.h, vj_total, vk, len(d))
+    ks = bool(getattr(problem, "is_kohn_sham", False))
+    if ks:
+        from harness.verdict import xc as _xc
+        from harness.verdict import xc_diagnosis as _xd
+
+        rebuilt, ks_terms, xc = _xc.fock_and_energy_terms(problem, d, ints, vj_total, vk, xc)
+    else:
+        rebuilt = _energy.fock_from_terms(ints.h, vj_total, vk, len(d))
     built = density_from_orbitals(*orbitals_by_spin(method, sol.coefficients,
                                                     sol.occupations))
     hint, numbers = stale_density_hint(method, d, built, rebuilt, s, results)
@@ -735,7 +745,15 @@ def diagnose(problem, sol: Solution, ints, d: np.ndarray, results, *, reference=
     # 1. Fock fit
     fock_note = None
     screening = None
-    if sol.fock is not None:
+    if sol.fock is not None and ks:
+        f = fock_by_spin(method, sol.fock)
+        fock_note, analysis["fock_fit"] = _xd.ks_fock_diagnosis(problem, ints, d, f,
+                                                                vj_total, vk, xc)
+        if fock_note:
+            for name in ("stationarity", "self-consistency"):
+                if _failed(results, name):
+                    hints[name] = fock_note
+    elif sol.fock is not None:
         f = fock_by_spin(method, sol.fock)
         fits = fit_fock(method, f, t, v, j, vk)
         merged = "J(P)" in fits[0][2]
@@ -756,7 +774,7 @@ def diagnose(problem, sol: Solution, ints, d: np.ndarray, results, *, reference=
                 screening = (hint, f_tau)
 
     # 2. energy split
-    terms = _energy.energy_terms(d, ints.h, vj_total, vk, ints.e_nuc)
+    terms = ks_terms if ks else _energy.energy_terms(d, ints.h, vj_total, vk, ints.e_nuc)
     p = d.sum(axis=0)
     e_kin = float(np.einsum("pq,qp->", p, t))
     e_att = float(np.einsum("pq,qp->", p, v))
@@ -774,10 +792,18 @@ def diagnose(problem, sol: Solution, ints, d: np.ndarray, results, *, reference=
     if e_ref is not None:
         analysis["energy"]["E_ref"] = float(e_ref)
         analysis["energy"]["E[P] - E_ref"] = terms.total - float(e_ref)
+    if ks:
+        analysis["energy"]["E_xc"] = terms.xc
+    ks_cand = (_xd.ks_energy_candidates(problem, ints, d, xc, terms,
+                                        analysis.get("fock_fit", {}).get("c_x"))
+               if ks and _failed(results, "energy-consistency") else {})
+    cand.update({n: value for n, (value, _) in ks_cand.items()})
     if _failed(results, "energy-consistency"):
         name = unique_match(diff, cand, ENERGY_MATCH, ENERGY_SEPARATION)
         hint = None
-        if name:
+        if name in ks_cand:
+            hint = f"{name}: E − E[P] = {fixed(diff, 6, sign=True)} Eh = {ks_cand[name][1]}"
+        elif name:
             hint = energy_hint(name, diff, cand, terms, e_nuc_ang)
             fock_word = FOCK_FOR_ENERGY.get(name)
             if fock_word and fock_note and fock_note.startswith(fock_word):
@@ -803,13 +829,19 @@ def diagnose(problem, sol: Solution, ints, d: np.ndarray, results, *, reference=
                 hints["reference-energy"] = (f"{hint}; E[P] agrees with E_ref to "
                                              f"{abs(terms.total - float(e_ref)):.1e} Eh")
 
+    if ks and e_ref is not None and _failed(results, "reference-energy"):
+        # the definition mismatch, said plainly, replaces a generic energy hint
+        hint = _xd.vwn_reference_hint(problem, ints, d, xc, e, float(e_ref))
+        if hint:
+            hints["reference-energy"] = hint
+
     # 3. orbital energies
     if sol.orbital_energies is not None and method != "rohf":
         c, occ = orbitals_by_spin(method, sol.coefficients, sol.occupations)
         eps = np.asarray(sol.orbital_energies, dtype=float)
         eps = eps[None] if method == "rhf" else eps
         f = (fock_by_spin(method, sol.fock) if sol.fock is not None
-             else _energy.fock_from_terms(ints.h, vj_total, vk, len(d)))
+             else rebuilt)
         r = rayleigh_quotients(f, c, s)
         analysis["orbital_energies"] = {
             "fock": "reported" if sol.fock is not None else "rebuilt",

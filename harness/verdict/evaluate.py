@@ -302,10 +302,10 @@ def _evaluate(problem, extracted, reference, tolerances, integrals, ao_conventio
         energy_step=tol.overrides.get("history"))
 
     analysis: dict = {}
-    # the same-density analysis is Hartree–Fock's; Kohn–Sham hints are not built yet
-    if not problem.is_kohn_sham and any(r.status is Status.FAILED for r in results.values()):
+    # the same-density analysis (Kohn–Sham: with the XC pieces, harness.verdict.xc_diagnosis)
+    if any(r.status is Status.FAILED for r in results.values()):
         diagnosis = diagnose(problem, sol, ints, d, results, reference=reference,
-                             jk=(jk.j, vk))
+                             jk=(jk.j, vk), xc=xc)
         analysis = dict(diagnosis.analysis)
         hints = dict(diagnosis.hints)
         ref_result = results.get("reference-energy")

@@ -235,3 +235,20 @@ class TestCommandLine:
         assert result.stderr.strip() == ("scf-harness: error: --only: no planted entry "
                                          "matches 'no-such-entry'")
         assert result.stdout == ""
+
+
+class TestKohnSham:
+    """The planted Kohn–Sham bugs (harness.testing.planted.ks) are shown by the self-test
+    like the others: one row with the note from the docstring and the expected checks."""
+
+    def test_a_ks_row(self):
+        buffer, console = console_text()
+        outcome = st.run_selftest(console, only="planted.ks:correlation_missing")
+        text = buffer.getvalue()
+        assert [o.entry.name for o in outcome.entries] == ["correlation_missing"]
+        assert outcome.n_passed == 1 and outcome.exit_code == 0
+        row = next(line for line in text.splitlines()
+                   if line.startswith("correlation_missing @ water-sto-3g-rks-lda"))
+        assert "✓ caught" in row
+        assert "Evaluates only the exchange part of the functional" in text
+        assert "hint on self-consistency: given in 1 of 1 planted bug" in text

@@ -13,7 +13,8 @@ import importlib
 from typing import Callable
 
 #: Modules of this package that contribute entries, in the order the self-test shows them.
-MODULES = ("core", "hints", "conventions", "integrals", "states", "orientation", "variants")
+MODULES = ("core", "hints", "conventions", "integrals", "states", "orientation", "variants",
+           "ks")
 
 
 @dataclasses.dataclass(frozen=True)
