@@ -131,3 +131,28 @@ def test_without_the_exchange_library_the_failed_basis_says_how(monkeypatch):
                             "'scf-harness[bse]' and the harness also tries the exchange's "
                             "'cc-pvdz'")
     assert "judged_in_basis" not in r.analysis
+
+
+@pytest.mark.slow
+def test_certificate_records_the_basis_judged_in_and_recomputes(tmp_path):
+    """The certificate names the exchange's basis the case was judged in; recomputing
+    from the sidecar judges it there again."""
+    import json
+
+    from harness.report.certificate import verify_certificate, write_certificate
+
+    case = load_catalogue().case("water-sto-3g-rhf")
+    problem = case.problem()
+    reference, _ = reference_for(case)
+    solution = extract(variants.bse_basis_by_name(problem))
+    r = judge(problem, solution, reference)
+    path = write_certificate(tmp_path / "cert.json", [r], problems={case.name: problem},
+                             solutions={case.name: solution},
+                             references={case.name: reference},
+                             plugin="harness.testing.planted.variants:bse_basis_by_name")
+    entry = json.loads(path.read_text())["cases"][0]
+    record = entry["judged_in_basis"]
+    assert (record["label"], record["judged"]) == (f"sto-3g from basis_set_exchange {V}", True)
+    assert record["reference_energy"] == r.reference_energy
+    verified = verify_certificate(path, recompute=True)
+    assert verified.issues == ()
