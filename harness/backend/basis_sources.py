@@ -56,3 +56,48 @@ def bse_basis(name: str, numbers) -> str:
         raise BasisSourceError(f"the basis set exchange has no {name!r} for elements "
                                f"{elements} ({type(exc).__name__}: {exc})".splitlines()[0],
                                field="basis") from None
+
+
+def cross_overlap(mol_a, mol_b):
+    """⟨χ_a|χ_b⟩ (nao_a, nao_b) between the functions of two pyscf molecules with the same
+    atoms (bohr), in each one's own AO layout (pyscf's ``intor_cross("int1e_ovlp")``)."""
+    from pyscf import gto
+
+    return gto.intor_cross("int1e_ovlp", mol_a, mol_b)
+
+
+def contraction_columns(text: str) -> int:
+    """The largest number of contraction columns of one shell of one angular momentum
+    in NWChem-format basis ``text`` (1: segmented; more: a general contraction, as the
+    exchange gives cc-pVXZ); SP (L) shells, one s and one p column, count as 1."""
+    letter, most = None, 0
+    for line in text.splitlines():
+        words = line.split()
+        if len(words) == 2 and words[0][:1].isalpha() and words[1].isalpha():
+            letter = words[1].upper()
+            continue
+        if len(words) >= 2 and letter is not None:
+            try:
+                [float(w.replace("D", "E").replace("d", "e")) for w in words]
+            except ValueError:
+                continue
+            most = max(most, 1 if letter in ("SP", "L") else len(words) - 1)
+    return most
+
+
+def other_source_basis(problem):
+    """(NWChem text, label) of ``problem``'s named basis as the basis_set_exchange gives
+    it, or None when the library is not installed or has no such basis."""
+    try:
+        text = bse_basis(problem.basis, problem.numbers)
+    except BasisSourceError:
+        return None
+    return text, f"{problem.basis} from basis_set_exchange {bse_version()}"
+
+
+def bse_installed() -> bool:
+    try:
+        import basis_set_exchange  # noqa: F401
+    except ImportError:
+        return False
+    return True

@@ -233,6 +233,11 @@ def _case_entry(result: CaseResult, problem, solution, reference) -> dict[str, A
         "reference": _reference_entry(reference, result.reference_source),
         "checks": [_check_entry(c) for c in result.checks],
     }
+    other = (result.analysis or {}).get("judged_in_basis")
+    if other:  # judged in the other source's basis of the same name (issue 11)
+        from harness.catalogue.references import _clean
+
+        entry["judged_in_basis"] = _clean({**other, "reference_energy": result.reference_energy})
     if solution is None:
         entry["solution"] = None
     else:

@@ -46,7 +46,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from harness.contract.errors import CaseError, HarnessError
-from harness.contract.solution import OPTIONAL_TEXT_KEYS
+from harness.contract.solution import BASIS_KEY, OPTIONAL_TEXT_KEYS
 from harness.contract.solution import (HISTORY_KEY, KNOWN_KEYS, MAX_ARRAY_ELEMENTS, READABLE_KINDS,
                               REQUIRED_KEYS, extract)
 
@@ -74,9 +74,11 @@ MOLDEN_ELECTRON_COUNT_TOLERANCE = 1e-6
 MAX_JSON_INT_DIGITS = len(str(int(sys.float_info.max)))
 
 SCALAR_KEYS = ("energy", "converged", "iterations", "xc_energy")
-#: Keys holding text (Kohn–Sham ``functional`` and ``grid``): a string in JSON, a 0-d
-#: string array in npz, a string dataset or attribute in HDF5.
-TEXT_KEYS = OPTIONAL_TEXT_KEYS
+#: Keys holding text (``basis``: the NWChem-format text of the basis the code used, or a
+#: path to it, relative paths taken from the solution file's directory; Kohn–Sham
+#: ``functional`` and ``grid``): a string in JSON, a 0-d string array in npz, a string
+#: dataset or attribute in HDF5.
+TEXT_KEYS = (BASIS_KEY,) + OPTIONAL_TEXT_KEYS
 _SPHERICAL_TAGS = ("[5D]", "[5D7F]", "[5D10F]", "[7F]", "[9G]")
 _CARTESIAN_TAGS = ("[6D]", "[6D10F]", "[10F]", "[15G]")
 
@@ -673,15 +675,26 @@ def read_solution(path, *, problem=None, energy_file=None) -> dict[str, Any]:
         data = read_npz(path)
         out = {k: _numeric(path.name, k, v) for k, v in data.items() if k in KNOWN_KEYS}
         _check_required(path.name, out, data)
-        return out
+        return _basis_beside(path, out)
     if suffix == ".json":
-        return read_json(path)
+        return _basis_beside(path, read_json(path))
     if suffix in (".h5", ".hdf5"):
-        return read_h5(path)
+        return _basis_beside(path, read_h5(path))
     if suffix == ".molden":
         return read_molden(path, problem, energy_file=energy_file)
     raise SolutionFileError(f"unknown suffix {path.suffix or '(none)'!r} (known: "
                             f"{', '.join(SUFFIXES)})", file=path.name)
+
+
+def _basis_beside(path: Path, out: dict) -> dict:
+    """``out`` with a ``basis`` that is a one-line relative path naming a file next to
+    the solution file ``path`` made absolute (extract reads the text from it)."""
+    value = out.get(BASIS_KEY)
+    if isinstance(value, str) and value.strip() and "\n" not in value.strip():
+        name = Path(value.strip()).expanduser()
+        if not name.is_absolute() and (path.parent / name).is_file():
+            out = {**out, BASIS_KEY: str(path.parent / name)}
+    return out
 
 
 def _default_name(geometry: Path, basis: str, method: str) -> str:

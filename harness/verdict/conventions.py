@@ -771,3 +771,26 @@ def named_convention(name: str, mol) -> Convention:
         fac = np.where(np.abs(s_diag - 1.0) <= CONVENTION_MATCH, 1.0, 1.0 / np.sqrt(s_diag))
         diag = s_diag * fac ** 2
     return _convention(src, fac, basis, diag)
+
+
+#: Two bases of one name span "the same space of functions" when each one's functions
+#: lie in the other's span up to this squared norm (max entry of S_bb − S_baS_aa⁻¹S_ab,
+#: both ways). Rounded basis data (digits at 1e-7 of the coefficients) leave ~1e-13;
+#: a different exponent or primitive (Li cc-pVDZ, pyscf's vs the exchange's) ~1e-3.
+#: Functions 1e-5 outside the other basis (squared 1e-10) move E by far less than
+#: the reference tolerance only when the spaces are this close.
+SAME_SPACE = 1e-10
+
+
+def outside_space(s_aa: np.ndarray, s_bb: np.ndarray, s_ab: np.ndarray) -> float:
+    """How far two bases of the same atoms are from spanning the same space.
+
+    With S_aa, S_bb their overlaps and S_ab = ⟨χ_a|χ_b⟩ the cross-overlap, the part of
+    χ_b outside span(χ_a) has Gram matrix R_b = S_bb − S_abᵀ S_aa⁻¹ S_ab (positive
+    semidefinite, zero iff every χ_b lies in span(χ_a)); likewise R_a with a and b
+    swapped. Returns max(max|R_a|, max|R_b|): 0 when the spans are equal (any
+    contraction, order, sign or normalisation of the same primitives). Dimensionless.
+    """
+    r_b = s_bb - s_ab.T @ np.linalg.solve(s_aa, s_ab)
+    r_a = s_aa - s_ab @ np.linalg.solve(s_bb, s_ab.T)
+    return float(max(np.max(np.abs(r_a)), np.max(np.abs(r_b))))

@@ -55,11 +55,17 @@ def _evaluate(problem, solution, reference, settings: JudgeSettings, integrals=N
     """``harness.verdict.evaluate.evaluate_case``, imported when first needed (pyscf);
     in the code's own basis when it gave one (:func:`_in_own_basis`)."""
     from harness.verdict.evaluate import evaluate_case
+    given = solution
     solution, reference, integrals, note = _in_own_basis(problem, solution, reference,
                                                          integrals, settings.basis_source)
-    return evaluate_case(problem, solution, reference, settings.tolerances, integrals,
-                         ao_convention=settings.ao_convention, stability=settings.stability,
-                         basis_note=note, grid=settings.grid)
+    verdict = evaluate_case(problem, solution, reference, settings.tolerances, integrals,
+                            ao_convention=settings.ao_convention, stability=settings.stability,
+                            basis_note=note, grid=settings.grid)
+    if note is None and not isinstance(given.basis, str) and settings.ao_convention is None:
+        from harness.verdict.other_basis import in_other_source
+
+        return in_other_source(problem, solution, reference, settings, integrals, verdict)
+    return verdict, reference
 
 
 def _in_own_basis(problem, solution: Solution, reference, integrals, source="pyscf"):
@@ -154,7 +160,7 @@ def judge(problem, solution: Solution, reference=None,
     energy = solution.energy if isinstance(solution.energy, float) else None
     start = time.perf_counter()
     try:
-        verdict = _evaluate(problem, solution, reference, settings, integrals)
+        verdict, used = _evaluate(problem, solution, reference, settings, integrals)
     except Exception as exc:
         frame = _check_frame(exc.__traceback__)  # innermost check-code frame
         where = f"{frame.name} ({frame.filename}:{frame.lineno})" if frame else "evaluate"
@@ -167,5 +173,7 @@ def judge(problem, solution: Solution, reference=None,
             failed("reference-energy", f"reference-energy: no reference ({problem.name}): "
                    f"{settings.reference_error}") if c.name == "reference-energy" else c
             for c in checks)
+    if used is not reference and "judged_in_basis" in verdict.analysis:
+        common["reference_energy"] = reference_energy(used)  # the basis it was judged in
     return CaseResult(checks=checks, energy=energy, check_seconds=time.perf_counter() - start,
                       analysis=verdict.analysis, **common)

@@ -153,23 +153,23 @@ def test_openqp_h2_stale_orbital_energies_are_caught(openqp):
         "roothaan-hall: max|X(FC − SCε)| = 4.2e-01 > 1.0e-05 (h2-sto-3g-rhf), orbital 1")
 
 
-@pytest.mark.xfail(strict=True, reason="issue 11 item 2: OpenQP's STO-3G (basis-set "
-                   "exchange digits) gives an S 1.7e-8 off pyscf's; orthonormality, "
-                   "idempotency, electron count and energy-consistency fail with it")
 def test_openqp_water_judged_in_own_metric(openqp):
-    failed, _ = verdict(rc.solve_openqp, "water-sto-3g-rhf")
-    assert "overlap" in failed  # 1.7e-8 (O 2s, H 1s)
+    """OpenQP's STO-3G is the basis-set exchange's (more digits, S 1.7e-8 off pyscf's):
+    judged in that basis, every check passes."""
+    failed, result = verdict(rc.solve_openqp, "water-sto-3g-rhf")
     assert failed & (OWN_METRIC | {"energy-consistency"}) == set()
+    assert result.analysis["judged_in_basis"]["judged"] is True
+    assert "use --basis-source bse to say so" in message(result, "basis")
 
 
-@pytest.mark.xfail(strict=True, reason="issue 11 item 1: OpenQP's cc-pVDZ (general "
-                   "contraction from the basis-set exchange) is the same space as pyscf's; "
-                   "E agrees with the reference to 3e-13, yet 'basis differs' (overlap-"
-                   "spectrum distance 7.2e-01) and every matrix check fails")
 def test_openqp_cc_pvdz_same_space_other_contraction(openqp):
     failed, result = verdict(rc.solve_openqp, "water-cc-pvdz-rhf")
-    assert abs(result.energy - result.reference_energy) < 1e-9  # true today
+    assert abs(result.energy - result.reference_energy) < 1e-9
     assert "basis" not in failed
+    assert message(result, "basis").startswith(
+        "basis: your overlap is cc-pvdz as the basis-set exchange ")
+    assert "the same space of functions, differently contracted: E must agree" in \
+        message(result, "basis")
 
 
 @pytest.mark.xfail(strict=True, reason="issue 11 item 3: pyquante2's core guess lands on the "
@@ -183,25 +183,18 @@ def test_pyquante2_nh2_known_state_is_named(pyquante2):
     assert (ref.hint or "").startswith("your solution is the known state")
 
 
-@pytest.mark.xfail(strict=True, reason="issue 11 items 1/4: OpenQP's 6-31G* is pyscf's up to "
-                   "shell order (1s 2s 2p 3s 3p d), cartesian d order (xx yy zz xy xz yz) "
-                   "and unit d norms — detect_convention finds that map at tolerance 1e-6 "
-                   "(residual 4.2e-7, basis-set-exchange digits) but not at the default "
-                   "CONVENTION_MATCH = 1e-8, so 'basis differs'")
 def test_openqp_6_31gd_mapping_found_despite_basis_digits(openqp):
     failed, _ = verdict(rc.solve_openqp, "ammonia-6-31gd-rhf")
     assert "basis" not in failed
 
 
-@pytest.mark.xfail(strict=True, reason="issue 11 item 4 (harness bug): after a failed basis "
-                   "check the matrix and integral checks still run on the unmapped arrays "
-                   "(kinetic 6.2e-01, orthonormality, stationarity …) although the README "
-                   "says they are skipped")
 def test_openqp_failed_basis_skips_matrix_checks(openqp):
     # pyscf's Li cc-pVDZ is another basis than the exchange's: E differs by 1.1e-4 Eh
-    failed, _ = verdict(rc.solve_openqp, "lih-cc-pvdz-rhf")
+    failed, result = verdict(rc.solve_openqp, "lih-cc-pvdz-rhf")
     assert "basis" in failed  # a true verdict: the bases differ
     assert failed <= {"basis", "reference-energy"}
+    assert message(result, "basis").startswith(
+        "basis: the basis differs: your overlap is cc-pvdz as the basis-set exchange ")
 
 
 def test_openqp_harness_basis_cc_pvdz_passes(openqp):
