@@ -235,15 +235,32 @@ def _kill_own_group() -> None:
         pass
 
 
+def _limit_blas(threads: int) -> None:
+    """Limit numpy's BLAS (OpenBLAS, MKL) to ``threads`` threads in this process, through
+    threadpoolctl when it is installed (the ``parallel`` extra; environment variables are
+    too late: numpy is preloaded); without it nothing happens. Never raises."""
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:
+        return
+    try:
+        threadpool_limits(limits=max(1, int(threads)), user_api="blas")
+    except Exception:  # pragma: no cover - an unusual BLAS
+        pass
+
+
 def _share_cores(jobs: int) -> None:
     """Give each of ``jobs`` concurrent children its share of the cores for pyscf's
-    OpenMP threads (environment variables are too late: pyscf is preloaded)."""
+    OpenMP threads and numpy's BLAS threads (environment variables are too late: pyscf
+    and numpy are preloaded), so that N processes do not run 2N threads on N cores."""
+    share = max(1, (os.cpu_count() or 1) // max(1, jobs))
     try:
         from harness.backend.mole import set_threads
 
-        set_threads(max(1, (os.cpu_count() or 1) // max(1, jobs)))
+        set_threads(share)
     except Exception:  # pragma: no cover - pyscf without OpenMP
         pass
+    _limit_blas(share)
 
 
 class _Stopped(BaseException):
@@ -604,12 +621,15 @@ _worker_threads = 1
 
 
 def _set_threads(threads: int) -> None:
+    """pyscf's OpenMP threads and numpy's BLAS threads (:func:`_limit_blas`) of this judge
+    worker."""
     try:
         from harness.backend.mole import set_threads
 
         set_threads(max(1, int(threads)))
     except Exception:  # pragma: no cover - pyscf without OpenMP
         pass
+    _limit_blas(threads)
 
 
 def _judge_worker_init(threads: int) -> None:
@@ -918,7 +938,11 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     judges each solution here, in the harness process, one at a time. Default: ``jobs``
     when ``jobs > 1`` (so the checks run in parallel as the plug-in calls do), else 0.
     With more than one job the largest cases (by number of basis functions) start
-    first (:func:`launch_order`); results keep the input order.
+    first (:func:`launch_order`); results keep the input order. A case of at least
+    ``PREPARE_MIN_AO`` basis functions gets its judge task when it starts
+    (:func:`prepare_and_judge`: reference, integrals and packed ERIs built while the
+    plug-in runs; the child's message is handed over in a file when it ends). Set
+    ``$SCF_HARNESS_TIMELINE`` to a file to log every process's timeline (:func:`timeline`).
     ``reference_lookup(case) -> (reference, source)`` replaces the usual lookup
     (``reference_dir``, ``write_references``) in this process, e.g. the shared cache of
     ``harness.run.cluster``; it is not used by judge workers (give ``judge_workers=0``).
