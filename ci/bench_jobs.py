@@ -32,10 +32,10 @@ from pathlib import Path
 REPO = Path(__file__).resolve().parents[1]
 
 
-def run(suite: str, plugin: str, jobs: int, out: Path) -> tuple[float, dict]:
+def run(suite: str, plugin: str, jobs: int, out: Path, attempt: int = 0) -> tuple[float, tuple]:
     env = dict(os.environ)
     env["PYTHONPATH"] = os.pathsep.join(p for p in (str(REPO), env.get("PYTHONPATH")) if p)
-    log = out.with_suffix(".timeline.jsonl")
+    log = out.with_suffix(f".{attempt}.timeline.jsonl")  # one per run: phases of the best
     log.unlink(missing_ok=True)
     env["SCF_HARNESS_TIMELINE"] = str(log)
     wall = time.time()
@@ -95,9 +95,10 @@ def main(argv=None) -> int:
     with tempfile.TemporaryDirectory() as tmp:
         serial, parallel = [], []
         same = True
-        for _ in range(max(1, args.repeat)):
-            serial.append(run(args.suite, args.plugin, 1, Path(tmp) / "one.json"))
-            parallel.append(run(args.suite, args.plugin, args.jobs, Path(tmp) / "many.json"))
+        for attempt in range(max(1, args.repeat)):
+            serial.append(run(args.suite, args.plugin, 1, Path(tmp) / "one.json", attempt))
+            parallel.append(run(args.suite, args.plugin, args.jobs, Path(tmp) / "many.json",
+                                attempt))
             same = same and (verdicts(Path(tmp) / "one.json")
                              == verdicts(Path(tmp) / "many.json"))
         (t1, l1), (tn, ln) = (min(serial, key=lambda r: r[0]),
