@@ -9,6 +9,13 @@ that both give the same verdicts, and prints the wall times (s) and their ratio
 (``--jobs 1`` time / ``--jobs N`` time; best of ``--repeat`` runs each). Target on two
 cores: ratio ≥ 1.7. The machine's load is printed with the figures: other work on the
 same cores lowers the ratio.
+
+Each run writes its timeline (``$SCF_HARNESS_TIMELINE``, harness.run.runner.timeline):
+for the best run of each the script also prints the start-up before the first case
+(the same in both: CLI imports, suite loading, the plug-in load check), the time from
+the first case to the last (and its ratio: the speed-up of the parallel part), the
+summed plug-in and check times, and the largest case's plug-in and check times (its
+chain bounds the --jobs N run).
 """
 
 from __future__ import annotations
@@ -25,9 +32,13 @@ from pathlib import Path
 REPO = Path(__file__).resolve().parents[1]
 
 
-def run(suite: str, plugin: str, jobs: int, out: Path) -> float:
+def run(suite: str, plugin: str, jobs: int, out: Path, attempt: int = 0) -> tuple[float, tuple]:
     env = dict(os.environ)
     env["PYTHONPATH"] = os.pathsep.join(p for p in (str(REPO), env.get("PYTHONPATH")) if p)
+    log = out.with_suffix(f".{attempt}.timeline.jsonl")  # one per run: phases of the best
+    log.unlink(missing_ok=True)
+    env["SCF_HARNESS_TIMELINE"] = str(log)
+    wall = time.time()
     start = time.perf_counter()
     done = subprocess.run([sys.executable, "-m", "harness", "certify", plugin, "--suite", suite,
                            "--jobs", str(jobs), "--quiet", "--json", str(out)], env=env,
@@ -35,7 +46,37 @@ def run(suite: str, plugin: str, jobs: int, out: Path) -> float:
     seconds = time.perf_counter() - start
     if done.returncode not in (0, 1):
         sys.exit(f"certify --jobs {jobs} failed: {done.stderr.strip()}")
-    return seconds
+    return seconds, (log, wall)
+
+
+def phases(log: Path, wall: float, largest: str | None = None) -> dict:
+    """Per-phase seconds from a run's timeline (see the module docstring); ``largest``:
+    the case to detail (default: the first launched, the largest with --jobs N > 1)."""
+    events: dict[str, dict[str, float]] = {}
+    try:
+        lines = log.read_text().splitlines()
+    except OSError:
+        return {}
+    for line in lines:
+        e = json.loads(line)
+        events.setdefault(e["case"], {}).setdefault(e["event"], e["t"])
+    top = events.pop("", {})
+    if "run-start" not in top or "run-end" not in top:
+        return {}
+
+    def span(d, a, b):
+        return d[b] - d[a] if a in d and b in d else 0.0
+
+    first = largest if largest in events else min(
+        events, key=lambda c: events[c].get("launch", float("inf")), default=None)
+    big = events.get(first, {}) if first else {}
+    return {"start-up": top["run-start"] - wall, "cases": span(top, "run-start", "run-end"),
+            "plug-in sum": sum(span(d, "plugin-start", "plugin-end") for d in events.values()),
+            "checks sum": sum(span(d, "judge-start", "judge-end") for d in events.values()),
+            "first case": first or "",
+            "its plug-in": span(big, "plugin-start", "plugin-end"),
+            "its checks": span(big, "judge-start", "judge-end"),
+            "its preparation": span(big, "prepare-start", "prepared")}
 
 
 def verdicts(path: Path) -> list[tuple[str, bool, tuple]]:
@@ -53,17 +94,36 @@ def main(argv=None) -> int:
     args = parser.parse_args(argv)
     with tempfile.TemporaryDirectory() as tmp:
         serial, parallel = [], []
-        for _ in range(max(1, args.repeat)):
-            serial.append(run(args.suite, args.plugin, 1, Path(tmp) / "one.json"))
-            parallel.append(run(args.suite, args.plugin, args.jobs, Path(tmp) / "many.json"))
-        same = verdicts(Path(tmp) / "one.json") == verdicts(Path(tmp) / "many.json")
+        same = True
+        for attempt in range(max(1, args.repeat)):
+            serial.append(run(args.suite, args.plugin, 1, Path(tmp) / "one.json", attempt))
+            parallel.append(run(args.suite, args.plugin, args.jobs, Path(tmp) / "many.json",
+                                attempt))
+            same = same and (verdicts(Path(tmp) / "one.json")
+                             == verdicts(Path(tmp) / "many.json"))
+        (t1, l1), (tn, ln) = (min(serial, key=lambda r: r[0]),
+                              min(parallel, key=lambda r: r[0]))
+        pn = phases(*ln)
+        p1 = phases(*l1, largest=pn.get("first case"))
     load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
     print(f"suite {args.suite}, plug-in {args.plugin}, {os.cpu_count()} cores, "
           f"load average {load:.1f} before the last run")
-    print(f"--jobs 1: {min(serial):.1f} s wall (best of {len(serial)})")
-    print(f"--jobs {args.jobs}: {min(parallel):.1f} s wall (best of {len(parallel)})")
+    print(f"--jobs 1: {t1:.1f} s wall (best of {len(serial)}; all: "
+          f"{', '.join(f'{t:.1f}' for t, _ in serial)})")
+    print(f"--jobs {args.jobs}: {tn:.1f} s wall (best of {len(parallel)}; all: "
+          f"{', '.join(f'{t:.1f}' for t, _ in parallel)})")
     print(f"same verdicts: {'yes' if same else 'NO'}")
-    print(f"speed-up ratio (jobs 1 / jobs {args.jobs}): {min(serial) / min(parallel):.2f}")
+    for jobs, p in ((1, p1), (args.jobs, pn)):
+        if p:
+            print(f"  --jobs {jobs} phases (s): start-up {p['start-up']:.1f}, cases "
+                  f"{p['cases']:.1f} (plug-in sum {p['plug-in sum']:.1f}, checks sum "
+                  f"{p['checks sum']:.1f}); largest case {p['first case']}: plug-in "
+                  f"{p['its plug-in']:.1f}, checks {p['its checks']:.1f}"
+                  + (f", prepared {p['its preparation']:.1f} ahead"
+                     if p['its preparation'] else ""))
+    if p1 and pn and pn["cases"] > 0:
+        print(f"parallel part (first case to last) ratio: {p1['cases'] / pn['cases']:.2f}")
+    print(f"speed-up ratio (jobs 1 / jobs {args.jobs}): {t1 / tn:.2f}")
     return 0 if same else 1
 
 

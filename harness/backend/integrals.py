@@ -58,6 +58,16 @@ class AOIntegrals:
         fitted = cache["fitted"]
         return None if fitted is None else fitted.jk_components(d)
 
+    def prepare_fitting(self) -> None:
+        """Build the fitted tensor of :meth:`fitted_jk_components` now (if within
+        ``FITTING_MAX_BYTES``), ahead of the checks, as :meth:`prepare_packed_eri`."""
+        from harness.backend import fitting
+
+        if "fitted" not in self._cache:
+            self._cache["fitted"] = (fitting.FittedJK(self.mol)
+                                     if fitting.fitting_bytes(self.mol)
+                                     <= fitting.FITTING_MAX_BYTES else None)
+
     def j(self, d: np.ndarray) -> np.ndarray:
         """J[P]_pq = Σ_rs (pq|rs) P_rs of one (nao, nao) density (Eh), pyscf's direct
         algorithm."""
@@ -65,6 +75,27 @@ class AOIntegrals:
 
         return np.asarray(scf.hf.get_jk(self.mol, np.ascontiguousarray(d), hermi=1,
                                         with_k=False)[0])
+
+    def prepare_packed_eri(self) -> bool:
+        """Compute the packed (8-fold symmetric) ERIs ``mol.intor("int2e", aosym="s8")``
+        now and keep them with these integrals, when pyscf's mean-field objects would hold
+        them in memory anyway (its own rule, with room for the copy kept here); True if
+        kept. Used ahead of the checks (``harness.run.runner``, ``--jobs N > 1``) so a
+        large case's stability analysis does not compute them after the plug-in ends."""
+        from pyscf import lib, scf
+
+        if "eri_s8" in self._cache:
+            return True
+        nbf = self.mol.nao_nr()
+        room = scf.hf.SCF(self.mol).max_memory * .95
+        if not self.mol.incore_anyway and 2 * nbf**4 / 1e6 + lib.current_memory()[0] >= room:
+            return False
+        self._cache["eri_s8"] = self.mol.intor("int2e", aosym="s8")
+        return True
+
+    def packed_eri(self) -> np.ndarray | None:
+        """The packed ERIs kept by :meth:`prepare_packed_eri`, or None."""
+        return self._cache.get("eri_s8")
 
     def kinetic(self) -> np.ndarray:
         """T_pq (Eh), (nao, nao)."""

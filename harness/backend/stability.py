@@ -64,6 +64,9 @@ def scf_object(problem, sol: Solution, ints):
     cls = {"rhf": scf.hf.RHF, "uhf": scf.uhf.UHF, "rohf": scf.rohf.ROHF}[problem.method]
     mf = cls(ints.mol)
     mf.verbose = 0
+    eri = ints.packed_eri() if hasattr(ints, "packed_eri") else None
+    if eri is not None and (ints.mol.incore_anyway or mf._is_mem_enough()):
+        mf._eri = eri  # computed ahead (the same integrals pyscf would compute here)
     c = np.asarray(sol.coefficients, dtype=float)
     occ = np.asarray(sol.occupations, dtype=float)
     mf.mo_coeff, mf.mo_occ = c, occ

@@ -43,6 +43,30 @@ from harness.contract.results import CaseResult
 from harness.run.outcome import RunOutcome  # noqa: F401  (re-exported: run_cases returns it)
 from harness.verdict.judge import JudgeSettings, judge, reference_energy
 
+#: Environment variable naming a file to which every process of a run (the harness, the
+#: case children, the judge workers) appends its timeline: one JSON line per event,
+#: ``{"t": wall-clock s (time.time()), "pid", "case", "event"}``. A debugging aid for
+#: ``--jobs`` (``ci/bench_jobs.py --timeline`` summarises it); unset: nothing is written.
+TIMELINE_ENV = "SCF_HARNESS_TIMELINE"
+
+
+def timeline(event: str, case: str = "") -> None:
+    """Append ``event`` of ``case`` to the ``$SCF_HARNESS_TIMELINE`` file, if set (never raises)."""
+    path = os.environ.get(TIMELINE_ENV)
+    if not path:
+        return
+    try:
+        line = json.dumps({"t": time.time(), "pid": os.getpid(), "case": case,
+                           "event": event}) + "\n"
+        fd = os.open(path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o644)
+        try:
+            os.write(fd, line.encode())
+        finally:
+            os.close(fd)
+    except Exception:
+        pass
+
+
 #: Modules the fork server imports once, so each child starts without re-importing them.
 PRELOAD = ["numpy", "pyscf", "harness.contract.solution", "harness.run.channel"]
 
@@ -211,15 +235,32 @@ def _kill_own_group() -> None:
         pass
 
 
+def _limit_blas(threads: int) -> None:
+    """Limit numpy's BLAS (OpenBLAS, MKL) to ``threads`` threads in this process, through
+    threadpoolctl when it is installed (the ``parallel`` extra; environment variables are
+    too late: numpy is preloaded); without it nothing happens. Never raises."""
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:
+        return
+    try:
+        threadpool_limits(limits=max(1, int(threads)), user_api="blas")
+    except Exception:  # pragma: no cover - an unusual BLAS
+        pass
+
+
 def _share_cores(jobs: int) -> None:
     """Give each of ``jobs`` concurrent children its share of the cores for pyscf's
-    OpenMP threads (environment variables are too late: pyscf is preloaded)."""
+    OpenMP threads and numpy's BLAS threads (environment variables are too late: pyscf
+    and numpy are preloaded), so that N processes do not run 2N threads on N cores."""
+    share = max(1, (os.cpu_count() or 1) // max(1, jobs))
     try:
         from harness.backend.mole import set_threads
 
-        set_threads(max(1, (os.cpu_count() or 1) // max(1, jobs)))
+        set_threads(share)
     except Exception:  # pragma: no cover - pyscf without OpenMP
         pass
+    _limit_blas(share)
 
 
 class _Stopped(BaseException):
@@ -297,6 +338,8 @@ def _child_main(conn, plugin_spec, path: list[str], cwd: str, problem,
     ``plugin_spec`` is a spec string (imported here) or the plug-in callable itself.
     Whatever the plug-in raises, returns or makes unprintable, the child sends one
     one-line message and prints no traceback of its own."""
+    name = multiprocessing.current_process().name.partition(":")[2]
+    timeline("child-enter", name)
     if jobs > 1:
         _share_cores(jobs)
     try:
@@ -315,6 +358,7 @@ def _child_main(conn, plugin_spec, path: list[str], cwd: str, problem,
     else:
         function = plugin_spec
     start = time.perf_counter()
+    timeline("plugin-start", name)
     parent = os.getppid()
     # Only while the plug-in runs: before and after, SIGTERM ends the child quietly.
     signal.signal(signal.SIGTERM, _stop_on_sigterm)
@@ -328,6 +372,7 @@ def _child_main(conn, plugin_spec, path: list[str], cwd: str, problem,
     except BaseException as exc:  # SystemExit from a plug-in is a failure too
         raw, error = None, exc
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    timeline("plugin-end", name)
     if os.getppid() != parent:  # the fork server died under the plug-in
         _send(conn, {"error": PARENT_KILLED}, "cannot send that the fork server died")
         return
@@ -345,6 +390,7 @@ def _child_main(conn, plugin_spec, path: list[str], cwd: str, problem,
         message = {"error": f"unreadable return value: {_message(exc)}", "seconds": seconds}
     # e.g. a value extract let through that cannot be pickled
     _send(conn, message, "cannot send the plug-in's result")
+    timeline("child-sent", name)
 
 
 # -------------------------------------------------------------------------- parent side
@@ -419,6 +465,8 @@ class _Running:
     reference: Any = None
     reference_source: str | None = None
     reference_error: str | None = None
+    handoff: str | None = None  # the file a prepared judge task waits for (prepare_and_judge)
+    concluded: tuple | None = None  # (message, error) once the child has ended
 
 
 def _base_result(case, **fields) -> CaseResult:
@@ -451,7 +499,8 @@ def _finish(run: _Running, message: dict | None, error: str | None,
 
 def finish_case(case, problem, message: dict | None, error: str | None,
                 settings: JudgeSettings, reference, reference_source: str | None,
-                reference_error: str | None, *, require_all: bool = False) -> CaseResult:
+                reference_error: str | None, *, require_all: bool = False,
+                integrals=None) -> CaseResult:
     """The CaseResult of one case from what its child sent (``message``: a dict with
     ``"solution"`` or ``"error"``, and ``"seconds"``; or an unsupported message) or why
     it sent nothing (``error``): an error as it is (with the reference energy, Eh), an
@@ -472,7 +521,7 @@ def finish_case(case, problem, message: dict | None, error: str | None,
                             reference_source=reference_source)
     return judge(problem, message["solution"], reference, dataclasses.replace(
         settings, reference_source=reference_source,
-        reference_error=reference_error, plugin_seconds=seconds))
+        reference_error=reference_error, plugin_seconds=seconds), integrals=integrals)
 
 
 # ------------------------------------------------------------------- judge workers
@@ -492,26 +541,104 @@ def judge_case(case, problem, message: dict | None, error: str | None,
     """The task of a judge worker: ``(CaseResult, reference, reference_source)`` for a
     case whose child has ended. The reference is found as the harness process finds it
     (``harness.catalogue.references.reference_for``); then :func:`finish_case`."""
+    timeline("judge-start", case.name)
     reference, source, reference_error = None, None, None
     try:
         reference, source = _reference(case, reference_dir, write_references)
     except Exception as exc:
         reference_error = f"{type(exc).__name__}: {exc}".splitlines()[0]
+    timeline("reference-loaded", case.name)
     result = finish_case(case, problem, message, error, settings, reference, source,
                          reference_error, require_all=require_all)
+    timeline("judge-end", case.name)
     return result, reference, source
+
+
+#: With ``--jobs N > 1``, a case of at least this many basis functions gets its judge task
+#: at once, while its plug-in runs (:func:`prepare_and_judge`): the work that does not
+#: depend on the solution (reference lookup, AO integrals, the packed ERIs of the
+#: stability analysis: 2.3 of the 5 s of benzene/cc-pVDZ's checks) is then done on the
+#: other core instead of after the plug-in, on the run's critical path. Below it the
+#: preparation costs about as much as it saves.
+PREPARE_MIN_AO = 50
+
+#: Seconds between two looks of a prepared judge task for its hand-off file.
+HANDOFF_POLL = 0.02
+
+
+def prepare_and_judge(case, problem, settings: JudgeSettings, reference_dir,
+                      write_references: bool, require_all: bool, handoff: str):
+    """A judge worker's task started with the case's plug-in: look the reference up and
+    build the integrals (and the packed ERIs, ``AOIntegrals.prepare_packed_eri``, when the
+    stability analysis will need them), then wait for the harness to write
+    ``(message, error, threads)`` (pickled, the harness's own plain data) to the file
+    ``handoff``, and judge as :func:`judge_case` does, with ``threads`` OpenMP threads.
+    Returns what :func:`judge_case` returns; the verdict is the same."""
+    import pickle
+
+    timeline("prepare-start", case.name)
+    parent = os.getppid()
+    reference, source, reference_error = None, None, None
+    try:
+        reference, source = _reference(case, reference_dir, write_references)
+    except Exception as exc:
+        reference_error = f"{type(exc).__name__}: {exc}".splitlines()[0]
+    ints = None
+    try:
+        from harness.backend.integrals import integrals_for
+
+        ints = integrals_for(problem)
+        if settings.stability != "off" and getattr(problem, "method", "") in ("rhf", "uhf",
+                                                                              "rohf"):
+            ints.prepare_packed_eri()
+        ints.prepare_fitting()  # for the checks of small density differences (coulomb)
+    except Exception:  # judged without: judge() builds them and reports what fails
+        ints = None
+    timeline("prepared", case.name)
+    while not os.path.exists(handoff):
+        if os.getppid() != parent:  # the harness is gone
+            os._exit(1)
+        time.sleep(HANDOFF_POLL)
+    with open(handoff, "rb") as fh:
+        message, error, threads = pickle.load(fh)
+    try:
+        os.unlink(handoff)
+    except OSError:
+        pass
+    timeline("judge-start", case.name)
+    _set_threads(threads)
+    try:
+        result = finish_case(case, problem, message, error, settings, reference, source,
+                             reference_error, require_all=require_all, integrals=ints)
+    finally:
+        _set_threads(_worker_threads)
+    timeline("judge-end", case.name)
+    return result, reference, source
+
+
+#: The OpenMP threads a judge worker uses between tasks (set by _judge_worker_init).
+_worker_threads = 1
+
+
+def _set_threads(threads: int) -> None:
+    """pyscf's OpenMP threads and numpy's BLAS threads (:func:`_limit_blas`) of this judge
+    worker."""
+    try:
+        from harness.backend.mole import set_threads
+
+        set_threads(max(1, int(threads)))
+    except Exception:  # pragma: no cover - pyscf without OpenMP
+        pass
+    _limit_blas(threads)
 
 
 def _judge_worker_init(threads: int) -> None:
     """Start of a judge worker: Ctrl-C is the harness's (it cancels the work), pyscf's
     OpenMP threads are this worker's share of the cores."""
+    global _worker_threads
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    try:
-        from harness.backend.mole import set_threads
-
-        set_threads(max(1, threads))
-    except Exception:  # pragma: no cover - pyscf without OpenMP
-        pass
+    _worker_threads = max(1, threads)
+    _set_threads(_worker_threads)
 
 
 def _size(case) -> int:
@@ -542,12 +669,15 @@ class JudgePool:
     is done. A broken pool (a worker killed) is not fatal: :meth:`done` returns the
     failed tasks, which the caller judges in its own process."""
 
-    def __init__(self, workers: int):
+    def __init__(self, workers: int, waiting: int = 0):
         from concurrent.futures import ProcessPoolExecutor
 
         self.workers = max(1, int(workers))
         threads = max(1, (os.cpu_count() or 1) // self.workers)
-        self._executor = ProcessPoolExecutor(max_workers=self.workers, mp_context=_context(),
+        # ``waiting`` more processes for prepared tasks (prepare_and_judge), which sleep
+        # while their plug-in runs
+        self._executor = ProcessPoolExecutor(max_workers=self.workers + max(0, int(waiting)),
+                                             mp_context=_context(),
                                              initializer=_judge_worker_init,
                                              initargs=(threads,))
         self._read, self._write = os.pipe()
@@ -563,10 +693,11 @@ class JudgePool:
     def __len__(self) -> int:
         return len(self._tasks)
 
-    def submit(self, key, *args) -> None:
-        """Judge ``judge_case(*args)`` in a worker; ``key`` comes back from :meth:`done`."""
+    def submit(self, key, *args, task=None) -> None:
+        """Judge ``judge_case(*args)`` (or ``task(*args)``) in a worker; ``key`` comes back
+        from :meth:`done`."""
         try:
-            future = self._executor.submit(judge_case, *args)
+            future = self._executor.submit(task or judge_case, *args)
         except Exception as exc:  # a broken pool: reported as a failed task at once
             from concurrent.futures import Future
 
@@ -808,7 +939,11 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     judges each solution here, in the harness process, one at a time. Default: ``jobs``
     when ``jobs > 1`` (so the checks run in parallel as the plug-in calls do), else 0.
     With more than one job the largest cases (by number of basis functions) start
-    first (:func:`launch_order`); results keep the input order.
+    first (:func:`launch_order`); results keep the input order. A case of at least
+    ``PREPARE_MIN_AO`` basis functions gets its judge task when it starts
+    (:func:`prepare_and_judge`: reference, integrals and packed ERIs built while the
+    plug-in runs; the child's message is handed over in a file when it ends). Set
+    ``$SCF_HARNESS_TIMELINE`` to a file to log every process's timeline (:func:`timeline`).
     ``reference_lookup(case) -> (reference, source)`` replaces the usual lookup
     (``reference_dir``, ``write_references``) in this process, e.g. the shared cache of
     ``harness.run.cluster``; it is not used by judge workers (give ``judge_workers=0``).
@@ -835,6 +970,7 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     path_now = list(sys.path)
     cwd = os.getcwd()
     started = time.perf_counter()
+    timeline("run-start")
     if not plugin_checked:
         try:  # fail early, in one line, on a bad spec (loaded in a child, not here)
             _check_plugin(plugin_spec, path_now, cwd, timeout)
@@ -848,15 +984,21 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     problems: dict[str, Any] = {}
     solutions: dict[str, Any] = {}
     references: dict[str, Any] = {}
+    timeline("plugin-checked")
     pending = launch_order(cases, jobs)
+    timeline("ordered")
     interrupted = False
     ctx = None
     # --jobs > 1: the checks run in judge workers, not one at a time here
     workers = (jobs if jobs > 1 else 0) if judge_workers is None else int(judge_workers)
-    pool = JudgePool(workers) if workers > 0 and len(cases) > 1 else None
+    pool = JudgePool(workers, waiting=workers) if workers > 0 and len(cases) > 1 else None
+    handoffs = None  # the folder of the prepared tasks' hand-off files, made when needed
+    prepared: list[_Running] = []  # runs whose judge task waits for its hand-off
+    timeline("pool-made")
 
     def record(index: int, result: CaseResult) -> None:
         finished[index] = result
+        timeline("recorded", result.name)
         _append_jsonl(results_file, result)
         if on_result is not None:
             on_result(result)
@@ -865,6 +1007,7 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
         nonlocal ctx
         if on_start is not None:
             on_start(case.name)
+        timeline("launch", case.name)
         try:
             problem = (case.problem() if convergence is None
                        else case.problem(convergence=convergence))
@@ -879,12 +1022,16 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
         reader, writer = ctx.Pipe(duplex=True)  # duplex: the child sees our end close
         proc = ctx.Process(target=_child_main, name=f"scf-harness:{case.name}",
                            args=(writer, plugin_spec, path_now, cwd, problem, jobs), daemon=True)
+        timeline("problem-built", case.name)
         proc.start()
         writer.close()
+        timeline("child-started", case.name)
         now = time.monotonic()
         run = _Running(index, case, problem, proc, reader, now + timeout, now)
         running.append(run)
         if pool is not None:  # looked up by the judge worker
+            if len(prepared) < pool.workers and _size(case) >= PREPARE_MIN_AO:
+                prepare(run)
             return
         # The reference is looked up while the child works (a stored one is instant).
         try:
@@ -897,8 +1044,10 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
             from harness.catalogue.references import reference_error_text
             run.reference_error = reference_error_text(exc)
         references[case.name] = run.reference
+        timeline("reference-loaded", case.name)
 
     def collect(run: _Running) -> None:
+        timeline("collect", run.case.name)
         message, error = None, None
         if run.conn.poll():
             try:  # never conn.recv(): nothing from plug-in code is unpickled
@@ -918,19 +1067,62 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
             solutions[run.case.name] = message["solution"]
         conclude(run, message, error)
 
+    def prepare(run: _Running) -> None:
+        """Start the judge task of ``run`` now (:func:`prepare_and_judge`)."""
+        nonlocal handoffs
+        import tempfile
+
+        if handoffs is None:
+            handoffs = tempfile.mkdtemp(prefix="scf-harness-judge-")
+        run.handoff = os.path.join(handoffs, f"{run.index}.pickle")
+        prepared.append(run)
+        pool.submit(run, run.case, run.problem, settings, reference_dir, write_references,
+                    require_all, run.handoff, task=prepare_and_judge)
+        timeline("submitted-prepared", run.case.name)
+
+    def hand_off(run: _Running) -> None:
+        """Give a prepared task what the child sent (the harness's own decoded data) and
+        the cores left free (its OpenMP threads)."""
+        import pickle
+
+        busy = len(running) + len(pool) - len(prepared)
+        threads = max(1, jobs - busy) if not pending else 1
+        partial = run.handoff + ".part"
+        with open(partial, "wb") as fh:
+            pickle.dump((*run.concluded, threads), fh, protocol=pickle.HIGHEST_PROTOCOL)
+        os.replace(partial, run.handoff)
+        prepared.remove(run)
+        timeline("handed-off", run.case.name)
+
     def conclude(run: _Running, message: dict | None, error: str | None) -> None:
         """Judge a case whose child has ended: in a judge worker, or here."""
+        run.concluded = (message, error)
+        if run.handoff is not None:
+            hand_off(run)
+            return
         if pool is None:
-            record(run.index, _finish(run, message, error, settings, require_all))
+            timeline("judge-start", run.case.name)
+            result = _finish(run, message, error, settings, require_all)
+            timeline("judge-end", run.case.name)
+            record(run.index, result)
             return
         pool.submit(run, run.case, run.problem, message, error, settings, reference_dir,
                     write_references, require_all)
+        timeline("submitted", run.case.name)
 
     def judged() -> None:
         """Record the cases the judge workers have finished (a failed task is judged
         here instead: a judge worker that died takes no case with it)."""
         for run, args, value, exc in pool.done():
-            if exc is not None:
+            if exc is not None and run.handoff is not None:  # a prepared task failed
+                if run in prepared:
+                    prepared.remove(run)
+                run.handoff = None
+                if run.concluded is None:  # still running: judged as usual when it ends
+                    continue
+                value = judge_case(run.case, run.problem, *run.concluded, settings,
+                                   reference_dir, write_references, require_all)
+            elif exc is not None:
                 value = judge_case(*args)
             result, reference, source = value
             references[run.case.name] = reference
@@ -973,7 +1165,12 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
             _stop(r, grace=TERMINATE_GRACE)
         if pool is not None:  # judging not finished is dropped with the run
             pool.close()
+        if handoffs is not None:
+            import shutil
+
+            shutil.rmtree(handoffs, ignore_errors=True)
     ordered = tuple(finished[i] for i in sorted(finished))
+    timeline("run-end")
     return RunOutcome(cases=ordered, interrupted=interrupted,
                       seconds=time.perf_counter() - started, problems=problems,
                       solutions=solutions, references=references)

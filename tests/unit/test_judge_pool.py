@@ -7,6 +7,8 @@ from __future__ import annotations
 import dataclasses
 import json
 
+import pytest
+
 from harness.catalogue.cases import load_catalogue
 from harness.checks.tolerances import Tolerances
 from harness.run import runner
@@ -71,3 +73,55 @@ def test_launch_order_largest_first_with_jobs():
     cases = [_Sized("a", 2), _Sized("b", 114), _Sized("c", 7), _Sized("d", 114)]
     assert [c.name for _, c in runner.launch_order(cases, 2)] == ["b", "d", "c", "a"]
     assert [c.name for _, c in runner.launch_order(cases, 1)] == ["a", "b", "c", "d"]
+
+
+@pytest.mark.slow  # 3-6 s measured (two whole runs, shared cores)
+def test_prepared_judge_tasks_give_the_same_report(monkeypatch):
+    """Every case prepared (PREPARE_MIN_AO 0: reference, integrals and packed ERIs in a
+    judge worker while the plug-in runs, then the hand-off file): the report equals
+    judging each case here with --jobs 1."""
+    monkeypatch.setattr(runner, "PREPARE_MIN_AO", 0)
+    catalogue = load_catalogue()
+    cases = [catalogue.case(n) for n in ("h2-sto-3g-rhf", "heh-cation-sto-3g-rhf",
+                                         "oh-sto-3g-uhf")]
+    here = runner.run_cases(cases, PLUGIN, tolerances=Tolerances(), jobs=1)
+    prepared = runner.run_cases(cases, PLUGIN, tolerances=Tolerances(), jobs=2)
+    assert _strip(prepared) == _strip(here)
+    assert all(r is not None for r in prepared.references.values())
+
+
+@pytest.mark.slow  # 3-6 s measured (two whole runs, shared cores)
+def test_a_prepared_case_whose_plugin_fails_reports_the_failure(monkeypatch, tmp_path):
+    """The hand-off carries the child's error: the case fails with the same one-line
+    error as with --jobs 1 (the prepared judge task does not judge a missing solution)."""
+    monkeypatch.setattr(runner, "PREPARE_MIN_AO", 0)
+    plugin = tmp_path / "bad.py"
+    plugin.write_text("def solve(problem):\n    raise ValueError('no convergence')\n")
+    catalogue = load_catalogue()
+    cases = [catalogue.case(n) for n in ("h2-sto-3g-rhf", "heh-cation-sto-3g-rhf")]
+    spec = f"{plugin}:solve"
+    one = runner.run_cases(cases, spec, tolerances=Tolerances(), jobs=1)
+    two = runner.run_cases(cases, spec, tolerances=Tolerances(), jobs=2)
+    assert [c.error for c in two.cases] == [c.error for c in one.cases]
+    assert two.cases[0].error.startswith("ValueError: no convergence (at ")
+    assert not any(c.passed for c in two.cases)
+
+
+def test_packed_eris_computed_ahead_are_used_and_change_nothing():
+    """AOIntegrals.prepare_packed_eri keeps mol.intor('int2e', aosym='s8'); the stability
+    analysis's mean-field object then holds exactly those (no second computation)."""
+    import numpy as np
+
+    from harness.backend.integrals import integrals_for
+    from harness.backend.stability import scf_object
+    from harness.contract.solution import extract
+    from harness.testing.example_scf import solve
+
+    problem = load_catalogue().case("water-sto-3g-rhf").problem()
+    ints = integrals_for(problem)
+    assert ints.packed_eri() is None
+    assert ints.prepare_packed_eri() is True
+    sol = extract(solve(problem))
+    mf = scf_object(problem, sol, ints)
+    assert mf._eri is ints.packed_eri()
+    np.testing.assert_array_equal(mf._eri, ints.mol.intor("int2e", aosym="s8"))
