@@ -43,15 +43,27 @@ def lowdin(s: np.ndarray, threshold: float = LINEAR_DEPENDENCE) -> Lowdin:
     return Lowdin(x=x, root=root, projector=uk @ uk.T, n_dropped=int((~keep).sum()))
 
 
+#: Elements within this relative distance of the largest one count as tied for the place
+#: named in a message, and the first of them (lowest index) is named. Symmetry-equivalent
+#: elements (the two H of water) differ only by round-off, ~1e-15 relative; without this the
+#: place named would depend on the last bits of the BLAS in use. Not a tolerance of any check:
+#: the value reported is always the largest element itself.
+LOCATION_TIE = 1e-9
+
+
 def worst(a: np.ndarray) -> tuple[float, tuple[int, ...]]:
-    """Largest absolute element of ``a`` and its index (NaN counts as largest)."""
+    """Largest absolute element of ``a`` and its index (NaN counts as largest).
+
+    Of elements tied within :data:`LOCATION_TIE` (relative) the first is named."""
     a = np.abs(a)
     if np.isnan(a).any():
         return float("nan"), tuple(int(i) for i in np.argwhere(np.isnan(a))[0])
     if a.size == 0:
         return 0.0, ()
-    idx = np.unravel_index(int(np.argmax(a)), a.shape)
-    return float(a[idx]), tuple(int(i) for i in idx)
+    top = float(a.max())
+    flat = int(np.flatnonzero(a.ravel() >= top * (1.0 - LOCATION_TIE))[0])
+    idx = np.unravel_index(flat, a.shape)
+    return top, tuple(int(i) for i in idx)
 
 
 def worst_of(named) -> tuple[float, tuple[int, ...], str]:

@@ -134,7 +134,7 @@ EXPECTED = {
             None),
         'self-consistency': (
             ('self-consistency: max|X(FPS − SPF)X| = 5.9e-01 > 1.0e-05 '
-             '(water-sto-3g-rks-lda), Löwdin element (2, 6) = (0 O 2px, 2 H 1s)'),
+             '(water-sto-3g-rks-lda), Löwdin element (2, 5) = (0 O 2px, 1 H 1s)'),
             ('grid weights without the atomic (Becke) partition: the Fock matrix fits H + J − '
              'c_x K + V_xc[unpartitioned weights], residual ≤ 1e-06 (with V_xc[lda,vwn]: '
              'residual 2e-02)')),

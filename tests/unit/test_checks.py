@@ -225,6 +225,22 @@ class TestMatrixDifference:
         assert np.isnan(m.value)
         assert m.where == "AO element (1, 2)"
 
+    def test_round_off_ties_name_the_first_place(self):
+        """Symmetry-equivalent elements equal up to round-off (synthetic values): the first is
+        named whichever is larger in the last bit; the value is the largest itself."""
+        for later in (0.3 * (1 + 4e-16), 0.3 * (1 - 4e-16)):
+            a = np.zeros((3, 3))
+            a[0, 1], a[0, 2] = 0.3, later
+            m = matrix_difference(a, np.zeros((3, 3)), "q")
+            assert (m.value, m.where) == (max(0.3, later), "AO element (0, 1)")
+
+    def test_a_clearly_larger_later_element_is_named(self):
+        """Beyond LOCATION_TIE the later, larger element is named (synthetic values)."""
+        a = np.zeros((3, 3))
+        a[0, 1], a[0, 2] = 0.3, 0.3 * (1 + 1e-6)
+        m = matrix_difference(a, np.zeros((3, 3)), "q")
+        assert m.where == "AO element (0, 2)"
+
 
 # --------------------------------------------------------------------------- idempotency
 

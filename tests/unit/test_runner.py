@@ -62,7 +62,9 @@ class FakeReference:
 
 
 def fake_evaluate(problem, extracted, reference, settings=None, integrals=None):
-    """Passes when the plug-in sent an energy; reference-energy compares it if given."""
+    """Passes when the plug-in sent an energy; reference-energy compares it if given.
+
+    Returns (verdict, the reference it was judged against), as judge._evaluate does."""
     energy = extracted.energy
     ok = isinstance(energy, float)
     checks = [CheckResult("well-formed", Status.PASSED if ok else Status.FAILED, None, None,
@@ -75,7 +77,7 @@ def fake_evaluate(problem, extracted, reference, settings=None, integrals=None):
         checks.append(CheckResult("reference-energy",
                                   Status.PASSED if diff <= 1e-3 else Status.FAILED,
                                   diff, 1e-3, f"reference-energy: {diff:.1e}"))
-    return Verdict(checks=tuple(checks), analysis={})
+    return Verdict(checks=tuple(checks), analysis={}), reference
 
 
 @pytest.fixture(autouse=True)
