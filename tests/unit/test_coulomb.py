@@ -219,7 +219,7 @@ def test_packed_fitted_build_equals_the_full_tensor_fit(water):
     fit = fitting.FittedJK(mol)
     n = mol.nao
     assert fit.int3.shape == (fit.naux, n * (n + 1) // 2)  # no full naux × n² tensor kept
-    aux = df.addons.make_auxmol(mol, df.make_auxbasis(mol))
+    aux = fitting._auxmol(mol)
     full = np.asarray(df.incore.aux_e2(mol, aux, "int3c2e", aosym="s1")).T  # (naux, n, n)
     metric_inv = scipy.linalg.inv(aux.intor("int2c2e"))
     _, d = rotated(water.mf, 1e-3)
