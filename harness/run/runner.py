@@ -571,11 +571,10 @@ def prepare_and_judge(case, problem, settings: JudgeSettings, reference_dir,
     """A judge worker's task started with the case's plug-in: look the reference up and
     build the integrals (and the packed ERIs, ``AOIntegrals.prepare_packed_eri``, when the
     stability analysis will need them), then wait for the harness to write
-    ``(message, error, threads)`` (pickled, the harness's own plain data) to the file
-    ``handoff``, and judge as :func:`judge_case` does, with ``threads`` OpenMP threads.
+    ``(message, error, threads)`` to the file ``handoff`` (:func:`_write_handoff`: the
+    channel's plain-data format, never a pickle), and judge as :func:`judge_case` does,
+    with ``threads`` OpenMP threads.
     Returns what :func:`judge_case` returns; the verdict is the same."""
-    import pickle
-
     timeline("prepare-start", case.name)
     parent = os.getppid()
     reference, source, reference_error = None, None, None
@@ -599,12 +598,7 @@ def prepare_and_judge(case, problem, settings: JudgeSettings, reference_dir,
         if os.getppid() != parent:  # the harness is gone
             os._exit(1)
         time.sleep(HANDOFF_POLL)
-    with open(handoff, "rb") as fh:
-        message, error, threads = pickle.load(fh)
-    try:
-        os.unlink(handoff)
-    except OSError:
-        pass
+    message, error, threads = _read_handoff(handoff)
     timeline("judge-start", case.name)
     _set_threads(threads)
     try:
@@ -614,6 +608,53 @@ def prepare_and_judge(case, problem, settings: JudgeSettings, reference_dir,
         _set_threads(_worker_threads)
     timeline("judge-end", case.name)
     return result, reference, source
+
+
+def _write_handoff(path: str, message: dict | None, error: str | None, threads: int) -> None:
+    """Write a prepared task's hand-off: the child's decoded message re-encoded in the
+    channel's plain-data format (``channel.encode``, kind "case") in ``path``, and the
+    error and thread count as JSON in ``path + ".json"`` (written first; ``path`` appears
+    last, atomically). The folder is the harness's, but a plug-in of the same user could
+    write there: what the judge worker reads is checked as the child's message was, and
+    nothing is unpickled."""
+    import json
+
+    from harness.run import channel
+
+    with open(path + ".json.part", "w", encoding="utf-8") as fh:
+        json.dump({"error": error, "threads": int(threads)}, fh)
+    os.replace(path + ".json.part", path + ".json")
+    with open(path + ".part", "wb") as fh:
+        fh.write(b"" if message is None else channel.encode("case", message))
+    os.replace(path + ".part", path)
+
+
+def _read_handoff(path: str) -> tuple[dict | None, str | None, int]:
+    """``(message, error, threads)`` of :func:`_write_handoff`'s files, removed once read;
+    a file that does not decode becomes the case's error (one line)."""
+    import json
+
+    from harness.run import channel
+
+    message, error, threads = None, None, 1
+    try:
+        with open(path + ".json", encoding="utf-8") as fh:
+            meta = json.load(fh)
+        error = meta.get("error") if isinstance(meta.get("error"), str) else None
+        if isinstance(meta.get("threads"), int) and not isinstance(meta["threads"], bool):
+            threads = max(1, meta["threads"])
+        with open(path, "rb") as fh:
+            data = fh.read()
+        if data:
+            message = channel.decode(data, "case")
+    except (OSError, ValueError) as exc:
+        message, error = None, channel.unreadable(f"judge hand-off: {exc}".splitlines()[0])
+    for name in (path, path + ".json"):
+        try:
+            os.unlink(name)
+        except OSError:
+            pass
+    return message, error, threads
 
 
 #: The OpenMP threads a judge worker uses between tasks (set by _judge_worker_init).
@@ -1074,7 +1115,7 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
 
         if handoffs is None:
             handoffs = tempfile.mkdtemp(prefix="scf-harness-judge-")
-        run.handoff = os.path.join(handoffs, f"{run.index}.pickle")
+        run.handoff = os.path.join(handoffs, f"{run.index}.msg")
         prepared.append(run)
         pool.submit(run, run.case, run.problem, settings, reference_dir, write_references,
                     require_all, run.handoff, task=prepare_and_judge)
@@ -1083,14 +1124,9 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
     def hand_off(run: _Running) -> None:
         """Give a prepared task what the child sent (the harness's own decoded data) and
         the cores left free (its OpenMP threads)."""
-        import pickle
-
         busy = len(running) + len(pool) - len(prepared)
         threads = max(1, jobs - busy) if not pending else 1
-        partial = run.handoff + ".part"
-        with open(partial, "wb") as fh:
-            pickle.dump((*run.concluded, threads), fh, protocol=pickle.HIGHEST_PROTOCOL)
-        os.replace(partial, run.handoff)
+        _write_handoff(run.handoff, *run.concluded, threads)
         prepared.remove(run)
         timeline("handed-off", run.case.name)
 

@@ -125,3 +125,34 @@ def test_packed_eris_computed_ahead_are_used_and_change_nothing():
     mf = scf_object(problem, sol, ints)
     assert mf._eri is ints.packed_eri()
     np.testing.assert_array_equal(mf._eri, ints.mol.intor("int2e", aosym="s8"))
+
+
+def test_the_hand_off_file_carries_plain_data_and_a_pickle_in_it_is_refused(tmp_path):
+    """A prepared task's hand-off (written by the harness, in a folder a plug-in of the
+    same user could write to) round-trips a case message, and a pickle put in its place
+    fails the case with a one-line reason: nothing is unpickled."""
+    import pickle
+
+    import numpy as np
+
+    path = str(tmp_path / "0.msg")
+    message = {"solution": {"energy": -1.1, "coefficients": np.eye(2),
+                            "occupations": np.array([2.0, 0.0])}, "seconds": 0.5}
+    runner._write_handoff(path, message, None, 2)
+    got, error, threads = runner._read_handoff(path)
+    assert (error, threads) == (None, 2)
+    assert got["seconds"] == 0.5 and np.array_equal(got["solution"].coefficients, np.eye(2))
+    assert not any(tmp_path.iterdir())  # both files removed once read
+
+    class Boom:
+        def __reduce__(self):
+            return (exec, ("raise SystemExit('unpickled')",))
+
+    runner._write_handoff(path, None, None, 1)
+    with open(path, "wb") as fh:
+        pickle.dump((Boom(), None, 1), fh)
+    got, error, _ = runner._read_handoff(path)
+    assert got is None
+    assert error == ("the plug-in's process sent a message the harness cannot read: judge "
+                     "hand-off: a pickle, not the channel's plain-data format (nothing was "
+                     "unpickled)")
