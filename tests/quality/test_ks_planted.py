@@ -60,7 +60,7 @@ EXPECTED = {
             None),
         'self-consistency': (
             ('self-consistency: max|X(FPS − SPF)X| = 5.9e-02 > 1.0e-05 (water-6-31g-rks-pbe), '
-             'Löwdin element (1, 0) = (0 O 2s, 0 O 1s)'),
+             'Löwdin element (0, 1) = (0 O 1s, 0 O 2s)'),
             ('LDA potential used with a GGA functional: the Fock matrix fits H + J − c_x K + '
              'V_xc[lda,vwn], residual ≤ 1e-06 (with V_xc[pbe]: residual 8e-04)')),
     },
@@ -97,7 +97,7 @@ EXPECTED = {
              "E_xc[b3lyp5] at the code's density (-0.037010 Eh, within 1e-05)")),
         'self-consistency': (
             ('self-consistency: max|X(FPS − SPF)X| = 4.2e-04 > 1.0e-05 '
-             '(water-6-31g-rks-b3lyp5), Löwdin element (8, 5) = (0 O 3pz, 0 O 2pz)'),
+             '(water-6-31g-rks-b3lyp5), Löwdin element (5, 8) = (0 O 2pz, 0 O 3pz)'),
             ('VWN parametrisation mismatch (VWN-RPA (VWN3-style) instead of VWN5): the Fock '
              'matrix fits H + J − c_x K + V_xc[VWN variant], residual ≤ 1e-06 (with '
              'V_xc[b3lyp5]: residual 2e-05)')),
