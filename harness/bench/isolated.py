@@ -110,18 +110,9 @@ def _child_main(conn, watch, spec: str, path: list[str], cwd: str) -> None:
     ``("new",)``, ``("reset", problem)`` and ``("step", iterate, kind)`` requests until
     the harness closes the pipe. ``watch`` is a pipe the harness never writes: it becomes
     readable when the harness ends, and then this process ends with its group."""
-    import signal
+    from harness.run.runner import PARENT_KILLED, _enter
 
-    from harness.run.runner import PARENT_KILLED, _die_with_harness, _own_group
-
-    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the harness handles Ctrl-C
-    _own_group()
-    _die_with_harness(watch)
-    try:
-        os.chdir(cwd)
-    except OSError:
-        pass
-    sys.path[:] = path
+    _enter(watch, path, cwd)  # Ctrl-C is the harness's, own group, end with the harness
     parent = os.getppid()
     try:
         name, factory = acc.load_accelerator(spec)
