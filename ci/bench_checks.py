@@ -25,6 +25,10 @@ With ``--ks`` (slow: a pyscf KS SCF on the pinned grid) it also prints the Kohn�
 the pinned grid; one V_xc evaluation on that grid (what the XC part of the checks costs,
 ``harness.verdict.xc``) beside the J/K build, and its ratio to one pyscf KS SCF.
 
+The SCF runs with the process's default threads, as a user's pyscf would; the checks
+with theirs (``harness.backend.threads``: one BLAS thread below
+SINGLE_BLAS_THREAD_BELOW_AO functions), as ``certify`` runs them.
+
 The solution checked is pyscf's own converged one (the plug-in's run is excluded by
 design; any converged solution costs the checks the same). The check time covers what
 ``certify`` does per case after the plug-in returns: loading the stored reference (with
@@ -168,6 +172,11 @@ def check_cost(case_name: str, repeat: int) -> int:
     print(f"all checks      {checks:8.3f} s  (stability off; best of {repeat})")
     print(f"  of which J/K  {min(watch.jk_seconds):8.3f} s  route: {watch.routes[-1]}")
     print(f"check-cost ratio{checks / scf:8.3f}  (checks / one SCF; target ≤ 0.10)")
+    from harness.backend.threads import SINGLE_BLAS_THREAD_BELOW_AO, blas_threads
+
+    print(f"BLAS threads    SCF {blas_threads()}, checks "
+          f"{1 if problem.nao < SINGLE_BLAS_THREAD_BELOW_AO else blas_threads()} "
+          f"(harness.backend.threads: one below {SINGLE_BLAS_THREAD_BELOW_AO} AO)")
     print(f"with stability  {full:8.3f} s  (--stability internal, the default)")
     print(f"stability ratio {(full - checks) / scf:8.3f}  (stability alone / one SCF; "
           f"target ≤ 2)")

@@ -35,6 +35,7 @@ import traceback
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
+from harness.backend.threads import limit_blas
 from harness.contract import defaults as _defaults
 from harness.contract.errors import PluginLoadError, Unsupported, innermost_frame
 from harness.run import channel
@@ -235,20 +236,6 @@ def _kill_own_group() -> None:
         pass
 
 
-def _limit_blas(threads: int) -> None:
-    """Limit numpy's BLAS (OpenBLAS, MKL) to ``threads`` threads in this process, through
-    threadpoolctl when it is installed (the ``parallel`` extra; environment variables are
-    too late: numpy is preloaded); without it nothing happens. Never raises."""
-    try:
-        from threadpoolctl import threadpool_limits
-    except ImportError:
-        return
-    try:
-        threadpool_limits(limits=max(1, int(threads)), user_api="blas")
-    except Exception:  # pragma: no cover - an unusual BLAS
-        pass
-
-
 def _share_cores(jobs: int) -> None:
     """Give each of ``jobs`` concurrent children its share of the cores for pyscf's
     OpenMP threads and numpy's BLAS threads (environment variables are too late: pyscf
@@ -260,7 +247,7 @@ def _share_cores(jobs: int) -> None:
         set_threads(share)
     except Exception:  # pragma: no cover - pyscf without OpenMP
         pass
-    _limit_blas(share)
+    limit_blas(share)
 
 
 class _Stopped(BaseException):
@@ -662,15 +649,15 @@ _worker_threads = 1
 
 
 def _set_threads(threads: int) -> None:
-    """pyscf's OpenMP threads and numpy's BLAS threads (:func:`_limit_blas`) of this judge
-    worker."""
+    """pyscf's OpenMP threads and numpy's BLAS threads
+    (``harness.backend.threads.limit_blas``) of this judge worker."""
     try:
         from harness.backend.mole import set_threads
 
         set_threads(max(1, int(threads)))
     except Exception:  # pragma: no cover - pyscf without OpenMP
         pass
-    _limit_blas(threads)
+    limit_blas(threads)
 
 
 def _judge_worker_init(threads: int) -> None:

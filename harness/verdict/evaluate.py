@@ -31,6 +31,7 @@ from harness.verdict.conventions import CONVENTION_MATCH, BasisMismatch, detect_
 from harness.verdict.conventions import named_convention, rescaling
 from harness.contract.errors import HarnessError
 from harness.backend.integrals import AOIntegrals, integrals_for
+from harness.backend.threads import checks_threads
 from harness.contract.problem import Problem
 from harness.contract.solution import Solution
 from harness.contract.results import CheckResult, Status, failed, judge, not_applicable, skipped
@@ -151,7 +152,9 @@ def evaluate_case(problem: Problem, extracted: Solution, reference=None,
                            field="stability")
     # A solution with overflowing or NaN entries is judged by the checks (they fail it);
     # numpy's RuntimeWarnings about the same values would only clutter the terminal.
-    with np.errstate(all="ignore"):
+    # One BLAS thread on small cases (harness.backend.threads: pyscf's spinning OpenMP
+    # workers and a second BLAS thread would fight over the cores), this process only.
+    with np.errstate(all="ignore"), checks_threads(problem.nao):
         checks, analysis = _evaluate(problem, extracted, reference, tolerances, integrals,
                                      ao_convention, stability, grid)
     if basis_note:
