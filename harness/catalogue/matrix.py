@@ -259,7 +259,8 @@ def expand(table: Any, index: int, base: Path, where: str, require_suites: bool,
                     used[i] = True
                 if hit:
                     continue
-                entry = {"name": case_id, "geometry": str(path), "basis": basis,
+                # absolute: make_case joins a relative path to the suite file's folder again
+                entry = {"name": case_id, "geometry": str(path.absolute()), "basis": basis,
                          "method": method, "cartesian": values["cartesian"],
                          "charge": spin.get("charge", 0),
                          "multiplicity": spin.get("multiplicity", 1),

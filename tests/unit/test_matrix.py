@@ -69,6 +69,25 @@ note = "matrix"
     assert cases[2].problem().nao == 4
 
 
+def test_suite_file_in_a_subfolder_named_relative_to_the_working_folder(geo, tmp_path,
+                                                                        monkeypatch):
+    """``--cases-file suites/m.toml`` from the folder above: the geometry paths are
+    relative to the suite file, once (they were once joined to its folder twice:
+    'suites/suites/../geo/h2.xyz', file not found)."""
+    (tmp_path / "suites").mkdir()
+    _write(tmp_path / "suites" / "m.toml", """
+[[matrix]]
+geometries = ["../geo/h2.xyz", "../geo/*.xyz"]
+bases = ["sto-3g"]
+methods = ["rhf"]
+exclude = ["oh-*", "heh-*"]
+""")
+    monkeypatch.chdir(tmp_path)
+    cases = load_suite_file(Path("suites") / "m.toml")
+    assert [c.name for c in cases] == ["h2-sto-3g-rhf", "lih-sto-3g-rhf"]
+    assert cases[0].coordinates[1, 2] == 1.4
+
+
 def test_folder_glob_comment_line_side_table_and_exclusions(geo, tmp_path):
     path = _write(tmp_path / "m.toml", """
 [[case]]
