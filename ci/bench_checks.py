@@ -1,7 +1,7 @@
 """Benchmark: the checks' cost against one pyscf SCF of the same case, and its growth with n.
 
 Usage: python ci/bench_checks.py [--case benzene-cc-pvdz-rhf] [--repeat 3] [--max-ao 400]
-       [--ks] [--ks-functional b3lyp]
+       [--min-ao 0] [--growth-only] [--ks] [--ks-functional b3lyp]
 
 One run prints:
 
@@ -186,14 +186,16 @@ def check_cost(case_name: str, repeat: int) -> int:
     return 0
 
 
-def growth(max_ao: int) -> int:
+def growth(max_ao: int, min_ao: int = 0) -> int:
     from harness.backend.integrals import integrals_for
 
-    cases = [c for c in load_suite_file(LARGE_SUITE) if c.problem().nao <= max_ao]
+    cases = [c for c in load_suite_file(LARGE_SUITE)
+             if min_ao <= c.problem().nao <= max_ao]
     if not cases:
         return 0
     print()
-    print(f"growth (large suite, cases with n ≤ {max_ao} AO; J/K exact, no stored reference)")
+    print(f"growth (large suite, cases with {min_ao} ≤ n ≤ {max_ao} AO; J/K exact, no stored "
+          f"reference)")
     print(f"{'n AO':>6} {'SCF s':>9} {'checks s':>9} {'ratio':>6} {'J/K s':>8} {'peak MB':>8} "
           f"{'kernels s':>10} {'GEMM s':>8} {'k/GEMM':>7} {'eri()':>6}")
     status = 0
@@ -288,6 +290,10 @@ def main(argv=None) -> int:
     parser.add_argument("--repeat", type=int, default=3)
     parser.add_argument("--max-ao", type=int, default=400,
                         help="largest large-suite case of the growth table (0: none)")
+    parser.add_argument("--min-ao", type=int, default=0,
+                        help="smallest large-suite case of the growth table")
+    parser.add_argument("--growth-only", action="store_true",
+                        help="the growth table alone (no check-cost and stability lines)")
     parser.add_argument("--ks", action="store_true",
                         help="also the Kohn–Sham line (slow: one pyscf KS SCF)")
     parser.add_argument("--ks-functional", default="b3lyp")
@@ -296,8 +302,8 @@ def main(argv=None) -> int:
         status = ks_cost(args.case, args.ks_functional, args.repeat)
         if args.max_ao == 0:
             return status
-    status = check_cost(args.case, args.repeat)
-    return max(status, growth(args.max_ao))
+    status = 0 if args.growth_only else check_cost(args.case, args.repeat)
+    return max(status, growth(args.max_ao, args.min_ao))
 
 
 if __name__ == "__main__":

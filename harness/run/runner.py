@@ -389,6 +389,24 @@ def _context():
     return ctx
 
 
+def start_fork_server() -> None:
+    """Start the fork server of the plug-in processes (:func:`_context`, with its
+    ``PRELOAD`` imports, ~0.4 s) in a background thread now, so that it comes up while
+    this process does other work (the command line reads its cases meanwhile); the first
+    child then waits only for what is left of it. multiprocessing's own lock makes a
+    child started meanwhile wait for the same server. Never raises."""
+    def start():
+        try:
+            from multiprocessing import forkserver
+
+            _context()
+            forkserver.ensure_running()
+        except Exception:  # the first child starts it as usual, and reports any error
+            pass
+
+    threading.Thread(target=start, name="scf-harness-fork-server", daemon=True).start()
+
+
 def _reference(case, directory, write: bool):
     """``harness.catalogue.references.reference_for``, imported when first needed."""
     from harness.catalogue.references import reference_for

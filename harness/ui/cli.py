@@ -613,11 +613,13 @@ def _write_certificate(path: Path, outcome, *, tolerances, plugin: str, console,
 
 def _certify(args, console) -> int:
     from harness.report import terminal as report
-    from harness.run.runner import check_plugin, run_cases
+    from harness.run.runner import check_plugin, run_cases, start_fork_server
 
     plugin, label = _plugin(args)
     tolerances = _tolerances(args)
     _basis_source(args)  # a missing basis_set_exchange is a usage error before any run
+    if args.scheduler is None:  # local run: the plug-in processes' fork server starts now,
+        start_fork_server()     # on the other core, while the cases are read
     cases, suite_names = select_cases(args.suites, args.case_names, args.cases_file,
                                       bases=args.bases, methods=args.methods)
     if not cases:

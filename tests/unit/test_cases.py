@@ -378,3 +378,33 @@ def test_catalogue_requires_suites(suite_dir):
     assert str(err.value) == f"{path}: case 'x': suites: missing"
     cat = load_catalogue(_write(suite_dir / "cat2.toml", _one_case(suites='["mine"]')))
     assert cat.suites == ("mine",) and cat.suite("mine")[0].name == "x"
+
+
+def test_reading_the_catalogue_builds_no_grid_and_a_case_still_gets_its_own(monkeypatch):
+    """Reading cases validates each one (pyscf builds its basis) but leaves the Kohn–Sham
+    pinned grid to the run: the catalogue's KS cases cost no grid at start-up."""
+    from harness.backend import grid
+
+    built = []
+    original = grid.pinned_grid
+    monkeypatch.setattr(grid, "pinned_grid", lambda mol, *a, **k: built.append(mol) or
+                        original(mol, *a, **k))
+    catalogue = load_catalogue()
+    ks = [c for c in catalogue.cases if c.method in ("rks", "uks", "roks")]
+    assert ks and built == []
+    problem = ks[0].problem()
+    assert len(built) == 1 and problem.grid is not None and problem.grid.size > 0
+
+
+def test_validate_raises_what_problem_raises():
+    """Case.validate is Problem.create's checks without the grid: a basis pyscf lacks for
+    an element is the same one-line error, naming the case and the field."""
+    case = Case(name="kr-atom", numbers=(36,), coordinates=np.zeros((1, 3)), charge=0,
+                multiplicity=1, basis="6-31+g*", cartesian=False, method="rks",
+                functional="pbe")
+    with pytest.raises(CaseError) as validated:
+        case.validate()
+    with pytest.raises(CaseError) as built:
+        case.problem()
+    assert str(validated.value) == str(built.value)
+    assert validated.value.field == "basis"

@@ -588,3 +588,21 @@ class TestForgedMessages:
             f"the harness cannot read: a pickle, not the channel's plain-data format "
             f"(nothing was unpickled)")
         assert not (tmp_path / "forged-pickle-ran.txt").exists()
+
+
+def test_fork_server_started_ahead_serves_the_next_children():
+    """start_fork_server (the command line calls it before reading its cases) brings the
+    plug-in processes' fork server up in the background; a second call and the children
+    that follow use the same server."""
+    from multiprocessing import forkserver
+
+    runner.start_fork_server()
+    runner.start_fork_server()
+    deadline = time.monotonic() + 60
+    while forkserver._forkserver._forkserver_pid is None and time.monotonic() < deadline:
+        time.sleep(0.05)
+    pid = forkserver._forkserver._forkserver_pid
+    assert pid is not None
+    os.kill(pid, 0)  # alive
+    runner.check_plugin("harness.testing.example_scf:solve", timeout=60)
+    assert forkserver._forkserver._forkserver_pid == pid
