@@ -18,7 +18,10 @@ One run prints:
    kernels need, measured in this run, with the ratio kernels / floor (target ≤ 3);
    kernels and floor are the best of 3.
    It also asserts that the checks never call ``eri()`` (the n⁴ tensor) when the code
-   did not report ``two_electron``.
+   did not report ``two_electron``. The last two columns: the checks' time (and its
+   ratio to the SCF) when the case's reference is stored with its density, as
+   ``certify`` meets a catalogue case of ≥ 100 AO (:func:`with_stored_reference`), and
+   the J/K route they took (difference, or exact past the fitted tensor's memory cap).
 
 With ``--ks`` (slow: a pyscf KS SCF on the pinned grid) it also prints the Kohn–Sham line
 (:func:`ks_cost`): the case's molecule as RKS with ``--ks-functional`` (default b3lyp) on
@@ -186,7 +189,54 @@ def check_cost(case_name: str, repeat: int) -> int:
     return 0
 
 
-def growth(max_ao: int, min_ao: int = 0) -> int:
+def with_stored_reference(case, problem, mf):
+    """``(reference, solution)`` for timing the checks as ``certify`` runs them on a case
+    whose reference is stored with its density (``references build``, n ≥
+    STORED_DENSITY_MIN_AO): the reference is the bench's own converged pyscf RHF (energy
+    terms, orbitals, density and its exact J/K, as the build stores them; the build's
+    guesses and stability following are skipped, they would find the same state here at
+    several times the cost), and the code's solution is one more Roothaan–Hall step from
+    it, F[P_ref] C = S C ε, so that it differs from the reference by what a code
+    converged to the default threshold differs by (ΔP ~ its commutator), with its own
+    exact Fock matrix and energy. Both are built outside the timed part. RHF only."""
+    import scipy.linalg
+
+    from harness.backend.integrals import exact_jk_components
+    from harness.catalogue.references import (Reference, ReferenceDensity, input_hash,
+                                              reference_density)
+
+    assert problem.method == "rhf"
+    mol = mf.mol
+    h, s = mf.get_hcore(), mf.get_ovlp()
+    p_ref = np.asarray(mf.make_rdm1())
+    rd: ReferenceDensity = reference_density(mol, p_ref[None])
+    j, k = rd.coulomb[0], rd.exchange[0]
+    e_nuc = float(mol.energy_nuc())
+    terms = (float(np.sum(p_ref * h)), 0.5 * float(np.sum(p_ref * j)),
+             -0.25 * float(np.sum(p_ref * k)))
+    reference = Reference(
+        case=case.name, input_hash=input_hash(case), method="rhf", basis=case.basis,
+        cartesian=case.cartesian, charge=case.charge, multiplicity=case.multiplicity,
+        energy=e_nuc + sum(terms), energy_nuclear=e_nuc, energy_one_electron=terms[0],
+        energy_coulomb=terms[1], energy_exchange=terms[2], orbital_energies=mf.mo_energy,
+        occupations=mf.mo_occ, s_squared=0.0, dipole=np.zeros(3), nao=problem.nao,
+        nmo=len(mf.mo_energy), converged=True, stable=True, stability_rounds=0, density=rd)
+    eps, c = scipy.linalg.eigh(h + j - 0.5 * k, s)
+    occ = np.asarray(mf.mo_occ)
+    p = (c * occ) @ c.T
+    (j1,), (k1,) = exact_jk_components(mol, p[None])
+    fock = h + j1 - 0.5 * k1
+    energy = e_nuc + float(np.sum(p * h)) + 0.5 * float(np.sum(p * j1)) \
+        - 0.25 * float(np.sum(p * k1))
+    solution = {"energy": energy, "coefficients": c, "occupations": occ, "density": p,
+                "fock": fock, "orbital_energies": eps, "converged": True}
+    return reference, extract(solution)
+
+
+def growth(max_ao: int, min_ao: int = 0, stored_reference: bool = True) -> int:
+    """The growth table (module docstring, item 3); with ``stored_reference`` also the
+    checks' time (and its ratio to the SCF) with a stored reference of the case
+    (:func:`with_stored_reference`) and the J/K route it took."""
     from harness.backend.integrals import integrals_for
 
     cases = [c for c in load_suite_file(LARGE_SUITE)
@@ -194,10 +244,11 @@ def growth(max_ao: int, min_ao: int = 0) -> int:
     if not cases:
         return 0
     print()
-    print(f"growth (large suite, cases with {min_ao} ≤ n ≤ {max_ao} AO; J/K exact, no stored "
-          f"reference)")
+    print(f"growth (large suite, cases with {min_ao} ≤ n ≤ {max_ao} AO; 'checks': no reference, "
+          f"J/K exact; 'stored ref': the reference stored with its density)")
     print(f"{'n AO':>6} {'SCF s':>9} {'checks s':>9} {'ratio':>6} {'J/K s':>8} {'peak MB':>8} "
-          f"{'kernels s':>10} {'GEMM s':>8} {'k/GEMM':>7} {'eri()':>6}")
+          f"{'kernels s':>10} {'GEMM s':>8} {'k/GEMM':>7} {'eri()':>6} "
+          f"{'stored ref s':>15} {'J/K route':>10}")
     status = 0
     for case in cases:
         problem = case.problem()
@@ -206,7 +257,6 @@ def growth(max_ao: int, min_ao: int = 0) -> int:
         mf = pyscf_scf(problem)
         scf = time.perf_counter() - t
         extracted = extract(as_solution(mf, problem.method))
-        del mf
         with _Watch() as watch:
             tracemalloc.start()
             t = time.perf_counter()
@@ -224,9 +274,20 @@ def growth(max_ao: int, min_ao: int = 0) -> int:
                 evaluate(problem, extracted, None, integrals=ints, stability="off")
                 kernels = min(kernels, time.perf_counter() - t)
         floor = gemm_floor(n)
+        stored = stored_route = "-"
+        if stored_reference:
+            reference, solution = with_stored_reference(case, problem, mf)
+            with _Watch() as watch_stored:
+                t = time.perf_counter()
+                results_stored = evaluate(problem, solution, reference, stability="off")
+                seconds = time.perf_counter() - t
+            stored = f"{seconds:.2f} ({seconds / scf:.3f})"
+            stored_route = watch_stored.routes[-1].split(" ")[0]
+            results = [*results, *results_stored]
+        del mf
         print(f"{n:6d} {scf:9.2f} {checks:9.2f} {checks / scf:6.3f} {watch.jk_seconds[0]:8.2f} "
               f"{peak / 2**20:8.1f} {kernels:10.3f} {floor:8.3f} {kernels / floor:7.2f} "
-              f"{watch.eri_calls:6d}", flush=True)
+              f"{watch.eri_calls:6d} {stored:>15} {stored_route:>10}", flush=True)
         failed = [r.message for r in results if r.passed is False]
         if failed or watch.eri_calls:
             print("  problem:", *failed, f"eri() called {watch.eri_calls} times", sep="\n  ")
@@ -292,6 +353,9 @@ def main(argv=None) -> int:
                         help="largest large-suite case of the growth table (0: none)")
     parser.add_argument("--min-ao", type=int, default=0,
                         help="smallest large-suite case of the growth table")
+    parser.add_argument("--no-stored-reference", action="store_true",
+                        help="growth table without the stored-reference column (saves "
+                             "two exact J/K builds per case)")
     parser.add_argument("--growth-only", action="store_true",
                         help="the growth table alone (no check-cost and stability lines)")
     parser.add_argument("--ks", action="store_true",
@@ -303,7 +367,8 @@ def main(argv=None) -> int:
         if args.max_ao == 0:
             return status
     status = 0 if args.growth_only else check_cost(args.case, args.repeat)
-    return max(status, growth(args.max_ao, args.min_ao))
+    return max(status, growth(args.max_ao, args.min_ao,
+                              stored_reference=not args.no_stored_reference))
 
 
 if __name__ == "__main__":
