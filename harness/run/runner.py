@@ -595,7 +595,8 @@ def prepare_and_judge(case, problem, settings: JudgeSettings, reference_dir,
         if settings.stability != "off" and getattr(problem, "method", "") in ("rhf", "uhf",
                                                                               "rohf"):
             ints.prepare_packed_eri()
-        ints.prepare_fitting()  # for the checks of small density differences (coulomb)
+        if getattr(reference, "density", None) is not None:  # else never used
+            ints.prepare_fitting()  # for J/K of the density difference (verdict.coulomb)
     except Exception:  # judged without: judge() builds them and reports what fails
         ints = None
     timeline("prepared", case.name)

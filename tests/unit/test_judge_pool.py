@@ -156,3 +156,27 @@ def test_the_hand_off_file_carries_plain_data_and_a_pickle_in_it_is_refused(tmp_
     assert error == ("the plug-in's process sent a message the harness cannot read: judge "
                      "hand-off: a pickle, not the channel's plain-data format (nothing was "
                      "unpickled)")
+
+
+@pytest.mark.parametrize("name, fitted", [("water-sto-3g-rhf", False),
+                                          ("benzene-cc-pvdz-rhf", True)])
+def test_preparation_builds_the_fitted_tensor_only_for_a_reference_with_a_density(
+        monkeypatch, tmp_path, name, fitted):
+    """The fitted three-centre tensor serves only J/K of the density difference from a
+    stored reference density (harness.verdict.coulomb): a prepared task builds it when
+    its reference carries one (benzene, ≥ 100 AO) and not otherwise (it was built for
+    every prepared case, and cost a 36-case matrix ~1 s of its ~12 s with --jobs 2)."""
+    from harness.backend.integrals import AOIntegrals
+
+    built = []
+    monkeypatch.setattr(AOIntegrals, "prepare_fitting", lambda self: built.append(name))
+    monkeypatch.setattr(AOIntegrals, "prepare_packed_eri", lambda self: False)
+    monkeypatch.setattr(runner, "finish_case", lambda *args, **kwargs: "judged")
+    case = load_catalogue().case(name)
+    handoff = str(tmp_path / "0.msg")
+    runner._write_handoff(handoff, None, "stands in for the plug-in's message", 1)
+    result, reference, _ = runner.prepare_and_judge(
+        case, case.problem(), runner.JudgeSettings(tolerances=Tolerances()), None, False,
+        False, handoff)
+    assert result == "judged"
+    assert (reference.density is not None, built) == (fitted, [name] if fitted else [])
