@@ -606,3 +606,44 @@ def test_fork_server_started_ahead_serves_the_next_children():
     os.kill(pid, 0)  # alive
     runner.check_plugin("harness.testing.example_scf:solve", timeout=60)
     assert forkserver._forkserver._forkserver_pid == pid
+
+
+PLUGIN_WAITING_FOR_CORES = '''
+import json, time
+
+def solve(problem):
+    from pyscf import lib
+    from threadpoolctl import threadpool_info
+
+    if problem.name.startswith("h2-"):
+        raise RuntimeError("the quick case")
+    seen = [lib.num_threads()]
+    deadline = time.monotonic() + 30
+    while time.monotonic() < deadline and lib.num_threads() == seen[0]:
+        time.sleep(0.01)
+    seen.append(lib.num_threads())
+    seen.append(max(i["num_threads"] for i in threadpool_info() if i["user_api"] == "blas"))
+    with open(%r, "w") as fh:
+        json.dump(seen, fh)
+    raise RuntimeError("the waiting case")
+'''
+
+
+@pytest.mark.skipif((os.cpu_count() or 1) < 2, reason="one core: nothing to widen to")
+def test_the_last_plugin_running_gets_every_core(tmp_path):
+    """--jobs 2: each plug-in process starts on its share of the cores; once the other
+    case is done and judged, the one still running is sent WIDEN_SIGNAL and its pyscf
+    OpenMP and BLAS thread counts become the machine's core count."""
+    from harness.catalogue.cases import load_catalogue
+
+    out = tmp_path / "threads.json"
+    plugin = tmp_path / "waiting.py"
+    plugin.write_text(PLUGIN_WAITING_FOR_CORES % str(out))
+    catalogue = load_catalogue()
+    cases = [catalogue.case("water-sto-3g-rhf"), catalogue.case("h2-sto-3g-rhf")]
+    outcome = runner.run_cases(cases, f"{plugin}:solve", tolerances=Tolerances(), jobs=2,
+                               timeout=60)
+    assert [c.error.split(" (at ")[0] for c in outcome.cases] == [
+        "RuntimeError: the waiting case", "RuntimeError: the quick case"]
+    cores = os.cpu_count()
+    assert json.loads(out.read_text()) == [max(1, cores // 2), cores, cores]
