@@ -100,8 +100,7 @@ def phases(log: Path, wall: tuple[float, float], largest: str | None = None) -> 
             "first case": first or "",
             "its plug-in": span(big, "plugin-start", "plugin-end"),
             "its checks": span(big, "judge-start", "judge-end"),
-            "its preparation": span(big, "prepare-start", "prepared"),
-            "its widening": span(big, "plugin-start", "widened")}
+            "its preparation": span(big, "prepare-start", "prepared")}
 
 
 def verdicts(path: Path) -> list[tuple[str, bool, tuple]]:
@@ -161,9 +160,7 @@ def main(argv=None) -> int:
                   f"{p['checks sum']:.1f}); largest case {p['first case']}: plug-in "
                   f"{p['its plug-in']:.1f}, checks {p['its checks']:.1f}"
                   + (f", prepared {p['its preparation']:.1f} ahead"
-                     if p['its preparation'] else "")
-                  + (f", given every core {p['its widening']:.1f} s into its plug-in"
-                     if p['its widening'] else ""))
+                     if p['its preparation'] else ""))
     if p1 and pn and pn["cases"] > 0:
         print(f"parallel part (first case to last) ratio: {p1['cases'] / pn['cases']:.2f}")
     print(f"speed-up ratio (jobs 1 / jobs {args.jobs}): {t1 / tn:.2f}")

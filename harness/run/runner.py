@@ -250,20 +250,6 @@ def _share_cores(jobs: int) -> None:
     limit_blas(share)
 
 
-#: The signal that tells a plug-in's process it may use every core (:func:`_widen`): the
-#: harness sends it when that process is the last one running with nothing left to start
-#: or judge. SIGURG, because its default action is to be ignored: one that arrives before
-#: the handler is in place is lost, never fatal, and plug-ins do not use it.
-WIDEN_SIGNAL = signal.SIGURG
-
-
-def _widen(signum=None, frame=None) -> None:
-    """Signal handler of a plug-in's process (``jobs > 1``): from now on pyscf's OpenMP
-    and the BLAS use every core (:func:`_share_cores` with one job). Python runs it in the
-    main thread between two bytecodes, so a long pyscf call finishes on its old count."""
-    _share_cores(1)
-
-
 class _Stopped(BaseException):
     """Raised in a child by SIGTERM (a timeout or an interrupted run), so the plug-in's
     ``finally`` blocks run: a ``CommandPlugin`` kills its program and removes its
@@ -343,11 +329,6 @@ def _child_main(conn, plugin_spec, path: list[str], cwd: str, problem,
     timeline("child-enter", name)
     if jobs > 1:
         _share_cores(jobs)
-        try:  # more threads when the others are done (the harness's WIDEN_SIGNAL)
-            signal.signal(WIDEN_SIGNAL, _widen)
-            signal.siginterrupt(WIDEN_SIGNAL, False)  # restart interrupted system calls
-        except (OSError, ValueError):  # pragma: no cover - no such signal here
-            pass
     try:
         import faulthandler
         faulthandler.enable()  # a crashing plug-in prints where it crashed on stderr
@@ -491,7 +472,6 @@ class _Running:
     reference_error: str | None = None
     handoff: str | None = None  # the file a prepared judge task waits for (prepare_and_judge)
     concluded: tuple | None = None  # (message, error) once the child has ended
-    widened: bool = False  # sent WIDEN_SIGNAL (it may use every core)
 
 
 def _base_result(case, **fields) -> CaseResult:
@@ -1172,21 +1152,6 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
                     write_references, require_all)
         timeline("submitted", run.case.name)
 
-    def widen_last() -> None:
-        """With more than one job, nothing left to start and no judge task but prepared
-        ones (which wait for their plug-in), the one plug-in process still running gets
-        every core (WIDEN_SIGNAL): the run's tail is that case's chain."""
-        if (jobs < 2 or pending or len(running) != 1 or running[0].widened
-                or (pool is not None and len(pool) > len(prepared))):
-            return
-        run = running[0]
-        run.widened = True
-        try:
-            os.kill(run.process.pid, WIDEN_SIGNAL)
-        except (OSError, TypeError):  # ended meanwhile: collected as usual
-            return
-        timeline("widened", run.case.name)
-
     def judged() -> None:
         """Record the cases the judge workers have finished (a failed task is judged
         here instead: a judge worker that died takes no case with it)."""
@@ -1213,7 +1178,6 @@ def run_cases(cases: Iterable, plugin_spec, *, tolerances, convergence: float | 
                 launch(*pending.pop(0))
             if pool is not None:
                 judged()
-            widen_last()
             if not running and not (pool is not None and len(pool)):
                 continue
             now = time.monotonic()
