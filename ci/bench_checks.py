@@ -1,7 +1,7 @@
 """Benchmark: the checks' cost against one pyscf SCF of the same case, and its growth with n.
 
 Usage: python ci/bench_checks.py [--case benzene-cc-pvdz-rhf] [--repeat 3] [--max-ao 400]
-       [--min-ao 0] [--growth-only] [--ks] [--ks-functional b3lyp]
+       [--min-ao 0] [--growth-only] [--fitting-max-gib G] [--ks] [--ks-functional b3lyp]
 
 One run prints:
 
@@ -356,12 +356,21 @@ def main(argv=None) -> int:
     parser.add_argument("--no-stored-reference", action="store_true",
                         help="growth table without the stored-reference column (saves "
                              "two exact J/K builds per case)")
+    parser.add_argument("--fitting-max-gib", type=float, default=None,
+                        help="the fitted tensor's memory cap for this run (GiB; default "
+                             "harness.backend.fitting.FITTING_MAX_BYTES): what the "
+                             "difference route would cost on a case over the cap")
     parser.add_argument("--growth-only", action="store_true",
                         help="the growth table alone (no check-cost and stability lines)")
     parser.add_argument("--ks", action="store_true",
                         help="also the Kohn–Sham line (slow: one pyscf KS SCF)")
     parser.add_argument("--ks-functional", default="b3lyp")
     args = parser.parse_args(argv)
+    if args.fitting_max_gib is not None:
+        from harness.backend import fitting
+
+        fitting.FITTING_MAX_BYTES = int(args.fitting_max_gib * 2**30)
+        print(f"fitted tensor cap for this run: {args.fitting_max_gib:g} GiB")
     if args.ks:
         status = ks_cost(args.case, args.ks_functional, args.repeat)
         if args.max_ao == 0:
