@@ -39,6 +39,20 @@ def limit_blas(threads: int) -> None:
         pass
 
 
+def use_threads(threads: int) -> None:
+    """pyscf's OpenMP threads and the BLAS threads of this process, both ``threads``
+    (at least 1) from now on: a plug-in process's share of the cores with ``--jobs N``, a
+    judge worker's share or a judge task's. Never raises."""
+    threads = max(1, int(threads))
+    try:
+        from harness.backend.mole import set_threads
+
+        set_threads(threads)
+    except Exception:  # pragma: no cover - pyscf without OpenMP
+        pass
+    limit_blas(threads)
+
+
 @contextlib.contextmanager
 def checks_threads(nao: int):
     """The BLAS threads of the checks of an ``nao``-function case, for the ``with`` block:

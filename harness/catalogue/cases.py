@@ -286,24 +286,21 @@ class Case:
         return sum(self.numbers) - self.charge
 
     def problem(self, convergence: float = DEFAULT_CONVERGENCE,
-                initial_density=None) -> Problem:
+                initial_density=None, *, _grid=None) -> Problem:
         """The :class:`Problem` handed to a plug-in (coordinates in bohr)."""
         return Problem.create(name=self.name, numbers=self.numbers,
                               coordinates=self.coordinates, charge=self.charge,
                               multiplicity=self.multiplicity, basis=self.basis,
                               cartesian=self.cartesian, method=self.method,
                               convergence=convergence, initial_density=initial_density,
-                              functional=self.functional or None)
+                              functional=self.functional or None, grid=_grid)
 
     def validate(self) -> None:
         """Raise ``CaseError`` (naming the case and field) where :meth:`problem` would:
         the same checks, with pyscf building the basis for these elements, but without
         the Kohn–Sham pinned grid, which is built when the case runs (a grid costs tens
         of milliseconds; reading the catalogue would build all of them)."""
-        Problem.create(name=self.name, numbers=self.numbers, coordinates=self.coordinates,
-                       charge=self.charge, multiplicity=self.multiplicity, basis=self.basis,
-                       cartesian=self.cartesian, method=self.method,
-                       functional=self.functional or None, grid=_GRID_NOT_BUILT)
+        self.problem(_grid=_GRID_NOT_BUILT)
 
     def mole(self):
         """The pyscf ``Mole`` of this case (bohr, symmetry off), via ``build_mole``."""

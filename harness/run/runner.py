@@ -35,7 +35,7 @@ import traceback
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
-from harness.backend.threads import limit_blas
+from harness.backend.threads import use_threads
 from harness.contract import defaults as _defaults
 from harness.contract.errors import PluginLoadError, Unsupported, innermost_frame
 from harness.run import channel
@@ -240,14 +240,7 @@ def _share_cores(jobs: int) -> None:
     """Give each of ``jobs`` concurrent children its share of the cores for pyscf's
     OpenMP threads and numpy's BLAS threads (environment variables are too late: pyscf
     and numpy are preloaded), so that N processes do not run 2N threads on N cores."""
-    share = max(1, (os.cpu_count() or 1) // max(1, jobs))
-    try:
-        from harness.backend.mole import set_threads
-
-        set_threads(share)
-    except Exception:  # pragma: no cover - pyscf without OpenMP
-        pass
-    limit_blas(share)
+    use_threads((os.cpu_count() or 1) // max(1, jobs))
 
 
 class _Stopped(BaseException):
@@ -606,12 +599,12 @@ def prepare_and_judge(case, problem, settings: JudgeSettings, reference_dir,
         time.sleep(HANDOFF_POLL)
     message, error, threads = _read_handoff(handoff)
     timeline("judge-start", case.name)
-    _set_threads(threads)
+    use_threads(threads)
     try:
         result = finish_case(case, problem, message, error, settings, reference, source,
                              reference_error, require_all=require_all, integrals=ints)
     finally:
-        _set_threads(_worker_threads)
+        use_threads(_worker_threads)
     timeline("judge-end", case.name)
     return result, reference, source
 
@@ -667,25 +660,13 @@ def _read_handoff(path: str) -> tuple[dict | None, str | None, int]:
 _worker_threads = 1
 
 
-def _set_threads(threads: int) -> None:
-    """pyscf's OpenMP threads and numpy's BLAS threads
-    (``harness.backend.threads.limit_blas``) of this judge worker."""
-    try:
-        from harness.backend.mole import set_threads
-
-        set_threads(max(1, int(threads)))
-    except Exception:  # pragma: no cover - pyscf without OpenMP
-        pass
-    limit_blas(threads)
-
-
 def _judge_worker_init(threads: int) -> None:
     """Start of a judge worker: Ctrl-C is the harness's (it cancels the work), pyscf's
     OpenMP threads are this worker's share of the cores."""
     global _worker_threads
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     _worker_threads = max(1, threads)
-    _set_threads(_worker_threads)
+    use_threads(_worker_threads)
 
 
 def _size(case) -> int:
